@@ -1,0 +1,35 @@
+//! Command-line front end: one file per command. Each command checks what the user typed,
+//! builds the library's configuration from it and calls the library.
+
+use clap::{Parser, Subcommand};
+
+use terrastack::Result;
+
+mod info;
+mod verify;
+
+/// Turn drone DSMs and multispectral orthomosaics into a co-registered, documented stack
+/// of terrain and spectral predictor layers.
+#[derive(Parser)]
+#[command(name = "terrastack", version, about, long_about = None, propagate_version = true)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Describe a raster or a stack folder: size, bands, transform, CRS, cell size, nodata.
+    Info(info::Args),
+    /// Check every terrain formula against closed-form surfaces; non-zero exit on failure.
+    Verify(verify::Args),
+}
+
+/// Parse the command line and run the command.
+pub fn run() -> Result<()> {
+    let cli = Cli::parse();
+    match cli.command {
+        Command::Info(args) => info::run(args),
+        Command::Verify(args) => verify::run(args),
+    }
+}

@@ -1,0 +1,28 @@
+//! terrastack: drone photogrammetry outputs (a DSM and a multispectral orthomosaic per
+//! flight) in, a co-registered, documented stack of terrain and spectral predictor layers
+//! out.
+//!
+//! Data flows one way: sources → target grid → block plan → kernels → stack writer.
+//!
+//! - [`error`]: the one error type; every error names its file, problem and fix.
+//! - [`grid`]: size, transform, CRS, nodata; cell sizes in metres; windows.
+//! - [`raster`]: windowed readers and the GeoTIFF writer (pure Rust; GDAL with `gdal`).
+//! - [`terrain`]: terrain derivatives, one module per family, each citing its method.
+//! - [`spectral`]: band roles, reflectance scaling, the index catalogue, band math.
+//! - [`align`]: resampling every input onto the target grid.
+//! - [`stack`]: the recipe, the block plan, the executor and the stack's metadata.
+//! - [`verify`]: closed-form test surfaces and error tables.
+//! - [`demo_site`]: the generator of the invented demo site in `sample-dsm/`.
+
+pub mod align;
+pub mod demo_site;
+pub mod error;
+pub mod grid;
+pub mod raster;
+pub mod spectral;
+pub mod stack;
+pub mod terrain;
+pub mod verify;
+
+pub use error::{Error, Result};
+pub use grid::{CellSizes, Crs, CrsKind, Grid, Window};
