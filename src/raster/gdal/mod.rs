@@ -73,23 +73,24 @@ impl GdalSource {
         let mut bands = Vec::with_capacity(count);
         for b in 1..=count {
             let band = ds.rasterband(b).map_err(|e| gdal_file_error(path, &e))?;
-            let sample_type =
-                match band.band_type() {
-                    GdalDataType::UInt8 => SampleType::U8,
-                    GdalDataType::UInt16 => SampleType::U16,
-                    GdalDataType::Int16 => SampleType::I16,
-                    GdalDataType::UInt32 => SampleType::U32,
-                    GdalDataType::Int32 => SampleType::I32,
-                    GdalDataType::Float32 => SampleType::F32,
-                    GdalDataType::Float64 => SampleType::F64,
-                    other => return Err(Error::file(
+            let sample_type = match band.band_type() {
+                GdalDataType::UInt8 => SampleType::U8,
+                GdalDataType::UInt16 => SampleType::U16,
+                GdalDataType::Int16 => SampleType::I16,
+                GdalDataType::UInt32 => SampleType::U32,
+                GdalDataType::Int32 => SampleType::I32,
+                GdalDataType::Float32 => SampleType::F32,
+                GdalDataType::Float64 => SampleType::F64,
+                other => {
+                    return Err(Error::file(
                         path,
                         format!(
                             "band {b} has sample type {other:?}, which terrastack does not read"
                         ),
                     )
-                    .with_fix("convert the raster to 8/16/32-bit integers or 32/64-bit floats")),
-                };
+                    .with_fix("convert the raster to 8/16/32-bit integers or 32/64-bit floats"))
+                }
+            };
             let description = band.description().ok().filter(|d| !d.trim().is_empty());
             bands.push(BandInfo {
                 description,

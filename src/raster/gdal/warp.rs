@@ -1,7 +1,15 @@
 //! Reprojection of one band onto a window of a target grid through GDAL's warper
-//! (`GDALReprojectImage` with an exact transformation: error threshold 0, so every
-//! target cell centre is transformed by PROJ rather than interpolated along a line).
+//! (a `GDALWarpOperation` driven by the exact general image-to-image transformer: error
+//! threshold 0, so every target cell centre is transformed by PROJ rather than
+//! interpolated along a line).
+//!
+//! GDAL widens the bilinear and cubic kernels when going coarser, by a scale it derives
+//! for each processing chunk from the chunk's source bounding box, so the same cell could
+//! come out differently depending on the block it was warped in. Here the scale is fixed
+//! once per target grid (from the local Jacobian at the grid's centre) and handed to the
+//! warper as its `XSCALE`/`YSCALE` options: a cell's value does not depend on the window.
 
+use std::ffi::CString;
 use std::path::Path;
 use std::ptr;
 
@@ -23,7 +31,8 @@ use crate::grid::{Grid, Window};
 /// (and NaN, for float bands without one) marks cells that take no part in resampling;
 /// target cells with no valid source data are NaN. `method` maps to GDAL's nearest,
 /// bilinear, cubic (Keys, a = −0.5) and average kernels. Only the source cells the
-/// window needs are read.
+/// window needs are read. The kernel scale is fixed per target grid (see the module
+/// documentation), so any split into windows gives bit-identical cells.
 pub fn warp_window(
     path: &Path,
     band: usize,
@@ -106,50 +115,73 @@ pub fn warp_window(
         b.fill(f64::NAN, None).map_err(|e| mem_error("fill", &e))?;
     }
 
+    let frame = SourceFrame::of(path, &src)?;
+    let (x_scale, y_scale) = kernel_scales(path, &frame, target)?;
     let alg = match method {
         Resampling::Nearest => gdal_sys::GDALResampleAlg::GRA_NearestNeighbour,
         Resampling::Bilinear => gdal_sys::GDALResampleAlg::GRA_Bilinear,
         Resampling::Cubic => gdal_sys::GDALResampleAlg::GRA_Cubic,
         Resampling::Average => gdal_sys::GDALResampleAlg::GRA_Average,
     };
-    // SAFETY: the options are created, filled and destroyed here; band lists are
-    // allocated with CPLMalloc because GDALDestroyWarpOptions frees them with CPLFree;
-    // both datasets outlive the call.
+    let xs = CString::new(format!("{x_scale:.17e}")).unwrap_or_default();
+    let ys = CString::new(format!("{y_scale:.17e}")).unwrap_or_default();
+    // SAFETY: the transformer, options and operation are created, used and destroyed
+    // here; band lists are allocated with CPLMalloc because GDALDestroyWarpOptions frees
+    // them with CPLFree; both datasets and the option strings outlive every call. The
+    // warp operation is driven directly (not through GDALReprojectImage, which would take
+    // source nodata from band 1 whatever band is warped).
     let rv = unsafe {
         gdal_sys::CPLErrorReset();
-        let opts = gdal_sys::GDALCreateWarpOptions();
-        (*opts).nBandCount = 1;
-        let src_bands =
-            gdal_sys::CPLMalloc(std::mem::size_of::<std::ffi::c_int>()).cast::<std::ffi::c_int>();
-        *src_bands = band as std::ffi::c_int;
-        let dst_bands =
-            gdal_sys::CPLMalloc(std::mem::size_of::<std::ffi::c_int>()).cast::<std::ffi::c_int>();
-        *dst_bands = 1;
-        (*opts).panSrcBands = src_bands;
-        (*opts).panDstBands = dst_bands;
-        if let Some(nd) = src_nodata {
-            gdal_sys::GDALWarpInitSrcNoDataReal(opts, nd);
-        }
-        gdal_sys::GDALWarpInitDstNoDataReal(opts, f64::NAN);
-        (*opts).papszWarpOptions = gdal_sys::CSLSetNameValue(
-            (*opts).papszWarpOptions,
-            c"INIT_DEST".as_ptr(),
-            c"NO_DATA".as_ptr(),
-        );
-        let rv = gdal_sys::GDALReprojectImage(
+        let transformer = gdal_sys::GDALCreateGenImgProjTransformer2(
             src.c_dataset(),
-            ptr::null(),
             dst.c_dataset(),
-            ptr::null(),
-            alg,
-            0.0,
-            0.0,
-            None,
             ptr::null_mut(),
-            opts,
         );
-        gdal_sys::GDALDestroyWarpOptions(opts);
-        rv
+        if transformer.is_null() {
+            gdal_sys::CPLErr::CE_Failure
+        } else {
+            let opts = gdal_sys::GDALCreateWarpOptions();
+            (*opts).hSrcDS = src.c_dataset();
+            (*opts).hDstDS = dst.c_dataset();
+            (*opts).eResampleAlg = alg;
+            (*opts).nBandCount = 1;
+            let src_bands = gdal_sys::CPLMalloc(std::mem::size_of::<std::ffi::c_int>())
+                .cast::<std::ffi::c_int>();
+            *src_bands = band as std::ffi::c_int;
+            let dst_bands = gdal_sys::CPLMalloc(std::mem::size_of::<std::ffi::c_int>())
+                .cast::<std::ffi::c_int>();
+            *dst_bands = 1;
+            (*opts).panSrcBands = src_bands;
+            (*opts).panDstBands = dst_bands;
+            if let Some(nd) = src_nodata {
+                gdal_sys::GDALWarpInitSrcNoDataReal(opts, nd);
+            }
+            gdal_sys::GDALWarpInitDstNoDataReal(opts, f64::NAN);
+            let mut wo = (*opts).papszWarpOptions;
+            wo = gdal_sys::CSLSetNameValue(wo, c"INIT_DEST".as_ptr(), c"NO_DATA".as_ptr());
+            wo = gdal_sys::CSLSetNameValue(wo, c"XSCALE".as_ptr(), xs.as_ptr());
+            wo = gdal_sys::CSLSetNameValue(wo, c"YSCALE".as_ptr(), ys.as_ptr());
+            (*opts).papszWarpOptions = wo;
+            (*opts).pfnTransformer = Some(gdal_sys::GDALGenImgProjTransform);
+            (*opts).pTransformerArg = transformer;
+            let op = gdal_sys::GDALCreateWarpOperation(opts);
+            let rv = if op.is_null() {
+                gdal_sys::CPLErr::CE_Failure
+            } else {
+                let rv = gdal_sys::GDALChunkAndWarpImage(
+                    op,
+                    0,
+                    0,
+                    window.width as std::ffi::c_int,
+                    window.height as std::ffi::c_int,
+                );
+                gdal_sys::GDALDestroyWarpOperation(op);
+                rv
+            };
+            gdal_sys::GDALDestroyWarpOptions(opts);
+            gdal_sys::GDALDestroyGenImgProjTransformer(transformer);
+            rv
+        }
     };
     if rv != gdal_sys::CPLErr::CE_None {
         // SAFETY: the message belongs to GDAL's thread-local error state; copied at once.
@@ -184,8 +216,132 @@ pub fn warp_window(
             None,
         )
         .map_err(|e| mem_error("read back", &e))?;
-    Array2::from_shape_vec((window.height, window.width), buf)
-        .map_err(|e| Error::usage(format!("warped window has the wrong shape: {e}")))
+    let mut out = Array2::from_shape_vec((window.height, window.width), buf)
+        .map_err(|e| Error::usage(format!("warped window has the wrong shape: {e}")))?;
+    if method == Resampling::Average {
+        clear_outside_footprints(&mut out, &frame, target, window);
+    }
+    Ok(out)
+}
+
+/// Where the source raster lies: its geotransform, inverted, and its CRS.
+struct SourceFrame {
+    transform: [f64; 6],
+    det: f64,
+    crs: crate::grid::Crs,
+    width: f64,
+    height: f64,
+}
+
+impl SourceFrame {
+    fn of(path: &Path, src: &gdal::Dataset) -> Result<SourceFrame> {
+        let st = src
+            .geo_transform()
+            .map_err(|e| super::gdal_file_error(path, &e))?;
+        let crs = match src.spatial_ref() {
+            Ok(srs) => super::crs_from_srs(&srs).map_err(|e| e.in_file(path))?,
+            Err(e) => return Err(super::gdal_file_error(path, &e)),
+        };
+        let det = st[1] * st[5] - st[2] * st[4];
+        if det == 0.0 || !det.is_finite() {
+            return Err(
+                Error::file(path, "the raster's geotransform cannot be inverted")
+                    .with_fix("georeference the raster with a non-degenerate transform"),
+            );
+        }
+        let (w, h) = src.raster_size();
+        Ok(SourceFrame {
+            transform: st,
+            det,
+            crs,
+            width: w as f64,
+            height: h as f64,
+        })
+    }
+
+    /// Fractional source (col, row) of a point in the source CRS.
+    fn to_px(&self, (x, y): (f64, f64)) -> (f64, f64) {
+        let st = &self.transform;
+        let (dx, dy) = (x - st[0], y - st[3]);
+        (
+            (st[5] * dx - st[2] * dy) / self.det,
+            (st[1] * dy - st[4] * dx) / self.det,
+        )
+    }
+}
+
+/// Destination pixels per source pixel along the target grid's x and y axes, at the
+/// target grid's centre, capped at 1 (going finer never narrows a kernel): the reciprocal
+/// of the length, in source pixels, of one target cell's side after the exact
+/// transformation. This is the ratio GDAL's warper calls XSCALE/YSCALE.
+fn kernel_scales(path: &Path, frame: &SourceFrame, target: &Grid) -> Result<(f64, f64)> {
+    let (cc, cr) = (target.width as f64 / 2.0, target.height as f64 / 2.0);
+    let mut pts = [
+        target.cell_centre(cc, cr),
+        target.cell_centre(cc + 1.0, cr),
+        target.cell_centre(cc, cr + 1.0),
+    ];
+    super::transform_points(&target.crs, &frame.crs, &mut pts).map_err(|e| e.in_file(path))?;
+    let p0 = frame.to_px(pts[0]);
+    let px = frame.to_px(pts[1]);
+    let py = frame.to_px(pts[2]);
+    let lx = (px.0 - p0.0).hypot(px.1 - p0.1);
+    let ly = (py.0 - p0.0).hypot(py.1 - p0.1);
+    if !(lx > 0.0 && ly > 0.0 && lx.is_finite() && ly.is_finite()) {
+        return Err(Error::file(
+            path,
+            format!(
+                "the centre of the target grid has no usable position in the raster's CRS {}",
+                frame.crs.label()
+            ),
+        )
+        .with_fix("check that the target grid lies where the raster's CRS is defined"));
+    }
+    Ok(((1.0 / lx).min(1.0), (1.0 / ly).min(1.0)))
+}
+
+/// Set to NaN the cells of `out` (covering `window` of `target`) whose footprint lies
+/// wholly outside the source raster. GDAL 3.6's average kernel rounds a footprint out to
+/// whole source cells and so gives values to target cells up to one source cell beyond
+/// the raster's edge; a cell's footprint is the bounding box of its four corners' exact
+/// positions in source pixels. Left as GDAL made it when a corner cannot be transformed.
+fn clear_outside_footprints(
+    out: &mut Array2<f32>,
+    frame: &SourceFrame,
+    target: &Grid,
+    window: Window,
+) {
+    let t = &target.transform;
+    let (w, h) = (window.width, window.height);
+    let mut corners = Vec::with_capacity((w + 1) * (h + 1));
+    for j in 0..=h {
+        for i in 0..=w {
+            let (c, r) = (
+                (window.col + i as i64) as f64,
+                (window.row + j as i64) as f64,
+            );
+            corners.push((t[0] + c * t[1] + r * t[2], t[3] + c * t[4] + r * t[5]));
+        }
+    }
+    if super::transform_points(&target.crs, &frame.crs, &mut corners).is_err() {
+        return;
+    }
+    let px: Vec<(f64, f64)> = corners.into_iter().map(|p| frame.to_px(p)).collect();
+    for ((r, c), v) in out.indexed_iter_mut() {
+        let quad = [
+            px[r * (w + 1) + c],
+            px[r * (w + 1) + c + 1],
+            px[(r + 1) * (w + 1) + c],
+            px[(r + 1) * (w + 1) + c + 1],
+        ];
+        let xmin = quad.iter().map(|p| p.0).fold(f64::INFINITY, f64::min);
+        let xmax = quad.iter().map(|p| p.0).fold(f64::NEG_INFINITY, f64::max);
+        let ymin = quad.iter().map(|p| p.1).fold(f64::INFINITY, f64::min);
+        let ymax = quad.iter().map(|p| p.1).fold(f64::NEG_INFINITY, f64::max);
+        if xmax <= 0.0 || ymax <= 0.0 || xmin >= frame.width || ymin >= frame.height {
+            *v = f32::NAN;
+        }
+    }
 }
 
 #[cfg(test)]
