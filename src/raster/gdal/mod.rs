@@ -15,7 +15,7 @@ use std::path::{Path, PathBuf};
 use std::sync::Mutex;
 
 use gdal::errors::GdalError;
-use gdal::raster::GdalDataType;
+use gdal::raster::{ColorInterpretation, GdalDataType};
 use gdal::{Dataset, DatasetOptions, GdalOpenFlags, Metadata};
 use ndarray::Array2;
 
@@ -30,14 +30,31 @@ use crate::grid::{Crs, Grid, RasterSpace, Window};
 /// A raster opened through GDAL, read window by window.
 ///
 /// Reads convert samples to `f32` (through `f64`, so that nodata is compared at the
-/// stored precision), turn the band's nodata value and NaN into NaN, and fill the cells
-/// of a window outside the raster with NaN; only the part of the window inside the
-/// raster is read from the file.
+/// stored precision), turn the band's nodata value, NaN, and cells that the band's mask
+/// (an internal per-dataset mask or an alpha band, as orthomosaics often carry) marks as
+/// empty (mask value 0) into NaN, and fill the cells of a window outside the raster with
+/// NaN; only the part of the window inside the raster is read from the file.
+/// Where a band's empty cells are marked, besides its nodata value.
+#[derive(Clone, Copy, Debug, PartialEq)]
+enum MaskSource {
+    /// Only the nodata value (or nothing).
+    None,
+    /// GDAL's mask band for the band (an internal per-dataset mask, or an alpha band
+    /// GDAL itself applies).
+    Gdal,
+    /// This band of the file is an alpha band (colour interpretation "alpha"); 0 means
+    /// empty. Multispectral orthomosaics carry one after their five bands, where GDAL
+    /// does not apply it by itself.
+    Alpha(usize),
+}
+
 pub struct GdalSource {
     path: PathBuf,
     grid: Grid,
     space: RasterSpace,
     bands: Vec<BandInfo>,
+    /// Per band: what marks cells without data besides the nodata value.
+    masks: Vec<MaskSource>,
     /// Idle read-only handles on `path`.
     pool: Mutex<Vec<Dataset>>,
 }
@@ -71,6 +88,12 @@ impl GdalSource {
             Err(_) => Crs::none(),
         };
         let mut bands = Vec::with_capacity(count);
+        let mut masks = Vec::with_capacity(count);
+        let alpha = ds
+            .rasterband(count)
+            .ok()
+            .filter(|b| b.color_interpretation() == ColorInterpretation::AlphaBand)
+            .map(|_| count);
         for b in 1..=count {
             let band = ds.rasterband(b).map_err(|e| gdal_file_error(path, &e))?;
             let sample_type = match band.band_type() {
@@ -92,6 +115,13 @@ impl GdalSource {
                 }
             };
             let description = band.description().ok().filter(|d| !d.trim().is_empty());
+            let flags = band.mask_flags().map_err(|e| gdal_file_error(path, &e))?;
+            masks.push(match alpha {
+                Some(a) if a != b => MaskSource::Alpha(a),
+                Some(_) => MaskSource::None,
+                None if !flags.is_all_valid() && !flags.is_nodata() => MaskSource::Gdal,
+                None => MaskSource::None,
+            });
             bands.push(BandInfo {
                 description,
                 sample_type,
@@ -110,6 +140,7 @@ impl GdalSource {
             grid,
             space,
             bands,
+            masks,
             pool: Mutex::new(vec![ds]),
         })
     }
@@ -155,10 +186,25 @@ impl RasterSource for GdalSource {
             return Ok(out);
         };
         let nodata = self.bands[band - 1].nodata;
-        let values = self.with_dataset(|ds| {
+        let mask_source = self.masks[band - 1];
+        let (values, mask) = self.with_dataset(|ds| {
             let rb = ds
                 .rasterband(band)
                 .map_err(|e| gdal_file_error(&self.path, &e))?;
+            let read_error = |what: &str, e: &GdalError| {
+                Error::file(
+                    &self.path,
+                    format!(
+                        "GDAL failed to read the {what} of band {band}, {} x {} cells at column {}, row {}: {}",
+                        inside.width,
+                        inside.height,
+                        inside.col,
+                        inside.row,
+                        gdal_message(e)
+                    ),
+                )
+                .with_fix("check that the file is complete and not truncated")
+            };
             let mut buf = vec![0.0f64; inside.len()];
             rb.read_into_slice::<f64>(
                 (inside.col as isize, inside.row as isize),
@@ -167,28 +213,38 @@ impl RasterSource for GdalSource {
                 &mut buf,
                 None,
             )
-            .map_err(|e| {
-                Error::file(
-                    &self.path,
-                    format!(
-                        "GDAL failed to read band {band}, {} x {} cells at column {}, row {}: {}",
-                        inside.width,
-                        inside.height,
-                        inside.col,
-                        inside.row,
-                        gdal_message(&e)
-                    ),
-                )
-                .with_fix("check that the file is complete and not truncated")
-            })?;
-            Ok(buf)
+            .map_err(|e| read_error("values", &e))?;
+            let mask_band = match mask_source {
+                MaskSource::None => None,
+                MaskSource::Gdal => Some(rb.open_mask_band().map_err(|e| read_error("mask", &e))?),
+                MaskSource::Alpha(a) => Some(ds.rasterband(a).map_err(|e| read_error("alpha band", &e))?),
+            };
+            let mask = match mask_band {
+                Some(mb) => {
+                    let mut m = vec![0.0f64; inside.len()];
+                    mb.read_into_slice::<f64>(
+                        (inside.col as isize, inside.row as isize),
+                        (inside.width, inside.height),
+                        (inside.width, inside.height),
+                        &mut m,
+                        None,
+                    )
+                    .map_err(|e| read_error("mask", &e))?;
+                    Some(m)
+                }
+                None => None,
+            };
+            Ok((buf, mask))
         })?;
         let r0 = (inside.row - window.row) as usize;
         let c0 = (inside.col - window.col) as usize;
         for (i, row) in values.chunks_exact(inside.width).enumerate() {
             let mut dst = out.row_mut(r0 + i);
             for (j, &v) in row.iter().enumerate() {
-                let is_nodata = v.is_nan() || nodata.is_some_and(|nd| v == nd);
+                let empty = mask
+                    .as_ref()
+                    .is_some_and(|m| m[i * inside.width + j] == 0.0);
+                let is_nodata = empty || v.is_nan() || nodata.is_some_and(|nd| v == nd);
                 dst[c0 + j] = if is_nodata { f32::NAN } else { v as f32 };
             }
         }
@@ -283,6 +339,72 @@ mod tests {
         assert!(edge.row(1).iter().all(|v| v.is_nan()));
         let outside = src.read_window(1, Window::new(10, 10, 2, 2)).unwrap();
         assert!(outside.iter().all(|v| v.is_nan()));
+    }
+
+    /// A 4 x 3 Float32 raster in UTM 33N, 10 m cells, value 100 + index, no nodata value;
+    /// `alpha` chooses an alpha band instead of an internal per-dataset mask or an alpha band hiding column 0.
+    fn write_masked(dir: &Path, alpha: bool) -> PathBuf {
+        use gdal::raster::ColorInterpretation;
+        let path = dir.join(if alpha { "alpha.tif" } else { "mask.tif" });
+        let drv = DriverManager::get_driver_by_name("GTiff").unwrap();
+        let bands = if alpha { 2 } else { 1 };
+        let mut opts = gdal::cpl::CslStringList::new();
+        if alpha {
+            // The GTiff driver's creation option marking the last band as alpha.
+            opts.set_name_value("ALPHA", "YES").unwrap();
+        }
+        let mut ds = drv
+            .create_with_band_type_with_options::<f32, _>(&path, 4, 3, bands, &opts)
+            .unwrap();
+        ds.set_geo_transform(&[500_000.0, 10.0, 0.0, 5_000_000.0, 0.0, -10.0])
+            .unwrap();
+        ds.set_spatial_ref(&gdal::spatial_ref::SpatialRef::from_epsg(32633).unwrap())
+            .unwrap();
+        let data: Vec<f32> = (0..12).map(|v| 100.0 + v as f32).collect();
+        let mut b = ds.rasterband(1).unwrap();
+        b.write((0, 0), (4, 3), &mut gdal::raster::Buffer::new((4, 3), data))
+            .unwrap();
+        let m: Vec<u8> = (0..12).map(|i| if i % 4 == 0 { 0 } else { 255 }).collect();
+        if alpha {
+            let mut a = ds.rasterband(2).unwrap();
+            a.set_color_interpretation(ColorInterpretation::AlphaBand)
+                .unwrap();
+            a.write((0, 0), (4, 3), &mut gdal::raster::Buffer::new((4, 3), m))
+                .unwrap();
+        } else {
+            b.create_mask_band(true).unwrap();
+            let mut mb = b.open_mask_band().unwrap();
+            mb.write((0, 0), (4, 3), &mut gdal::raster::Buffer::new((4, 3), m))
+                .unwrap();
+        }
+        path
+    }
+
+    #[test]
+    fn mask_and_alpha_mark_empty_cells() {
+        let dir = tempfile::tempdir().unwrap();
+        for alpha in [false, true] {
+            let path = write_masked(dir.path(), alpha);
+            let src = GdalSource::open(&path).unwrap();
+            let w = src.read_window(1, Window::new(0, 0, 4, 3)).unwrap();
+            for r in 0..3 {
+                assert!(w[[r, 0]].is_nan(), "alpha {alpha}: row {r}");
+                assert_eq!(w[[r, 1]], 101.0 + 4.0 * r as f32);
+            }
+            // Warped onto itself by GDAL's warper, the hidden column stays empty.
+            let w2 = crate::raster::gdal::warp_window(
+                &path,
+                1,
+                src.grid(),
+                Window::full(src.grid()),
+                crate::align::Resampling::Nearest,
+            )
+            .unwrap();
+            for r in 0..3 {
+                assert!(w2[[r, 0]].is_nan(), "warp, alpha {alpha}: row {r}");
+                assert_eq!(w2[[r, 3]], 103.0 + 4.0 * r as f32);
+            }
+        }
     }
 
     #[test]

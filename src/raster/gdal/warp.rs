@@ -117,6 +117,14 @@ pub fn warp_window(
 
     let frame = SourceFrame::of(path, &src)?;
     let (x_scale, y_scale) = kernel_scales(path, &frame, target)?;
+    // An alpha band (the last band, as orthomosaics carry it) marks empty cells.
+    let count = src.raster_count();
+    let alpha_band = src
+        .rasterband(count)
+        .ok()
+        .filter(|b| b.color_interpretation() == gdal::raster::ColorInterpretation::AlphaBand)
+        .map(|_| count)
+        .filter(|&a| a != band);
     let alg = match method {
         Resampling::Nearest => gdal_sys::GDALResampleAlg::GRA_NearestNeighbour,
         Resampling::Bilinear => gdal_sys::GDALResampleAlg::GRA_Bilinear,
@@ -153,6 +161,9 @@ pub fn warp_window(
             *dst_bands = 1;
             (*opts).panSrcBands = src_bands;
             (*opts).panDstBands = dst_bands;
+            if let Some(a) = alpha_band {
+                (*opts).nSrcAlphaBand = a as std::ffi::c_int;
+            }
             if let Some(nd) = src_nodata {
                 gdal_sys::GDALWarpInitSrcNoDataReal(opts, nd);
             }
