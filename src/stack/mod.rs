@@ -3,4 +3,5 @@
 
 pub mod output;
 pub mod preview;
+pub mod recipe;
 pub mod sidecar;
