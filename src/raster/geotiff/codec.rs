@@ -78,10 +78,12 @@ pub const ZSTD_LEVEL: i32 = 9;
 /// to `expected`; shorter output is a problem (a truncated or corrupt chunk). Output is
 /// never allowed to grow past `expected`, whatever the input claims.
 pub fn decompress(codec: Codec, data: &[u8], expected: usize) -> Result<Vec<u8>, Problem> {
+    // Start small and grow: a corrupt header may promise far more than the data holds.
+    let start = expected.min(data.len().saturating_mul(8).max(1 << 16));
     let mut out = match codec {
         Codec::None => data[..data.len().min(expected)].to_vec(),
         Codec::Deflate => {
-            let mut out = Vec::with_capacity(expected);
+            let mut out = Vec::with_capacity(start);
             flate2::read::ZlibDecoder::new(data)
                 .take(expected as u64)
                 .read_to_end(&mut out)
@@ -89,7 +91,7 @@ pub fn decompress(codec: Codec, data: &[u8], expected: usize) -> Result<Vec<u8>,
             out
         }
         Codec::Zstd => {
-            let mut out = Vec::with_capacity(expected);
+            let mut out = Vec::with_capacity(start);
             let decoder = zstd::stream::read::Decoder::new(data)
                 .map_err(|e| format!("ZSTD data is corrupt ({e})"))?;
             decoder
@@ -98,7 +100,7 @@ pub fn decompress(codec: Codec, data: &[u8], expected: usize) -> Result<Vec<u8>,
                 .map_err(|e| format!("ZSTD data is corrupt ({e})"))?;
             out
         }
-        Codec::Lzw => lzw_decode(data, expected)?,
+        Codec::Lzw => lzw_decode(data, expected, start)?,
         Codec::PackBits => packbits_decode(data, expected),
     };
     if out.len() < expected {
@@ -111,7 +113,7 @@ pub fn decompress(codec: Codec, data: &[u8], expected: usize) -> Result<Vec<u8>,
     Ok(out)
 }
 
-fn lzw_decode(data: &[u8], expected: usize) -> Result<Vec<u8>, Problem> {
+fn lzw_decode(data: &[u8], expected: usize, start: usize) -> Result<Vec<u8>, Problem> {
     use weezl::{decode::Decoder, BitOrder, LzwStatus};
     // Pre-6.0 LSB-first streams start with a zero byte and an odd second byte (libtiff's
     // test for "old-style" LZW, from memory).
@@ -121,10 +123,13 @@ fn lzw_decode(data: &[u8], expected: usize) -> Result<Vec<u8>, Problem> {
     } else {
         Decoder::with_tiff_size_switch(BitOrder::Msb, 8)
     };
-    let mut out = vec![0u8; expected];
+    let mut out = vec![0u8; start];
     let mut inp = data;
     let mut filled = 0;
     while filled < expected {
+        if filled == out.len() {
+            out.resize(expected.min(out.len().saturating_mul(2)), 0);
+        }
         let r = decoder.decode_bytes(inp, &mut out[filled..]);
         filled += r.consumed_out;
         inp = &inp[r.consumed_in..];
@@ -139,7 +144,7 @@ fn lzw_decode(data: &[u8], expected: usize) -> Result<Vec<u8>, Problem> {
 }
 
 fn packbits_decode(data: &[u8], expected: usize) -> Vec<u8> {
-    let mut out = Vec::with_capacity(expected);
+    let mut out = Vec::with_capacity(expected.min(data.len().saturating_mul(4)));
     let mut i = 0;
     while i < data.len() && out.len() < expected {
         let n = data[i] as i8;

@@ -476,4 +476,218 @@ mod tests {
         // Rust's f32::round rounds half away from zero; `as` saturates.
         assert_eq!(raw.as_slice().unwrap(), &[3, 0, 65535, 65535]);
     }
+
+    /// A little-endian classic TIFF built by hand: header, then `data`, then an IFD.
+    fn handmade(entries: Vec<(u16, tags::OutValue)>, data: &[u8]) -> Vec<u8> {
+        let mut bytes = b"II*\0".to_vec();
+        let at = (8 + data.len() as u64 + 1) & !1;
+        bytes.extend_from_slice(&(at as u32).to_le_bytes());
+        bytes.extend_from_slice(data);
+        bytes.resize(at as usize, 0);
+        bytes.extend(tags::build_ifd(entries, at, false));
+        bytes
+    }
+
+    /// Entries of a `w` x `h` single-strip uint8 image whose strip is `count` bytes at 8.
+    fn plain_entries(w: u32, h: u32, count: u32) -> Vec<(u16, tags::OutValue)> {
+        use tags::OutValue::{Long, Short};
+        vec![
+            (tags::IMAGE_WIDTH, Long(vec![w])),
+            (tags::IMAGE_LENGTH, Long(vec![h])),
+            (tags::BITS_PER_SAMPLE, Short(vec![8])),
+            (tags::COMPRESSION, Short(vec![1])),
+            (tags::STRIP_OFFSETS, Long(vec![8])),
+            (tags::ROWS_PER_STRIP, Long(vec![h])),
+            (tags::STRIP_BYTE_COUNTS, Long(vec![count])),
+        ]
+    }
+
+    fn with(
+        mut e: Vec<(u16, tags::OutValue)>,
+        tag: u16,
+        v: tags::OutValue,
+    ) -> Vec<(u16, tags::OutValue)> {
+        e.retain(|(t, _)| *t != tag);
+        e.push((tag, v));
+        e
+    }
+
+    fn open_bytes(bytes: &[u8]) -> (tempfile::TempDir, std::path::PathBuf, Result<GeoTiffReader>) {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("in.tif");
+        std::fs::write(&path, bytes).unwrap();
+        let r = GeoTiffReader::open(&path);
+        (dir, path, r)
+    }
+
+    fn err_text(r: Result<GeoTiffReader>) -> String {
+        match r {
+            Ok(_) => panic!("the file was accepted"),
+            Err(e) => e.to_string(),
+        }
+    }
+
+    #[test]
+    fn plain_tiff_opens_without_georeferencing() {
+        let data: Vec<u8> = (0..12).collect();
+        let (_d, _p, r) = open_bytes(&handmade(plain_entries(4, 3, 12), &data));
+        let r = r.unwrap();
+        assert!(!r.is_georeferenced());
+        assert_eq!(r.grid().crs, Crs::none());
+        assert_eq!(r.grid().transform, [0.0, 1.0, 0.0, 0.0, 0.0, 1.0]);
+        let a = r.read_window(1, Window::full(r.grid())).unwrap();
+        assert_eq!(a[[2, 3]], 11.0);
+    }
+
+    #[test]
+    fn model_transformation_and_pixel_is_point() {
+        use tags::OutValue::{Double, Short};
+        // ModelTransformation row-major 4x4 (OGC GeoTIFF 1.1 §7.3.2 / B.2.4): x = 100 + 2i,
+        // y = 50 − 3j at cell centres (pixel-is-point), so the corner of cell (0, 0) is
+        // (99, 51.5) in the area convention (closed form: half a cell up and left).
+        let m = vec![
+            2.0, 0.0, 0.0, 100.0, 0.0, -3.0, 0.0, 50.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 1.0,
+        ];
+        let (dir, _, ascii) = geokeys::build(&Crs::from_epsg(32633), RasterSpace::Point);
+        let e = with(
+            plain_entries(4, 3, 12),
+            tags::MODEL_TRANSFORMATION,
+            Double(m),
+        );
+        let e = with(e, tags::GEO_KEY_DIRECTORY, Short(dir));
+        let e = with(e, tags::GEO_ASCII_PARAMS, tags::OutValue::Ascii(ascii));
+        let (_d, _p, r) = open_bytes(&handmade(e, &[0; 12]));
+        let r = r.unwrap();
+        assert_eq!(r.raster_space(), RasterSpace::Point);
+        assert_eq!(r.grid().transform, [99.0, 2.0, 0.0, 51.5, 0.0, -3.0]);
+        assert_eq!(r.grid().crs.epsg, Some(32633));
+    }
+
+    #[test]
+    fn bad_inputs_are_errors_with_fixes() {
+        use tags::OutValue::{Double, Long, Short};
+        // Missing path.
+        let e = GeoTiffReader::open(Path::new("/nonexistent/dsm.tif"))
+            .err()
+            .unwrap();
+        assert!(e.to_string().contains("/nonexistent/dsm.tif"), "{e}");
+        // Not a TIFF.
+        let t = err_text(open_bytes(b"P6 not a tiff at all").2);
+        assert!(t.contains("not a TIFF") && t.contains("fix:"), "{t}");
+        assert!(!is_tiff(&open_bytes(b"P6").1).unwrap());
+        // Truncated: the directory lies past the end.
+        let mut b = handmade(plain_entries(4, 3, 12), &[0; 12]);
+        b.truncate(30);
+        let t = err_text(open_bytes(&b).2);
+        assert!(t.contains("truncated") && t.contains("fix:"), "{t}");
+        // Strip offset past the end: opening works, reading names the strip.
+        let e = with(
+            plain_entries(4, 3, 12),
+            tags::STRIP_OFFSETS,
+            Long(vec![1_000_000]),
+        );
+        let (_d, path, r) = open_bytes(&handmade(e, &[0; 12]));
+        let msg = r
+            .unwrap()
+            .read_window(1, Window::new(0, 0, 4, 3))
+            .unwrap_err()
+            .to_string();
+        assert!(
+            msg.contains("past the end") && msg.contains(&path.display().to_string()),
+            "{msg}"
+        );
+        // Unsupported sample type: signed 8-bit.
+        let e = with(plain_entries(4, 3, 12), tags::SAMPLE_FORMAT, Short(vec![2]));
+        let t = err_text(open_bytes(&handmade(e, &[0; 12])).2);
+        assert!(
+            t.contains("8-bit signed integer") && t.contains("fix:"),
+            "{t}"
+        );
+        // Unsupported compression: JPEG.
+        let e = with(plain_entries(4, 3, 12), tags::COMPRESSION, Short(vec![7]));
+        let t = err_text(open_bytes(&handmade(e, &[0; 12])).2);
+        assert!(t.contains("JPEG"), "{t}");
+        // Absurd size refused before anything is allocated.
+        let e = with(
+            plain_entries(4, 3, 12),
+            tags::IMAGE_WIDTH,
+            Long(vec![u32::MAX]),
+        );
+        let t = err_text(open_bytes(&handmade(e, &[0; 12])).2);
+        assert!(t.contains("outside 1..="), "{t}");
+        // Corrupt Deflate data: a read error, not a panic.
+        let e = with(plain_entries(4, 3, 12), tags::COMPRESSION, Short(vec![8]));
+        let r = open_bytes(&handmade(e, &[0xAB; 12])).2.unwrap();
+        assert!(r.read_window(1, Window::new(0, 0, 4, 3)).is_err());
+        // Ground-control-point georeferencing is refused with a fix.
+        let e = with(
+            plain_entries(4, 3, 12),
+            tags::MODEL_TIEPOINT,
+            Double(vec![
+                0.0, 0.0, 0.0, 1.0, 2.0, 0.0, 3.0, 2.0, 0.0, 7.0, 8.0, 0.0,
+            ]),
+        );
+        let t = err_text(open_bytes(&handmade(e, &[0; 12])).2);
+        assert!(
+            t.contains("ground control points") && t.contains("fix:"),
+            "{t}"
+        );
+        // Rotated transform refused (Grid's rule), named to the file.
+        let m = vec![
+            2.0, 0.5, 0.0, 100.0, 0.0, -3.0, 0.0, 50.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 1.0,
+        ];
+        let e = with(
+            plain_entries(4, 3, 12),
+            tags::MODEL_TRANSFORMATION,
+            Double(m),
+        );
+        let (_d, path, r) = open_bytes(&handmade(e, &[0; 12]));
+        let t = err_text(r);
+        assert!(
+            t.contains("rotated") && t.contains(&path.display().to_string()),
+            "{t}"
+        );
+    }
+
+    #[test]
+    fn reader_is_send_and_sync() {
+        fn check<T: Send + Sync>() {}
+        check::<GeoTiffReader>();
+        check::<GeoTiffWriter>();
+    }
+
+    #[test]
+    fn mutated_files_never_panic() {
+        // Bytes of a small valid file flipped in turn (a deterministic stand-in for the
+        // fuzz target in fuzz/): opening and reading may fail but must not panic.
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("seed.tif");
+        let grid = utm_grid(20, 9).with_nodata(Some(-1.0));
+        let a = Array2::from_shape_fn((9, 20), |(r, c)| (r * 20 + c) as f32);
+        let opts = WriteOptions {
+            layout: Layout::Tiled { size: 16 },
+            ..WriteOptions::default()
+        };
+        write_geotiff(&path, &grid, &[a.view(), a.view()], &["a", "b"], &opts).unwrap();
+        let seed = std::fs::read(&path).unwrap();
+        let mutated = dir.path().join("m.tif");
+        // Every byte of the header and the directory (written last), every 5th of the data.
+        let dir_start = u32::from_le_bytes(seed[4..8].try_into().unwrap()) as usize;
+        let positions = (0..seed.len()).filter(|i| *i < 8 || *i >= dir_start || i % 5 == 0);
+        for i in positions {
+            for x in [0x01u8, 0xFF] {
+                let mut b = seed.clone();
+                b[i] ^= x;
+                std::fs::write(&mutated, &b).unwrap();
+                if let Ok(r) = GeoTiffReader::open(&mutated) {
+                    let g = r.grid().clone();
+                    if g.width * g.height <= 1 << 16 {
+                        for band in 1..=r.band_count().min(4) {
+                            let _ = r.read_window(band, Window::full(&g).grow(2));
+                        }
+                    }
+                }
+            }
+        }
+    }
 }
