@@ -158,8 +158,13 @@ mod tests {
                         } else {
                             f64::NAN
                         },
+                        // Documented rule: DEV is 0 on a flat window.
                         if ok && zc.is_finite() {
-                            (zc - mean) / sd
+                            if sd == 0.0 {
+                                0.0
+                            } else {
+                                (zc - mean) / sd
+                            }
                         } else {
                             f64::NAN
                         },
