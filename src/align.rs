@@ -412,6 +412,9 @@ fn apply_taps(
     rows: &AxisTaps,
     method: Resampling,
 ) -> Array2<f32> {
+    let src = src.as_standard_layout();
+    let stride = src.ncols();
+    let s = src.as_slice().expect("standard layout");
     let (h, w) = (rows.start.len(), cols.start.len());
     let mut out = Array2::<f32>::from_elem((h, w), f32::NAN);
     out.axis_iter_mut(ndarray::Axis(0))
@@ -419,62 +422,83 @@ fn apply_taps(
         .enumerate()
         .for_each(|(ti, mut line)| {
             let wy = rows.weights(ti);
-            let sr = (rows.start[ti] - r0) as usize;
+            let base = (rows.start[ti] - r0) as usize * stride;
             for (tj, o) in line.iter_mut().enumerate() {
                 let wx = cols.weights(tj);
-                let sc = (cols.start[tj] - c0) as usize;
+                let p = base + (cols.start[tj] - c0) as usize;
                 *o = match method {
-                    Resampling::Nearest => src[[sr, sc]],
-                    Resampling::Bilinear | Resampling::Cubic => {
-                        let mut sum = 0.0f64;
-                        let mut valid = true;
-                        'outer: for (a, &wa) in wy.iter().enumerate() {
-                            if wa == 0.0 {
-                                continue;
-                            }
-                            let mut row_sum = 0.0f64;
-                            for (b, &wb) in wx.iter().enumerate() {
-                                if wb == 0.0 {
-                                    continue;
-                                }
-                                let v = src[[sr + a, sc + b]];
-                                if v.is_nan() {
-                                    valid = false;
-                                    break 'outer;
-                                }
-                                row_sum += wb * v as f64;
-                            }
-                            sum += wa * row_sum;
-                        }
-                        if valid {
-                            sum as f32
-                        } else {
-                            f32::NAN
-                        }
-                    }
-                    Resampling::Average => {
-                        let (mut sum, mut area, mut total) = (0.0f64, 0.0f64, 0.0f64);
-                        for (a, &wa) in wy.iter().enumerate() {
-                            for (b, &wb) in wx.iter().enumerate() {
-                                let wgt = wa * wb;
-                                total += wgt;
-                                let v = src[[sr + a, sc + b]];
-                                if !v.is_nan() {
-                                    sum += wgt * v as f64;
-                                    area += wgt;
-                                }
-                            }
-                        }
-                        if area > 0.0 && area >= 0.5 * total {
-                            (sum / area) as f32
-                        } else {
-                            f32::NAN
-                        }
-                    }
+                    Resampling::Nearest => s[p],
+                    Resampling::Bilinear => interpolate::<2>(s, p, stride, wx, wy),
+                    Resampling::Cubic => interpolate::<4>(s, p, stride, wx, wy),
+                    Resampling::Average => area_mean(s, p, stride, wx, wy),
                 };
             }
         });
     out
+}
+
+/// Separable interpolation over a K x K neighbourhood whose north-west cell is `s[p]`.
+/// The branch-free sum is used when finite; otherwise the sum is redone skipping
+/// zero-weight cells, and is NaN if a cell with non-zero weight is NaN. Both sums add the
+/// same terms in the same order, so a finite result is the same either way.
+#[inline]
+fn interpolate<const K: usize>(s: &[f32], p: usize, stride: usize, wx: &[f64], wy: &[f64]) -> f32 {
+    let wx: &[f64; K] = wx.try_into().expect("K taps");
+    let wy: &[f64; K] = wy.try_into().expect("K taps");
+    let mut sum = 0.0f64;
+    for (a, wa) in wy.iter().enumerate() {
+        let row = &s[p + a * stride..p + a * stride + K];
+        let mut row_sum = 0.0f64;
+        for (wb, v) in wx.iter().zip(row) {
+            row_sum += wb * *v as f64;
+        }
+        sum += wa * row_sum;
+    }
+    if !sum.is_nan() {
+        return sum as f32;
+    }
+    let mut sum = 0.0f64;
+    for (a, &wa) in wy.iter().enumerate() {
+        if wa == 0.0 {
+            continue;
+        }
+        let mut row_sum = 0.0f64;
+        for (b, &wb) in wx.iter().enumerate() {
+            if wb == 0.0 {
+                continue;
+            }
+            let v = s[p + a * stride + b];
+            if v.is_nan() {
+                return f32::NAN;
+            }
+            row_sum += wb * v as f64;
+        }
+        sum += wa * row_sum;
+    }
+    sum as f32
+}
+
+/// Area-weighted mean of the valid cells under a footprint; NaN when they cover less than
+/// half of it.
+#[inline]
+fn area_mean(s: &[f32], p: usize, stride: usize, wx: &[f64], wy: &[f64]) -> f32 {
+    let (mut sum, mut area, mut total) = (0.0f64, 0.0f64, 0.0f64);
+    for (a, &wa) in wy.iter().enumerate() {
+        let row = &s[p + a * stride..p + a * stride + wx.len()];
+        for (&wb, &v) in wx.iter().zip(row) {
+            let wgt = wa * wb;
+            total += wgt;
+            if !v.is_nan() {
+                sum += wgt * v as f64;
+                area += wgt;
+            }
+        }
+    }
+    if area > 0.0 && area >= 0.5 * total {
+        (sum / area) as f32
+    } else {
+        f32::NAN
+    }
 }
 
 #[cfg(feature = "gdal")]
@@ -736,6 +760,33 @@ mod tests {
         assert!(bil[[0, 5]].is_nan() && bil[[0, 4]] == 1.0);
         let near = resample_window(&src, 1, &t3, Window::full(&t3), Resampling::Nearest).unwrap();
         assert!(near[[0, 5]] == 1.0 && near[[2, 2]].is_nan() && near[[2, 1]] == 1.0);
+    }
+
+    #[test]
+    fn zero_weight_neighbours_do_not_poison() {
+        // A target on the source's lattice but shifted by one cell: every centre coincides
+        // with a source centre, so each value is that cell's own (weights 1 and 0), even
+        // beside a NaN column or the source's edge.
+        let src_grid = utm_grid(6, 6, 0.0, 6.0, 1.0);
+        let mut data = Array2::from_shape_fn((6, 6), |(r, c)| (r * 6 + c) as f32 + 0.25);
+        data.column_mut(3).fill(f32::NAN);
+        let src = MemoryRaster::new("z.tif", src_grid, vec![data.clone()]).unwrap();
+        let target = utm_grid(5, 5, 1.0, 5.0, 1.0);
+        for m in [
+            Resampling::Bilinear,
+            Resampling::Cubic,
+            Resampling::Nearest,
+            Resampling::Average,
+        ] {
+            let out = resample_window(&src, 1, &target, Window::full(&target), m).unwrap();
+            for ((r, c), v) in out.indexed_iter() {
+                let want = data[[r + 1, c + 1]];
+                assert!(
+                    v.to_bits() == want.to_bits(),
+                    "{m:?} at {r},{c}: {v} vs {want}"
+                );
+            }
+        }
     }
 
     #[test]
