@@ -11,6 +11,6 @@ pub mod roles;
 pub use expression::Expression;
 pub use indices::{catalogue, find_index, SpectralIndex};
 pub use roles::{
-    apply_scaling, parse_band_file, parse_band_map, to_reflectance, BandArrays, BandMap,
-    BandSource, MaskOptions, PerBand, Role,
+    apply_scaling, check_band_exists, parse_band_file, parse_band_map, to_reflectance, BandArrays,
+    BandMap, BandSource, MaskOptions, PerBand, Role,
 };

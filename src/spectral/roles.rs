@@ -72,12 +72,19 @@ impl Role {
                     ))
                     .with_fix("choose another name for the band"));
                 }
+                let extends_standard = STANDARD_ROLES.iter().any(|r| t.starts_with(r.name()));
                 if let Some(near) = STANDARD_ROLES
                     .iter()
-                    .find(|r| edit_distance(r.name(), &t) <= 2 && t.len() >= 3)
+                    .find(|r| t.len() >= 3 && !extends_standard && edit_distance(r.name(), &t) <= 1)
                 {
-                    return Err(Error::usage(format!("unknown band role `{t}`"))
-                        .with_fix(format!("did you mean `{}`?", near.name())));
+                    return Err(Error::usage(format!("unknown band role `{t}`")).with_fix(
+                        format!(
+                        "did you mean `{}`? (an extra band needs a name that is not one letter \
+                         away from a standard role, e.g. `{}2`)",
+                        near.name(),
+                        near.name()
+                    ),
+                    ));
                 }
                 Role::Extra(t)
             }
@@ -104,20 +111,31 @@ impl fmt::Display for Role {
     }
 }
 
-/// Levenshtein distance (for "did you mean" hints on short names).
+/// Edit distance counting insertions, deletions, substitutions and swaps of adjacent
+/// letters (optimal string alignment; Damerau 1964), for "did you mean" hints.
 fn edit_distance(a: &str, b: &str) -> usize {
     let a: Vec<char> = a.chars().collect();
     let b: Vec<char> = b.chars().collect();
-    let mut prev: Vec<usize> = (0..=b.len()).collect();
+    let mut d = vec![vec![0usize; b.len() + 1]; a.len() + 1];
+    for (i, row) in d.iter_mut().enumerate() {
+        row[0] = i;
+    }
+    for j in 0..=b.len() {
+        d[0][j] = j;
+    }
     for i in 1..=a.len() {
-        let mut cur = vec![i; b.len() + 1];
         for j in 1..=b.len() {
             let cost = usize::from(a[i - 1] != b[j - 1]);
-            cur[j] = (prev[j] + 1).min(cur[j - 1] + 1).min(prev[j - 1] + cost);
+            let mut v = (d[i - 1][j] + 1)
+                .min(d[i][j - 1] + 1)
+                .min(d[i - 1][j - 1] + cost);
+            if i > 1 && j > 1 && a[i - 1] == b[j - 2] && a[i - 2] == b[j - 1] {
+                v = v.min(d[i - 2][j - 2] + 1);
+            }
+            d[i][j] = v;
         }
-        prev = cur;
     }
-    prev[b.len()]
+    d[a.len()][b.len()]
 }
 
 /// One band of reflectance: where it is stored and how to scale it.
@@ -542,6 +560,17 @@ mod tests {
         let e = Role::parse("nri").unwrap_err().to_string();
         assert!(e.contains("did you mean `nir`"), "{e}");
         assert!(Role::parse("2nir").is_err());
+        // Legitimate extra bands near a standard name are kept.
+        assert_eq!(Role::parse("swir").unwrap(), Role::Extra("swir".into()));
+        assert_eq!(Role::parse("nir2").unwrap(), Role::Extra("nir2".into()));
+        assert!(Role::parse("gren")
+            .unwrap_err()
+            .to_string()
+            .contains("`green`"));
+        // Worked by hand: one swap, one substitution, two edits.
+        assert_eq!(edit_distance("nir", "nri"), 1);
+        assert_eq!(edit_distance("red", "ref"), 1);
+        assert_eq!(edit_distance("nir", "swir"), 2);
         assert!(Role::parse("sqrt")
             .unwrap_err()
             .to_string()
