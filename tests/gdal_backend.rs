@@ -469,3 +469,262 @@ fn points_match_rasterio() {
     // The raster straddles 12°E, the boundary between zones 32 and 33.
     assert!(ll.iter().any(|p| p.0 < 12.0) && ll.iter().any(|p| p.0 > 12.0));
 }
+
+// ----- GDAL and the pure-Rust GeoTIFF reader agree -----------------------------------
+
+/// A deterministic pseudo-random sequence (64-bit LCG, Knuth's MMIX constants: from
+/// memory) for test pixel values.
+fn lcg(seed: u64, n: usize) -> Vec<f64> {
+    let mut s = seed;
+    (0..n)
+        .map(|_| {
+            s = s
+                .wrapping_mul(6_364_136_223_846_793_005)
+                .wrapping_add(1_442_695_040_888_963_407);
+            (s >> 11) as f64 / (1u64 << 53) as f64
+        })
+        .collect()
+}
+
+/// Write `bands` (values in 0..1 scaled by `scale`) through GDAL's GTiff driver with
+/// creation options `opts`.
+#[allow(clippy::too_many_arguments)]
+fn gtiff_with<T: gdal::raster::GdalType + Copy>(
+    path: &Path,
+    w: usize,
+    h: usize,
+    transform: [f64; 6],
+    epsg: u32,
+    nbands: usize,
+    nodata: Option<(f64, T)>,
+    opts: &[(&str, &str)],
+    conv: impl Fn(f64) -> T,
+) {
+    let mut co = gdal::cpl::CslStringList::new();
+    for (k, v) in opts {
+        co.set_name_value(k, v).unwrap();
+    }
+    let drv = DriverManager::get_driver_by_name("GTiff").unwrap();
+    let mut ds = drv
+        .create_with_band_type_with_options::<T, _>(path, w, h, nbands, &co)
+        .unwrap();
+    ds.set_geo_transform(&transform).unwrap();
+    ds.set_spatial_ref(&SpatialRef::from_epsg(epsg).unwrap())
+        .unwrap();
+    for b in 1..=nbands {
+        let mut vals: Vec<T> = lcg(b as u64 * 7919, w * h).into_iter().map(&conv).collect();
+        if let Some((_, sample)) = nodata {
+            // A few nodata cells, including two corners.
+            for i in [0, w + 3, w * h / 2, w * h - 1] {
+                vals[i] = sample;
+            }
+        }
+        let mut band = ds.rasterband(b).unwrap();
+        band.set_no_data_value(nodata.map(|n| n.0)).unwrap();
+        band.write((0, 0), (w, h), &mut Buffer::new((w, h), vals))
+            .unwrap();
+    }
+}
+
+fn assert_same_reading(path: &Path) {
+    use terrastack::raster::geotiff::GeoTiffReader;
+    let g = GdalSource::open(path).unwrap();
+    let t = GeoTiffReader::open(path).unwrap();
+    let name = path.file_name().unwrap().to_string_lossy();
+    let (gg, tg) = (g.grid(), t.grid());
+    assert_eq!((gg.width, gg.height), (tg.width, tg.height), "{name}");
+    for (a, b) in gg.transform.iter().zip(tg.transform.iter()) {
+        assert!(
+            (a - b).abs() <= 1e-9 * a.abs().max(1.0),
+            "{name}: {:?} vs {:?}",
+            gg.transform,
+            tg.transform
+        );
+    }
+    assert_eq!(gg.crs.epsg, tg.crs.epsg, "{name}");
+    assert_eq!(gg.crs.kind, tg.crs.kind, "{name}");
+    match (gg.crs.linear_unit_m, tg.crs.linear_unit_m) {
+        (Some(a), Some(b)) => assert!((a - b).abs() < 1e-12, "{name}: units {a} vs {b}"),
+        (a, b) => assert_eq!(a, b, "{name}: units"),
+    }
+    assert_eq!(
+        gg.nodata.map(f64::to_bits),
+        tg.nodata.map(f64::to_bits),
+        "{name}: nodata"
+    );
+    assert_eq!(g.raster_space(), t.raster_space(), "{name}");
+    assert_eq!(g.band_count(), t.band_count(), "{name}");
+    let full = Window::full(gg);
+    let part = Window::new(-3, -2, gg.width / 2 + 5, gg.height / 2 + 4);
+    let tail = Window::new(gg.width as i64 - 4, gg.height as i64 - 3, 7, 6);
+    for b in 1..=g.band_count() {
+        assert_eq!(
+            g.band_info(b).sample_type,
+            t.band_info(b).sample_type,
+            "{name}"
+        );
+        assert_eq!(
+            g.band_info(b).nodata.map(f64::to_bits),
+            t.band_info(b).nodata.map(f64::to_bits),
+            "{name}"
+        );
+        for w in [full, part, tail] {
+            let a = g.read_window(b, w).unwrap();
+            let c = t.read_window(b, w).unwrap();
+            assert_eq!(a.dim(), c.dim());
+            for ((idx, x), y) in a.indexed_iter().zip(c.iter()) {
+                assert!(
+                    x.to_bits() == y.to_bits() || (x.is_nan() && y.is_nan()),
+                    "{name} band {b} window {w:?} cell {idx:?}: GDAL {x} vs GeoTIFF reader {y}"
+                );
+            }
+        }
+    }
+}
+
+#[test]
+fn gdal_and_geotiff_reader_agree_on_gdal_files() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let utm = [500_000.0, 0.05, 0.0, 5_200_000.0, 0.0, -0.05];
+    let geo = [12.5, 1.0 / 36_000.0, 0.0, 47.25, 0.0, -1.0 / 36_000.0];
+    let ft = [6_000_000.0, 0.25, 0.0, 2_100_000.0, 0.0, -0.25];
+    gtiff_with::<u16>(
+        &d.join("u16_deflate_tiled.tif"),
+        37,
+        23,
+        utm,
+        32633,
+        3,
+        Some((0.0, 0)),
+        &[
+            ("COMPRESS", "DEFLATE"),
+            ("PREDICTOR", "2"),
+            ("TILED", "YES"),
+            ("BLOCKXSIZE", "16"),
+            ("BLOCKYSIZE", "16"),
+        ],
+        |v| (v * 60_000.0) as u16 + 1,
+    );
+    gtiff_with::<f32>(
+        &d.join("f32_lzw_strips.tif"),
+        41,
+        19,
+        geo,
+        4326,
+        1,
+        Some((-9999.0, -9999.0)),
+        &[("COMPRESS", "LZW"), ("PREDICTOR", "3"), ("BLOCKYSIZE", "5")],
+        |v| (v * 300.0 + 100.0) as f32,
+    );
+    gtiff_with::<i16>(
+        &d.join("i16_pixel_plain.tif"),
+        29,
+        31,
+        ft,
+        2227,
+        2,
+        Some((-32768.0, -32768)),
+        &[("INTERLEAVE", "PIXEL")],
+        |v| (v * 20_000.0) as i16 - 10_000,
+    );
+    gtiff_with::<f64>(
+        &d.join("f64_zstd_tiled.tif"),
+        33,
+        17,
+        utm,
+        25833,
+        1,
+        None,
+        &[("COMPRESS", "ZSTD"), ("TILED", "YES")],
+        |v| v * 1e3 - 500.0,
+    );
+    gtiff_with::<u8>(
+        &d.join("u8_packbits_pixel.tif"),
+        30,
+        20,
+        utm,
+        3857,
+        4,
+        None,
+        &[("COMPRESS", "PACKBITS"), ("INTERLEAVE", "PIXEL")],
+        |v| (v * 255.0) as u8,
+    );
+    // Pixel-is-point: GDAL writes the tie point half a cell in and reads it back to the
+    // corner (GTiff driver documentation, AREA_OR_POINT); both readers must agree.
+    let point = d.join("f32_point.tif");
+    gtiff_with::<f32>(&point, 12, 9, utm, 32633, 1, None, &[], |v| v as f32);
+    {
+        let mut ds = gdal::Dataset::open_ex(
+            &point,
+            gdal::DatasetOptions {
+                open_flags: gdal::GdalOpenFlags::GDAL_OF_UPDATE,
+                ..Default::default()
+            },
+        )
+        .unwrap();
+        ds.set_metadata_item("AREA_OR_POINT", "Point", "").unwrap();
+    }
+    assert_eq!(
+        GdalSource::open(&point).unwrap().raster_space(),
+        RasterSpace::Point
+    );
+    for f in [
+        "f32_point.tif",
+        "u16_deflate_tiled.tif",
+        "f32_lzw_strips.tif",
+        "i16_pixel_plain.tif",
+        "f64_zstd_tiled.tif",
+        "u8_packbits_pixel.tif",
+    ] {
+        assert_same_reading(&d.join(f));
+    }
+}
+
+#[test]
+fn gdal_and_geotiff_reader_agree_on_terrastack_files() {
+    use terrastack::raster::geotiff::{write_geotiff, Compression, Layout, WriteOptions};
+    let dir = tempfile::tempdir().unwrap();
+    let grid = Grid::new(
+        45,
+        27,
+        [500_000.0, 0.05, 0.0, 5_200_000.0, 0.0, -0.05],
+        Crs::from_epsg(32633),
+    )
+    .unwrap()
+    .with_nodata(Some(f64::NAN));
+    let mut a = Array2::from_shape_vec((27, 45), lcg(3, 45 * 27))
+        .unwrap()
+        .mapv(|v| (v * 50.0 + 200.0) as f32);
+    a[[0, 0]] = f32::NAN;
+    a[[13, 20]] = f32::NAN;
+    let b = a.mapv(|v| v * 0.5);
+    for (i, (compression, layout)) in [
+        (Compression::Deflate, Layout::Tiled { size: 16 }),
+        (Compression::Lzw, Layout::Strips { rows_per_strip: 4 }),
+        (Compression::None, Layout::Tiled { size: 32 }),
+    ]
+    .into_iter()
+    .enumerate()
+    {
+        let path = dir.path().join(format!("stack_{i}.tif"));
+        let opts = WriteOptions {
+            compression,
+            layout,
+            ..WriteOptions::default()
+        };
+        write_geotiff(
+            &path,
+            &grid,
+            &[a.view(), b.view()],
+            &["elevation", "half"],
+            &opts,
+        )
+        .unwrap();
+        assert_same_reading(&path);
+        // Band descriptions written by terrastack are read by GDAL.
+        let g = GdalSource::open(&path).unwrap();
+        assert_eq!(g.band_info(1).description.as_deref(), Some("elevation"));
+        assert_eq!(g.band_info(2).description.as_deref(), Some("half"));
+    }
+}
