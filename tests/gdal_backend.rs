@@ -146,6 +146,50 @@ fn ascii_grid_from_mem_dataset() {
     assert!(w[[0, 2]].is_nan());
     assert_eq!(w[[1, 2]], 10.5);
     assert!(w.row(2).iter().all(|v| v.is_nan()));
+    // `raster::open` hands non-TIFF files to GDAL.
+    let opened = terrastack::raster::open(&path).unwrap();
+    assert_eq!(opened.grid(), src.grid());
+    let junk = dir.path().join("junk.img");
+    std::fs::write(&junk, b"not a raster").unwrap();
+    let e = terrastack::raster::open(&junk).err().unwrap().to_string();
+    assert!(e.contains("junk.img") && e.contains("fix:"), "{e}");
+}
+
+#[test]
+fn alignment_warps_other_crs_through_gdal() {
+    // A UTM 32N raster resampled onto a UTM 33N grid by `align::resample_window` goes
+    // through `warp_window` (same cells, bit for bit).
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("z32.tif");
+    let data: Vec<f32> = (0..40 * 30)
+        .map(|i| (i % 40) as f32 * 0.5 + (i / 40) as f32)
+        .collect();
+    gtiff(
+        &path,
+        40,
+        30,
+        [725_600.0, 5.0, 0.0, 5_243_600.0, 0.0, -5.0],
+        Some(32632),
+        &[data],
+        None,
+    );
+    let src = terrastack::raster::open(&path).unwrap();
+    let target = Grid::new(
+        20,
+        15,
+        [272_100.0, 8.0, 0.0, 5_243_700.0, 0.0, -8.0],
+        Crs::from_epsg(32633),
+    )
+    .unwrap();
+    let win = Window::new(-2, -1, 24, 17);
+    let a = terrastack::align::resample_window(src.as_ref(), 1, &target, win, Resampling::Bilinear)
+        .unwrap();
+    let b = warp_window(&path, 1, &target, win, Resampling::Bilinear).unwrap();
+    assert_eq!(a.dim(), (17, 24));
+    assert!(a.iter().any(|v| v.is_finite()));
+    for (x, y) in a.iter().zip(b.iter()) {
+        assert!(x.to_bits() == y.to_bits() || (x.is_nan() && y.is_nan()));
+    }
 }
 
 #[test]

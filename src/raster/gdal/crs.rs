@@ -24,6 +24,7 @@ use crate::grid::{Crs, CrsKind};
 /// - `vertical_epsg`: EPSG code of the vertical component of a compound CRS.
 /// - `name`: the CRS's name as OSR gives it.
 pub fn crs_from_srs(srs: &SpatialRef) -> Result<Crs> {
+    super::quiet_gdal_failures();
     let wkt = export_wkt2(srs)?;
     let kind = if srs.is_projected() {
         CrsKind::Projected
@@ -62,6 +63,7 @@ pub fn crs_from_srs(srs: &SpatialRef) -> Result<Crs> {
 /// Parse a CRS the user typed: "EPSG:32633", an OGC WKT string, a PROJ string
 /// ("+proj=utm +zone=33 +datum=WGS84"), or anything else OSR's `SetFromUserInput` reads.
 pub fn crs_from_user(text: &str) -> Result<Crs> {
+    super::quiet_gdal_failures();
     let trimmed = text.trim();
     if trimmed.is_empty() {
         return Err(Error::usage("the CRS is empty")
@@ -174,6 +176,7 @@ pub fn transform_points(from: &Crs, to: &Crs, points: &mut [(f64, f64)]) -> Resu
 /// An OSR spatial reference for `crs`: from its WKT when it has one, else from its EPSG
 /// code.
 pub(crate) fn srs_of(crs: &Crs) -> Result<SpatialRef> {
+    super::quiet_gdal_failures();
     if let Some(wkt) = &crs.wkt {
         let srs = SpatialRef::from_wkt(wkt).map_err(|e| {
             Error::usage(format!(

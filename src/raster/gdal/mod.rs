@@ -6,6 +6,10 @@
 //! read-only handles on the same file: a read takes one (opening another when all are
 //! busy) and gives it back, so blocks can be read from several threads at once. Files are
 //! only ever opened read-only.
+//!
+//! GDAL's failures come back inside terrastack's errors (naming the file and the fix), so
+//! GDAL's own printing of them is turned off on first use; its warnings and debug
+//! messages (with `CPL_DEBUG=ON`) still go to standard error.
 
 mod crs;
 mod vector;
@@ -252,8 +256,42 @@ impl RasterSource for GdalSource {
     }
 }
 
+/// GDAL's error handler for terrastack: failures are silent (they are returned, with
+/// GDAL's text, in terrastack's errors); warnings and debug messages go to stderr.
+unsafe extern "C" fn report_gdal_message(
+    class: gdal_sys::CPLErr::Type,
+    _number: gdal_sys::CPLErrorNum,
+    msg: *const std::ffi::c_char,
+) {
+    use std::io::Write;
+    let label = match class {
+        gdal_sys::CPLErr::CE_Warning => "GDAL warning",
+        gdal_sys::CPLErr::CE_Debug => "GDAL",
+        _ => return,
+    };
+    let text = if msg.is_null() {
+        std::borrow::Cow::Borrowed("")
+    } else {
+        // SAFETY: GDAL passes a NUL-terminated message valid for this call.
+        unsafe { std::ffi::CStr::from_ptr(msg) }.to_string_lossy()
+    };
+    let _ = writeln!(std::io::stderr(), "{label}: {text}");
+}
+
+/// Install [`report_gdal_message`] as GDAL's error handler, once per process.
+pub(crate) fn quiet_gdal_failures() {
+    static ONCE: std::sync::Once = std::sync::Once::new();
+    ONCE.call_once(|| {
+        // SAFETY: the handler is a plain function valid for the life of the process.
+        unsafe {
+            gdal_sys::CPLSetErrorHandler(Some(report_gdal_message));
+        }
+    });
+}
+
 /// Open `path` read-only as a raster, with GDAL's error text in the message.
 fn open_raster(path: &Path) -> Result<Dataset> {
+    quiet_gdal_failures();
     Dataset::open_ex(
         path,
         DatasetOptions {

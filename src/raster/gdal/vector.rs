@@ -47,6 +47,7 @@ pub fn read_vector(path: &Path) -> Result<Vec<VectorFeature>> {
             std::io::Error::from(std::io::ErrorKind::NotFound),
         ));
     }
+    super::quiet_gdal_failures();
     let ds = Dataset::open_ex(
         path,
         DatasetOptions {
