@@ -68,14 +68,7 @@ pub fn warp_window(
         )
         .with_fix("georeference the raster first"));
     }
-    let dst_wkt = srs_of(&target.crs)?.to_wkt().map_err(|e| {
-        Error::usage(format!(
-            "GDAL cannot write the target CRS {} as WKT: {}",
-            target.crs.label(),
-            gdal_message(&e)
-        ))
-        .with_fix("give the target CRS as an EPSG code")
-    })?;
+    let dst_srs = srs_of(&target.crs)?;
     let src_band = src
         .rasterband(band)
         .map_err(|e| super::gdal_file_error(path, &e))?;
@@ -106,7 +99,7 @@ pub fn warp_window(
     ];
     dst.set_geo_transform(&dst_transform)
         .map_err(|e| mem_error("transform", &e))?;
-    dst.set_projection(&dst_wkt)
+    dst.set_spatial_ref(&dst_srs)
         .map_err(|e| mem_error("CRS", &e))?;
     {
         let mut b = dst.rasterband(1).map_err(|e| mem_error("band", &e))?;
