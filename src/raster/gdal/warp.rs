@@ -408,6 +408,41 @@ mod tests {
     }
 
     #[test]
+    fn per_band_nodata_of_the_warped_band() {
+        // Erdas Imagine files keep a nodata value per band: band 1 says 1, band 2 says 2.
+        // Warping band 2 must take band 2's value (cells holding 1 stay valid).
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("bands.img");
+        let drv = DriverManager::get_driver_by_name("HFA").unwrap();
+        let mut ds = drv.create_with_band_type::<u8, _>(&path, 4, 1, 2).unwrap();
+        ds.set_geo_transform(&[500_000.0, 10.0, 0.0, 100_000.0, 0.0, -10.0])
+            .unwrap();
+        ds.set_spatial_ref(&SpatialRef::from_epsg(32633).unwrap())
+            .unwrap();
+        for (b, nd) in [(1usize, 1.0), (2, 2.0)] {
+            let mut band = ds.rasterband(b).unwrap();
+            band.set_no_data_value(Some(nd)).unwrap();
+            let mut buf = gdal::raster::Buffer::new((4, 1), vec![1u8, 2, 3, 1]);
+            band.write((0, 0), (4, 1), &mut buf).unwrap();
+        }
+        drop(ds);
+        use crate::raster::RasterSource;
+        let src = super::super::GdalSource::open(&path).unwrap();
+        let w = warp_window(
+            &path,
+            2,
+            src.grid(),
+            Window::full(src.grid()),
+            Resampling::Nearest,
+        )
+        .unwrap();
+        assert_eq!(w[[0, 0]], 1.0);
+        assert!(w[[0, 1]].is_nan());
+        assert_eq!(w[[0, 2]], 3.0);
+        assert_eq!(w[[0, 3]], 1.0);
+    }
+
+    #[test]
     fn target_without_crs_refused() {
         let dir = tempfile::tempdir().unwrap();
         let path = write_ramp(dir.path());
