@@ -1,0 +1,436 @@
+//! The recipe: what a stack is built from and how, as a TOML file or flags.
+//!
+//! A recipe file has these tables (every key optional; relative paths are relative to the
+//! recipe file's folder):
+//!
+//! ```toml
+//! [inputs]
+//! dsm = "flight/dsm.tif"
+//! ortho = "flight/ortho.tif"                  # one multi-band orthomosaic …
+//! bands = "blue=1,green=2,red=3,rededge=4,nir=5"
+//! files = { nir = "flight/nir.tif" }         # … and/or one file per band ("FILE" or "FILE:BAND")
+//! reflectance_scale = 0.0001                  # reflectance = stored · scale + offset
+//! reflectance_offset = 0.0
+//! zero_is_nodata = false                      # all bands 0 → nodata
+//!
+//! [features]
+//! list = ["elevation", "slope", "curvature", "tpi", "ndvi"]   # terrain words and index names
+//! scales_m = [1.0, 5.0]                        # window radii in metres
+//! window = "disc"                              # or "square"
+//! min_valid_fraction = 0.75
+//! z_factor = 1.0
+//! expressions = { wet = "(green - nir) / (green + nir)" }
+//!
+//! [grid]
+//! resolution_m = 0.2                            # default: the DSM's cell size
+//! extent = "dsm"                                # or "intersection"
+//! resampling = "bilinear"                       # nearest, bilinear, cubic, average
+//!
+//! [output]
+//! compression = "deflate"                       # or "zstd"
+//! ```
+//!
+//! Flags override the recipe key by key; the merged result is a [`Recipe`] whose every
+//! field is explicit, and that is what `stack.json` records under `parameters`.
+
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+use serde::{Deserialize, Serialize};
+
+use crate::align::Resampling;
+use crate::error::{Error, Result};
+
+/// The features built when neither flags nor recipe name any: the 3x3 set, position and
+/// roughness at every scale, the reflectance bands and every index the bands allow.
+pub const DEFAULT_FEATURES: &[&str] = &[
+    "elevation",
+    "slope",
+    "northness",
+    "eastness",
+    "curvature",
+    "tpi",
+    "roughness",
+    "relative_elevation",
+    "reflectance",
+    "indices",
+];
+
+/// Default window radii in metres.
+pub const DEFAULT_SCALES_M: &[f64] = &[1.0, 5.0];
+
+/// The recipe file as written (every key optional).
+#[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct RecipeFile {
+    #[serde(default)]
+    pub inputs: InputsSection,
+    #[serde(default)]
+    pub features: FeaturesSection,
+    #[serde(default)]
+    pub grid: GridSection,
+    #[serde(default)]
+    pub output: OutputSection,
+}
+
+#[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct InputsSection {
+    pub dsm: Option<PathBuf>,
+    pub ortho: Option<PathBuf>,
+    pub bands: Option<String>,
+    #[serde(default)]
+    pub files: BTreeMap<String, String>,
+    /// A number, or a text such as "1/65535" or "nir=1e-4,red=1e-4".
+    pub reflectance_scale: Option<toml::Value>,
+    pub reflectance_offset: Option<toml::Value>,
+    pub zero_is_nodata: Option<bool>,
+}
+
+#[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct FeaturesSection {
+    pub list: Option<Vec<String>>,
+    pub scales_m: Option<Vec<f64>>,
+    pub window: Option<String>,
+    pub min_valid_fraction: Option<f64>,
+    pub z_factor: Option<f64>,
+    #[serde(default)]
+    pub expressions: BTreeMap<String, String>,
+}
+
+#[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct GridSection {
+    pub resolution_m: Option<f64>,
+    pub extent: Option<String>,
+    pub resampling: Option<Resampling>,
+}
+
+#[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct OutputSection {
+    pub compression: Option<String>,
+}
+
+impl RecipeFile {
+    /// Read a recipe file; relative paths become relative to its folder.
+    pub fn load(path: &Path) -> Result<RecipeFile> {
+        let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
+        let mut recipe: RecipeFile = toml::from_str(&text).map_err(|e| {
+            Error::file(path, format!("not a valid recipe: {}", e.message().trim())).with_fix(
+                "see the recipe format in the README (tables inputs, features, grid, output)",
+            )
+        })?;
+        let base = path.parent().unwrap_or(Path::new("."));
+        let rebase = |p: &mut PathBuf| {
+            if p.is_relative() {
+                *p = base.join(&*p);
+            }
+        };
+        if let Some(p) = recipe.inputs.dsm.as_mut() {
+            rebase(p);
+        }
+        if let Some(p) = recipe.inputs.ortho.as_mut() {
+            rebase(p);
+        }
+        for spec in recipe.inputs.files.values_mut() {
+            let p = Path::new(spec.as_str());
+            if p.is_relative() {
+                *spec = base.join(p).to_string_lossy().into_owned();
+            }
+        }
+        Ok(recipe)
+    }
+}
+
+/// Flags given on the command line; `None`/empty means "not given".
+#[derive(Clone, Debug, Default)]
+pub struct RecipeFlags {
+    pub dsm: Option<PathBuf>,
+    pub ortho: Option<PathBuf>,
+    pub bands: Option<String>,
+    /// `ROLE=FILE[:BAND]` entries.
+    pub band_files: Vec<String>,
+    pub features: Option<Vec<String>>,
+    pub scales_m: Option<Vec<f64>>,
+    /// `NAME=EXPR` entries.
+    pub expressions: Vec<String>,
+    pub resolution_m: Option<f64>,
+    pub extent: Option<String>,
+    pub resampling: Option<Resampling>,
+    pub window: Option<String>,
+    pub min_valid_fraction: Option<f64>,
+    pub z_factor: Option<f64>,
+    pub reflectance_scale: Option<String>,
+    pub reflectance_offset: Option<String>,
+    pub zero_is_nodata: bool,
+    pub compression: Option<String>,
+}
+
+/// A fully resolved recipe: every choice explicit. Recorded in `stack.json`.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct Recipe {
+    pub dsm: PathBuf,
+    pub ortho: Option<PathBuf>,
+    /// Band map of `ortho` ("blue=1,green=2,…,alpha=6"), parsed by `spectral::BandMap`.
+    pub bands: Option<String>,
+    /// One-file-per-band inputs, `ROLE=FILE[:BAND]`.
+    pub band_files: Vec<String>,
+    /// Reflectance scale: one number, or `ROLE=NUMBER` pairs (`spectral::PerBand`).
+    pub reflectance_scale: Option<String>,
+    /// Reflectance offset, same form as the scale.
+    pub reflectance_offset: Option<String>,
+    pub zero_is_nodata: bool,
+    /// Feature words and index names, as asked (expanded by the plan).
+    pub features: Vec<String>,
+    pub scales_m: Vec<f64>,
+    pub window: String,
+    pub min_valid_fraction: f64,
+    pub z_factor: f64,
+    /// Name → expression text.
+    pub expressions: BTreeMap<String, String>,
+    /// Target cell size in metres; `None` keeps the DSM's.
+    pub resolution_m: Option<f64>,
+    pub extent: String,
+    pub resampling: Resampling,
+    pub compression: String,
+}
+
+impl Recipe {
+    /// Merge a recipe file (if any) with flags; flags win. Checks every value's range.
+    pub fn resolve(file: Option<&RecipeFile>, flags: &RecipeFlags) -> Result<Recipe> {
+        let empty = RecipeFile::default();
+        let f = file.unwrap_or(&empty);
+        let dsm = flags
+            .dsm
+            .clone()
+            .or_else(|| f.inputs.dsm.clone())
+            .ok_or_else(|| {
+                Error::usage("no DSM given")
+                    .with_fix("pass --dsm FILE, or set inputs.dsm in the recipe")
+            })?;
+        let ortho = flags.ortho.clone().or_else(|| f.inputs.ortho.clone());
+        let bands = flags.bands.clone().or_else(|| f.inputs.bands.clone());
+        match (&ortho, &bands) {
+            (None, Some(_)) => {
+                return Err(Error::usage("--bands names bands of an orthomosaic, but no --ortho was given")
+                    .with_fix("add --ortho FILE, or give each band as --band ROLE=FILE"))
+            }
+            (Some(_), None) => {
+                return Err(Error::usage("--ortho was given without --bands").with_fix(
+                    "say which band holds which role, e.g. --bands blue=1,green=2,red=3,rededge=4,nir=5",
+                ))
+            }
+            _ => {}
+        }
+        let band_files: Vec<String> = f
+            .inputs
+            .files
+            .iter()
+            .map(|(k, v)| format!("{k}={v}"))
+            .chain(flags.band_files.iter().cloned())
+            .collect();
+        let features = flags
+            .features
+            .clone()
+            .or_else(|| f.features.list.clone())
+            .unwrap_or_else(|| DEFAULT_FEATURES.iter().map(|s| s.to_string()).collect());
+        if features.is_empty() {
+            return Err(Error::usage("the feature list is empty")
+                .with_fix("name at least one feature; `terrastack features` lists them"));
+        }
+        let scales_m = flags
+            .scales_m
+            .clone()
+            .or_else(|| f.features.scales_m.clone())
+            .unwrap_or_else(|| DEFAULT_SCALES_M.to_vec());
+        if let Some(bad) = scales_m.iter().find(|s| !s.is_finite() || **s <= 0.0) {
+            return Err(Error::usage(format!(
+                "scale {bad} m is not a positive number of metres"
+            )));
+        }
+        let window = flags
+            .window
+            .clone()
+            .or_else(|| f.features.window.clone())
+            .unwrap_or_else(|| "disc".into());
+        if window != "disc" && window != "square" {
+            return Err(Error::usage(format!(
+                "window shape {window:?} is not disc or square"
+            )));
+        }
+        let min_valid_fraction = flags
+            .min_valid_fraction
+            .or(f.features.min_valid_fraction)
+            .unwrap_or(0.75);
+        if !(min_valid_fraction > 0.0 && min_valid_fraction <= 1.0) {
+            return Err(Error::usage(format!(
+                "minimum valid fraction {min_valid_fraction} is outside (0, 1]"
+            )));
+        }
+        let z_factor = flags.z_factor.or(f.features.z_factor).unwrap_or(1.0);
+        if !z_factor.is_finite() || z_factor == 0.0 {
+            return Err(Error::usage(format!(
+                "z-factor {z_factor} must be a non-zero number"
+            )));
+        }
+        let mut expressions = f.features.expressions.clone();
+        for spec in &flags.expressions {
+            let (name, expr) = spec.split_once('=').ok_or_else(|| {
+                Error::usage(format!("--index {spec:?} is not NAME=EXPRESSION"))
+                    .with_fix("write e.g. --index wet=\"(green - nir) / (green + nir)\"")
+            })?;
+            let name = name.trim().to_string();
+            if name.is_empty() || !name.chars().all(|c| c.is_ascii_alphanumeric() || c == '_') {
+                return Err(Error::usage(format!(
+                    "--index name {name:?} must be letters, digits and underscores"
+                )));
+            }
+            expressions.insert(name, expr.trim().to_string());
+        }
+        let resolution_m = flags.resolution_m.or(f.grid.resolution_m);
+        if let Some(r) = resolution_m {
+            if !r.is_finite() || r <= 0.0 {
+                return Err(Error::usage(format!(
+                    "resolution {r} m is not a positive number of metres"
+                )));
+            }
+        }
+        let extent = flags
+            .extent
+            .clone()
+            .or_else(|| f.grid.extent.clone())
+            .unwrap_or_else(|| "dsm".into());
+        if extent != "dsm" && extent != "intersection" {
+            return Err(Error::usage(format!(
+                "extent {extent:?} is not dsm or intersection"
+            )));
+        }
+        let compression = flags
+            .compression
+            .clone()
+            .or_else(|| f.output.compression.clone())
+            .unwrap_or_else(|| "deflate".into());
+        if compression != "deflate" && compression != "zstd" {
+            return Err(Error::usage(format!(
+                "compression {compression:?} is not deflate or zstd"
+            )));
+        }
+        let reflectance_scale = flags
+            .reflectance_scale
+            .clone()
+            .or_else(|| f.inputs.reflectance_scale.as_ref().map(number_text));
+        let reflectance_offset = flags
+            .reflectance_offset
+            .clone()
+            .or_else(|| f.inputs.reflectance_offset.as_ref().map(number_text));
+        Ok(Recipe {
+            dsm,
+            ortho,
+            bands,
+            band_files,
+            reflectance_scale,
+            reflectance_offset,
+            zero_is_nodata: flags.zero_is_nodata || f.inputs.zero_is_nodata.unwrap_or(false),
+            features,
+            scales_m,
+            window,
+            min_valid_fraction,
+            z_factor,
+            expressions,
+            resolution_m,
+            extent,
+            resampling: flags.resampling.or(f.grid.resampling).unwrap_or_default(),
+            compression,
+        })
+    }
+}
+
+/// A recipe value given as a number or a text, as the text the option parsers take.
+fn number_text(v: &toml::Value) -> String {
+    match v {
+        toml::Value::String(s) => s.clone(),
+        other => other.to_string(),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn flags_with_dsm() -> RecipeFlags {
+        RecipeFlags {
+            dsm: Some("dsm.tif".into()),
+            ..Default::default()
+        }
+    }
+
+    #[test]
+    fn defaults_are_explicit() {
+        let r = Recipe::resolve(None, &flags_with_dsm()).unwrap();
+        assert_eq!(r.scales_m, DEFAULT_SCALES_M);
+        assert_eq!(r.window, "disc");
+        assert_eq!(r.min_valid_fraction, 0.75);
+        assert_eq!(r.resampling, Resampling::Bilinear);
+        assert_eq!(r.features.len(), DEFAULT_FEATURES.len());
+    }
+
+    #[test]
+    fn flags_override_recipe() {
+        let file: RecipeFile = toml::from_str(
+            r#"
+            [inputs]
+            dsm = "a.tif"
+            ortho = "o.tif"
+            bands = "red=3, nir=5"
+            [features]
+            list = ["slope"]
+            scales_m = [2.0]
+            expressions = { wet = "green - nir" }
+            [grid]
+            resampling = "cubic"
+            "#,
+        )
+        .unwrap();
+        let flags = RecipeFlags {
+            scales_m: Some(vec![0.5, 3.0]),
+            expressions: vec!["dry = nir - red".into()],
+            ..Default::default()
+        };
+        let r = Recipe::resolve(Some(&file), &flags).unwrap();
+        assert_eq!(r.dsm, PathBuf::from("a.tif"));
+        assert_eq!(r.bands.as_deref(), Some("red=3, nir=5"));
+        assert_eq!(r.scales_m, vec![0.5, 3.0]);
+        assert_eq!(r.features, vec!["slope"]);
+        assert_eq!(r.resampling, Resampling::Cubic);
+        assert_eq!(r.expressions.len(), 2);
+        assert_eq!(r.expressions["dry"], "nir - red");
+    }
+
+    #[test]
+    fn bad_values_are_refused_with_their_name() {
+        let mut f = flags_with_dsm();
+        f.scales_m = Some(vec![-1.0]);
+        assert!(Recipe::resolve(None, &f)
+            .unwrap_err()
+            .to_string()
+            .contains("-1"));
+        let mut f = flags_with_dsm();
+        f.ortho = Some("o.tif".into());
+        assert!(Recipe::resolve(None, &f)
+            .unwrap_err()
+            .to_string()
+            .contains("--bands"));
+        assert!(Recipe::resolve(None, &RecipeFlags::default()).is_err());
+    }
+
+    #[test]
+    fn unknown_recipe_key_is_an_error() {
+        let tmp = tempfile::tempdir().unwrap();
+        let p = tmp.path().join("r.toml");
+        std::fs::write(&p, "[features]\nlsit = [\"slope\"]\n").unwrap();
+        let e = RecipeFile::load(&p).unwrap_err().to_string();
+        assert!(e.contains("r.toml") && e.contains("lsit"), "{e}");
+    }
+}

@@ -1,0 +1,273 @@
+//! The stack's JSON sidecar (`stack.json`, format `terrastack-stack/1`) and per-band
+//! statistics.
+//!
+//! The layout is the contract of DESIGN.md ("The stack"): other tools read it, so fields
+//! are only ever added. Statistics are exact (every valid cell, no sampling) and
+//! deterministic: each block keeps its own partial sums, and partials are merged in block
+//! order, never in the order threads finish.
+
+use serde::{Deserialize, Serialize};
+
+use crate::grid::{Crs, Grid};
+
+/// The `format` value of this version of the sidecar.
+pub const STACK_FORMAT: &str = "terrastack-stack/1";
+
+/// `stack.json`.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct StackMetadata {
+    pub format: String,
+    pub grid: GridMetadata,
+    /// Always "NaN": every band stores nodata as NaN.
+    pub nodata: String,
+    pub bands: Vec<BandMetadata>,
+    pub sources: Vec<SourceMetadata>,
+    /// The resolved recipe the stack was built from.
+    pub parameters: serde_json::Value,
+    pub software: SoftwareMetadata,
+}
+
+/// Size, transform (GDAL order) and CRS of the stack.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct GridMetadata {
+    pub width: usize,
+    pub height: usize,
+    pub transform: [f64; 6],
+    pub crs: CrsMetadata,
+}
+
+/// The stack's CRS: EPSG code and WKT, each null when unknown.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct CrsMetadata {
+    pub epsg: Option<u32>,
+    pub wkt: Option<String>,
+}
+
+impl GridMetadata {
+    pub fn from_grid(grid: &Grid) -> GridMetadata {
+        GridMetadata {
+            width: grid.width,
+            height: grid.height,
+            transform: grid.transform,
+            crs: CrsMetadata::from_crs(&grid.crs),
+        }
+    }
+}
+
+impl CrsMetadata {
+    pub fn from_crs(crs: &Crs) -> CrsMetadata {
+        CrsMetadata {
+            epsg: crs.epsg,
+            wkt: crs.wkt.clone(),
+        }
+    }
+}
+
+/// One band of the stack.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct BandMetadata {
+    /// 1-based band number in `stack.tif`.
+    pub index: usize,
+    /// Band name, also the band description in `stack.tif`.
+    pub name: String,
+    /// One of DESIGN.md's feature keys (slope, tpi, ndvi, reflectance, expression, …).
+    pub feature: String,
+    /// Estimator or variant ("horn", "disc", …); null when there is only one.
+    pub method: Option<String>,
+    /// Window radius in metres for windowed features.
+    pub scale_m: Option<f64>,
+    /// Window size in cells (2·radius + 1) on the stack's grid.
+    pub window_px: Option<usize>,
+    /// "degrees", "metres", "1/m" or "unitless".
+    pub units: String,
+    /// "dsm", or the band role(s) of the orthomosaic it comes from.
+    pub source: String,
+    /// ISO 8601 date of the flight (multi-temporal stacks), else null.
+    pub date: Option<String>,
+    pub stats: BandStats,
+    /// Fields for spectral bands and other producers: role, source file, reflectance
+    /// scale and offset, resampling, expression text.
+    #[serde(flatten)]
+    pub extra: serde_json::Map<String, serde_json::Value>,
+}
+
+/// One input file.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct SourceMetadata {
+    /// "dsm", "ortho", or a band role for one-file-per-band inputs.
+    pub role: String,
+    pub path: String,
+    /// Hex SHA-256 of the file's bytes.
+    pub sha256: String,
+}
+
+/// Name and version of the program that wrote the stack.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct SoftwareMetadata {
+    pub name: String,
+    pub version: String,
+}
+
+impl Default for SoftwareMetadata {
+    fn default() -> Self {
+        SoftwareMetadata {
+            name: "terrastack".into(),
+            version: env!("CARGO_PKG_VERSION").into(),
+        }
+    }
+}
+
+/// Statistics of a band's valid (non-NaN) cells. All null when no cell is valid.
+#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+pub struct BandStats {
+    pub min: Option<f64>,
+    pub max: Option<f64>,
+    pub mean: Option<f64>,
+    /// Population standard deviation.
+    pub std: Option<f64>,
+    /// Valid cells / all cells of the grid.
+    pub valid_fraction: f64,
+}
+
+/// Partial statistics of one block: count, min, max, mean and the sum of squared
+/// deviations from the mean (Welford 1962), merged pairwise by Chan, Golub & LeVeque 1979
+/// ("Updating formulae and a pairwise algorithm for computing sample variances").
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct StatsAccumulator {
+    pub count: u64,
+    pub min: f64,
+    pub max: f64,
+    pub mean: f64,
+    pub m2: f64,
+}
+
+impl Default for StatsAccumulator {
+    fn default() -> Self {
+        StatsAccumulator {
+            count: 0,
+            min: f64::INFINITY,
+            max: f64::NEG_INFINITY,
+            mean: 0.0,
+            m2: 0.0,
+        }
+    }
+}
+
+impl StatsAccumulator {
+    /// Statistics of the non-NaN values in `values`.
+    pub fn from_values<'a>(values: impl IntoIterator<Item = &'a f32>) -> StatsAccumulator {
+        let mut acc = StatsAccumulator::default();
+        for &v in values {
+            if v.is_nan() {
+                continue;
+            }
+            let v = v as f64;
+            acc.count += 1;
+            acc.min = acc.min.min(v);
+            acc.max = acc.max.max(v);
+            let delta = v - acc.mean;
+            acc.mean += delta / acc.count as f64;
+            acc.m2 += delta * (v - acc.mean);
+        }
+        acc
+    }
+
+    /// Merge `other` into `self` (Chan et al. 1979). Merging the same partials in the same
+    /// order always gives the same bits.
+    pub fn merge(&mut self, other: &StatsAccumulator) {
+        if other.count == 0 {
+            return;
+        }
+        if self.count == 0 {
+            *self = *other;
+            return;
+        }
+        let n = (self.count + other.count) as f64;
+        let delta = other.mean - self.mean;
+        let (na, nb) = (self.count as f64, other.count as f64);
+        self.mean += delta * nb / n;
+        self.m2 += other.m2 + delta * delta * na * nb / n;
+        self.count += other.count;
+        self.min = self.min.min(other.min);
+        self.max = self.max.max(other.max);
+    }
+
+    /// Final statistics for a grid of `total_cells` cells.
+    pub fn finish(&self, total_cells: u64) -> BandStats {
+        let valid_fraction = if total_cells == 0 {
+            0.0
+        } else {
+            self.count as f64 / total_cells as f64
+        };
+        if self.count == 0 {
+            return BandStats {
+                min: None,
+                max: None,
+                mean: None,
+                std: None,
+                valid_fraction,
+            };
+        }
+        BandStats {
+            min: Some(self.min),
+            max: Some(self.max),
+            mean: Some(self.mean),
+            std: Some((self.m2 / self.count as f64).max(0.0).sqrt()),
+            valid_fraction,
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use approx::assert_relative_eq;
+
+    #[test]
+    fn stats_of_known_values() {
+        // 2, 4, 4, 4, 5, 5, 7, 9: mean 5, population std 2 (textbook example, common practice).
+        let v = [
+            2.0f32,
+            4.0,
+            4.0,
+            4.0,
+            5.0,
+            5.0,
+            7.0,
+            9.0,
+            f32::NAN,
+            f32::NAN,
+        ];
+        let s = StatsAccumulator::from_values(&v).finish(10);
+        assert_eq!(s.min, Some(2.0));
+        assert_eq!(s.max, Some(9.0));
+        assert_relative_eq!(s.mean.unwrap(), 5.0, epsilon = 1e-12);
+        assert_relative_eq!(s.std.unwrap(), 2.0, epsilon = 1e-12);
+        assert_relative_eq!(s.valid_fraction, 0.8);
+    }
+
+    #[test]
+    fn merged_partials_equal_one_pass() {
+        let v: Vec<f32> = (0..1000)
+            .map(|i| ((i * 37) % 101) as f32 * 0.25 + 1000.0)
+            .collect();
+        let whole = StatsAccumulator::from_values(&v).finish(1000);
+        let mut acc = StatsAccumulator::default();
+        for chunk in v.chunks(77) {
+            acc.merge(&StatsAccumulator::from_values(chunk));
+        }
+        let merged = acc.finish(1000);
+        assert_relative_eq!(merged.mean.unwrap(), whole.mean.unwrap(), epsilon = 1e-9);
+        assert_relative_eq!(merged.std.unwrap(), whole.std.unwrap(), epsilon = 1e-9);
+        assert_eq!(merged.min, whole.min);
+    }
+
+    #[test]
+    fn all_nodata_gives_nulls() {
+        let s = StatsAccumulator::from_values(&[f32::NAN; 4]).finish(4);
+        assert_eq!(s.mean, None);
+        assert_eq!(s.valid_fraction, 0.0);
+        let json = serde_json::to_string(&s).unwrap();
+        assert!(json.contains("\"min\":null"));
+    }
+}
