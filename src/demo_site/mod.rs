@@ -310,14 +310,19 @@ fn circle_fits(grid: &Grid, classes: &Array2<u8>, valid: &Array2<bool>, c: &Samp
 /// the circle lies inside every flight's orthomosaic footprint (at its true and at its
 /// shifted position), and no two circles come closer than 0.3 m. Ids count from 1.
 pub fn sample_circles() -> Result<Vec<SampleCircle>> {
+    let dsms: Vec<Array2<f32>> = flights().iter().map(dsm).collect();
+    place_circles(&dsms)
+}
+
+/// [`sample_circles`] given the DSMs of [`flights`], in order.
+fn place_circles(dsms: &[Array2<f32>]) -> Result<Vec<SampleCircle>> {
     let grid = dsm_grid();
     let plans = flights();
     let classes = class_map(&grid, (0.0, 0.0));
     // Valid in every flight: a cell at true position p is read at p + shift in a flight.
     let mut valid = Array2::from_elem((grid.height, grid.width), true);
-    for f in &plans {
+    for (f, d) in plans.iter().zip(dsms) {
         let (sc, sr) = (f.shift_m.0 / DSM_CELL, -f.shift_m.1 / DSM_CELL);
-        let d = dsm(f);
         let dsm_valid = |col: i64, row: i64| {
             col >= 0
                 && row >= 0
@@ -552,6 +557,22 @@ pub fn samples_csv(circles: &[SampleCircle]) -> String {
     text
 }
 
+/// Write a GeoTIFF with one worker thread: the writer places blocks in the file in the
+/// order they finish, so only a single thread gives the same bytes on every run.
+fn write_geotiff_in_order<T: crate::raster::geotiff::TiffSample>(
+    path: &Path,
+    grid: &Grid,
+    bands: &[ndarray::ArrayView2<T>],
+    descriptions: &[&str],
+    options: &WriteOptions,
+) -> Result<()> {
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .map_err(|e| Error::usage(format!("cannot start a worker thread: {e}")).in_file(path))?;
+    pool.install(|| write_geotiff(path, grid, bands, descriptions, options))
+}
+
 /// Write `path` through a temporary sibling renamed into place when complete.
 fn write_atomically(path: &Path, write: impl FnOnce(&Path) -> Result<()>) -> Result<()> {
     let mut tmp = path.as_os_str().to_owned();
@@ -605,13 +626,14 @@ pub fn ortho_write_options() -> WriteOptions {
 pub fn generate(dir: &Path) -> Result<SiteSummary> {
     fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
     let mut written: Vec<PathBuf> = Vec::new();
+    let mut dsms = Vec::new();
     for f in flights() {
         let folder = dir.join(f.date);
         fs::create_dir_all(&folder).map_err(|e| Error::io(&folder, e))?;
         let d = dsm(&f);
         let path = folder.join("dsm.tif");
         write_atomically(&path, |tmp| {
-            write_geotiff(
+            write_geotiff_in_order(
                 tmp,
                 &dsm_grid(),
                 &[d.view()],
@@ -620,11 +642,12 @@ pub fn generate(dir: &Path) -> Result<SiteSummary> {
             )
         })?;
         written.push(PathBuf::from(f.date).join("dsm.tif"));
+        dsms.push(d);
         let o = ortho(&f);
         let bands: Vec<_> = o.outer_iter().collect();
         let path = folder.join("ortho.tif");
         write_atomically(&path, |tmp| {
-            write_geotiff(
+            write_geotiff_in_order(
                 tmp,
                 &ortho_grid(),
                 &bands,
@@ -634,7 +657,7 @@ pub fn generate(dir: &Path) -> Result<SiteSummary> {
         })?;
         written.push(PathBuf::from(f.date).join("ortho.tif"));
     }
-    let circles = sample_circles()?;
+    let circles = place_circles(&dsms)?;
     write_text(&dir.join("samples.csv"), &samples_csv(&circles))?;
     written.push(PathBuf::from("samples.csv"));
     write_text(&dir.join("site.json"), &site_json(circles.len()))?;
