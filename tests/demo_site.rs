@@ -205,9 +205,10 @@ fn recorded_shifts_are_the_shifts_in_the_data() {
         );
         let (_, z) = read_band(&committed().join(f["dsm"].as_str().unwrap()), 1);
         let (ex, ey) = estimate_shift(&zref, &z, &mask, demo_site::DSM_CELL);
-        // Tolerance 3 cm (0.3 cell): the parabola fit's bias on these surfaces.
+        // Tolerance 2 cm (0.2 cell): the parabola fit and the seasonal vegetation change
+        // bias the estimate by up to about 6 mm on these surfaces.
         assert!(
-            (ex - dx).abs() < 0.03 && (ey - dy).abs() < 0.03,
+            (ex - dx).abs() < 0.02 && (ey - dy).abs() < 0.02,
             "{date}: recorded ({dx}, {dy}) m, found ({ex:.3}, {ey:.3}) m"
         );
     }
@@ -279,4 +280,17 @@ fn sample_circles_lie_wholly_in_their_class_on_the_reference_dsm() {
         "{per_class:?}"
     );
     assert_eq!(site["samples"]["count"].as_u64(), Some(n as u64));
+}
+
+#[test]
+fn unwritable_output_is_a_clear_error() {
+    let tmp = tempfile::tempdir().unwrap();
+    let file = tmp.path().join("plain-file");
+    std::fs::write(&file, b"not a folder").unwrap();
+    let target = file.join("site");
+    let err = demo_site::generate(&target).unwrap_err();
+    assert!(err.to_string().contains("plain-file"), "{err}");
+    assert_ne!(err.exit_code(), 0);
+    // The file in the way is left as it was.
+    assert_eq!(std::fs::read(&file).unwrap(), b"not a folder");
 }
