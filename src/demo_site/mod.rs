@@ -167,13 +167,12 @@ pub fn class_map(grid: &Grid, shift_m: (f64, f64)) -> Array2<u8> {
     out
 }
 
-/// Whether photogrammetric matching fails at DSM cell (col, row) of `flight`, whose
+/// Whether photogrammetric matching fails at file position (x, y) of `flight`, whose
 /// content there is of class `class`: patches of the water surface only.
-fn matching_fails(flight: &FlightPlan, col: usize, row: usize, class: CoverClass) -> bool {
+fn matching_fails(flight: &FlightPlan, x: f64, y: f64, class: CoverClass) -> bool {
     if class != CoverClass::OpenWater {
         return false;
     }
-    let (x, y) = dsm_grid().cell_centre(col as f64, row as f64);
     let (u, v) = to_local(x, y);
     fbm(u, v, 2.5, 3, flight.seed ^ 0x4013) > 0.42
 }
@@ -192,7 +191,7 @@ pub fn dsm(flight: &FlightPlan) -> Array2<f32> {
                 let (x, y) = grid.cell_centre(c as f64, r as f64);
                 let (u, v) = to_local(x - flight.shift_m.0, y - flight.shift_m.1);
                 let class = cover::class_at(u, v);
-                if matching_fails(flight, c, r, class) {
+                if matching_fails(flight, x, y, class) {
                     *cell = DSM_NODATA;
                     continue;
                 }
@@ -222,7 +221,12 @@ fn footprint_margin(flight: &FlightPlan, edge: u64, t: f64) -> f64 {
 /// Whether point (x, y) (file coordinates, EPSG:32633) lies inside the valid footprint of
 /// `flight`'s orthomosaic.
 pub fn in_ortho_footprint(flight: &FlightPlan, x: f64, y: f64) -> bool {
-    let (x0, y0, x1, y1) = ortho_grid().bounds();
+    footprint_contains(flight, ortho_grid().bounds(), x, y)
+}
+
+/// [`in_ortho_footprint`] given the orthomosaic grid's bounds (xmin, ymin, xmax, ymax).
+fn footprint_contains(flight: &FlightPlan, bounds: (f64, f64, f64, f64), x: f64, y: f64) -> bool {
+    let (x0, y0, x1, y1) = bounds;
     x - x0 > footprint_margin(flight, 0, y)
         && x1 - x > footprint_margin(flight, 1, y)
         && y - y0 > footprint_margin(flight, 2, x)
@@ -234,6 +238,7 @@ pub fn in_ortho_footprint(flight: &FlightPlan, x: f64, y: f64) -> bool {
 /// footprint.
 pub fn ortho(flight: &FlightPlan) -> Array3<u16> {
     let grid = ortho_grid();
+    let bounds = grid.bounds();
     let mut pix = Array3::<u16>::zeros((grid.height, grid.width, 5));
     pix.axis_iter_mut(Axis(0))
         .into_par_iter()
@@ -241,7 +246,7 @@ pub fn ortho(flight: &FlightPlan) -> Array3<u16> {
         .for_each(|(r, mut row)| {
             for c in 0..grid.width {
                 let (x, y) = grid.cell_centre(c as f64, r as f64);
-                if !in_ortho_footprint(flight, x, y) {
+                if !footprint_contains(flight, bounds, x, y) {
                     continue;
                 }
                 let (u, v) = to_local(x - flight.shift_m.0, y - flight.shift_m.1);

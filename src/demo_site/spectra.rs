@@ -51,8 +51,8 @@ fn texture_strength(class: CoverClass) -> (f64, f64) {
     }
 }
 
-/// The five stored values (reflectance × 10000, at least 1 so that 0 stays nodata) of an
-/// orthomosaic pixel whose centre sees local (u, v) of `class` in `season`. `col`, `row`
+/// The five stored values (reflectance × [`super::REFLECTANCE_SCALE`], at least 1 so that
+/// 0 stays nodata) of an orthomosaic pixel whose centre sees local (u, v) of `class` in `season`. `col`, `row`
 /// and `seed` pick the pixel's own sensor noise.
 pub fn pixel_values(
     class: CoverClass,
@@ -70,7 +70,9 @@ pub fn pixel_values(
     for (b, value) in out.iter_mut().enumerate() {
         let noise = 1.0 + pixel * gaussian_at(col, row, seed.wrapping_add(b as u64 * 0x1F3));
         let r = (base[b] * shade * noise).max(0.0);
-        *value = (r * 10_000.0).round().clamp(1.0, u16::MAX as f64) as u16;
+        *value = (r * super::REFLECTANCE_SCALE)
+            .round()
+            .clamp(1.0, u16::MAX as f64) as u16;
     }
     out
 }
