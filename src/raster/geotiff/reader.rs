@@ -225,7 +225,12 @@ impl GeoTiffReader {
                 codec::compression_name(compression_code)
             ))
         })?;
-        let predictor = ifd.uint(tags::PREDICTOR).map_err(bad)?.unwrap_or(1);
+        // libtiff (and so GDAL) applies a predictor only with LZW, Deflate and ZSTD among
+        // the codecs read here; a Predictor tag beside no compression or PackBits is ignored.
+        let predictor = match codec {
+            Codec::None | Codec::PackBits => 1,
+            _ => ifd.uint(tags::PREDICTOR).map_err(bad)?.unwrap_or(1),
+        };
         let is_float = matches!(sample_type, SampleType::F32 | SampleType::F64);
         match (predictor, is_float) {
             (1, _) | (2, false) | (3, true) => {}
