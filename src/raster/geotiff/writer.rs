@@ -69,9 +69,22 @@ impl Plan {
             )));
         }
         let is_float = matches!(o.sample_type, SampleType::F32 | SampleType::F64);
+        // Predictors go with LZW, Deflate and ZSTD only: libtiff-based readers ignore
+        // them beside no compression or PackBits.
+        let predicting = matches!(
+            o.compression,
+            Compression::Lzw | Compression::Deflate | Compression::Zstd
+        );
         let predictor = match o.predictor {
+            Some(p) if p != 1 && !predicting => {
+                return Err(usage(format!(
+                    "predictor {p} cannot be combined with {:?} compression",
+                    o.compression
+                ))
+                .with_fix("use Deflate, LZW or ZSTD with a predictor, or predictor 1"))
+            }
             Some(p) => p,
-            None if o.compression == Compression::None => 1,
+            None if !predicting => 1,
             None if is_float => 3,
             None => 2,
         };
