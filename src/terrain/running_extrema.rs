@@ -62,14 +62,14 @@ pub fn running_min(
     while k < len {
         let end = (k + l as usize).min(len);
         let mut run = f64::INFINITY;
-        for kk in k..end {
+        for (kk, gv) in g.iter_mut().enumerate().take(end).skip(k) {
             run = run.min(at(e_lo + kk as i64));
-            g[kk] = run;
+            *gv = run;
         }
         let mut run = f64::INFINITY;
-        for kk in (k..end).rev() {
+        for (kk, hv) in h.iter_mut().enumerate().take(end).skip(k).rev() {
             run = run.min(at(e_lo + kk as i64));
-            h[kk] = run;
+            *hv = run;
         }
         k = end;
     }
