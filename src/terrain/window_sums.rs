@@ -427,6 +427,8 @@ impl<'a> WindowSums<'a> {
         let ch = self.channels;
         // Accumulators per column: m, m·ρ, m·ρ², v_k.., v0·ρ, v2, xm, xm·ρ, x2m, xv.
         let nt = 3 + ch + 5 + 4;
+        let squares = self.opt.squares || self.opt.plane;
+        let plane = self.opt.plane;
         let mut acc = vec![0i128; width * nt];
         let mut v = vec![0i128; ch];
         let rows = &self.layout.rows;
@@ -443,19 +445,21 @@ impl<'a> WindowSums<'a> {
                     let a = &mut acc[jj * nt..(jj + 1) * nt];
                     let m = i128::from(s.m);
                     a[0] += sign * m;
-                    a[1] += sign * m * rho;
-                    a[2] += sign * m * rho * rho;
                     for c in 0..ch {
                         a[3 + c] += sign * v[c];
                     }
-                    if ch > 0 {
-                        a[3 + ch] += sign * v[0] * rho;
+                    if squares {
+                        a[4 + ch] += sign * s.v2;
                     }
-                    a[4 + ch] += sign * s.v2;
-                    a[5 + ch] += sign * s.xm;
-                    a[6 + ch] += sign * s.xm * rho;
-                    a[7 + ch] += sign * s.x2m;
-                    a[8 + ch] += sign * s.xv;
+                    if plane {
+                        a[1] += sign * m * rho;
+                        a[2] += sign * m * rho * rho;
+                        a[3 + ch] += sign * v[0] * rho;
+                        a[5 + ch] += sign * s.xm;
+                        a[6 + ch] += sign * s.xm * rho;
+                        a[7 + ch] += sign * s.x2m;
+                        a[8 + ch] += sign * s.xv;
+                    }
                 }
             };
             while i < rows.len() && rows[i].widths[0] == kx {
