@@ -659,6 +659,9 @@ impl<'a> RowSizes<'a> {
     }
 }
 
+/// A pointwise function of partial derivatives (slope, aspect, a curvature, ...).
+type Pointwise = fn(&derivatives::Pqrst) -> f64;
+
 /// Key of a set of first and second derivatives: the estimator and the fit radius.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
 struct DerivKey {
@@ -694,30 +697,29 @@ pub fn compute(
     }
     let sizes = RowSizes::new(cells);
     let zf = params.z_factor;
-    let pointwise_of =
-        |f: &TerrainFeature| -> Option<(SlopeMethod, fn(&derivatives::Pqrst) -> f64)> {
-            let (method, scale) = f.derivative_spec()?;
-            if method == SlopeMethod::Quadratic && scale.is_some() {
-                return None;
-            }
-            let method = if method == SlopeMethod::Quadratic {
-                SlopeMethod::EvansYoung
-            } else {
-                method
-            };
-            let func: fn(&derivatives::Pqrst) -> f64 = match f {
-                TerrainFeature::Slope { .. } => slope::slope_deg,
-                TerrainFeature::Aspect { .. } => slope::aspect_deg,
-                TerrainFeature::Northness { .. } => slope::northness,
-                TerrainFeature::Eastness { .. } => slope::eastness,
-                TerrainFeature::ProfileCurvature { .. } => curvature::profile,
-                TerrainFeature::PlanCurvature { .. } => curvature::plan,
-                TerrainFeature::TangentialCurvature { .. } => curvature::tangential,
-                TerrainFeature::MeanCurvature { .. } => curvature::mean,
-                _ => curvature::gaussian,
-            };
-            Some((method, func))
+    let pointwise_of = |f: &TerrainFeature| -> Option<(SlopeMethod, Pointwise)> {
+        let (method, scale) = f.derivative_spec()?;
+        if method == SlopeMethod::Quadratic && scale.is_some() {
+            return None;
+        }
+        let method = if method == SlopeMethod::Quadratic {
+            SlopeMethod::EvansYoung
+        } else {
+            method
         };
+        let func: fn(&derivatives::Pqrst) -> f64 = match f {
+            TerrainFeature::Slope { .. } => slope::slope_deg,
+            TerrainFeature::Aspect { .. } => slope::aspect_deg,
+            TerrainFeature::Northness { .. } => slope::northness,
+            TerrainFeature::Eastness { .. } => slope::eastness,
+            TerrainFeature::ProfileCurvature { .. } => curvature::profile,
+            TerrainFeature::PlanCurvature { .. } => curvature::plan,
+            TerrainFeature::TangentialCurvature { .. } => curvature::tangential,
+            TerrainFeature::MeanCurvature { .. } => curvature::mean,
+            _ => curvature::gaussian,
+        };
+        Some((method, func))
+    };
     let mut outputs: Vec<Option<Array2<f32>>> = vec![None; features.len()];
 
     // 3x3 features (derivative estimators and TRI) in one fused pass over the block.
