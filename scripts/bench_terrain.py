@@ -129,7 +129,7 @@ def main():
     ap.add_argument("--repeat", type=int, default=1)
     args = ap.parse_args()
     n = args.size
-    nd = n // 4
+    nd = n // 8
 
     if not args.skip_cargo:
         env = dict(os.environ, TERRASTACK_BENCH_SIZE=str(n))
