@@ -136,6 +136,12 @@ impl StackPlan {
             }
         };
         target.nodata = Some(f64::NAN);
+        #[cfg(feature = "gdal")]
+        {
+            // GDAL knows the WKT of EPSG codes: stack.json then carries both.
+            target.crs =
+                raster::gdal::complete_crs(&target.crs).map_err(|e| e.in_file(&recipe.dsm))?;
+        }
         let dsm_on_target = dsm_grid.same_geometry(&target, 0.0);
 
         let mapped: Vec<Role> = spectral_inputs
@@ -206,7 +212,7 @@ impl StackPlan {
                         producer: Producer::Terrain(terrain_features.len()),
                         name: feature.band_name(),
                         feature: feature.feature_key().to_string(),
-                        method: feature.method(),
+                        method: feature.method_with_shape(shape),
                         scale_m: feature.scale_m(),
                         window_px: feature.scale_m().map(|_| 2 * wx.max(wy) + 1),
                         units: feature.units().to_string(),
@@ -415,11 +421,7 @@ fn open_spectral(recipe: &Recipe) -> Result<(Vec<SpectralInput>, Option<AlphaBan
 
 /// Refuse an input that does not overlap the DSM, or lies in another CRS without GDAL.
 fn check_overlap(dsm_path: &Path, dsm: &Grid, path: &Path, grid: &Grid) -> Result<()> {
-    #[cfg(feature = "gdal")]
-    let same = raster::gdal::same_crs(&dsm.crs, &grid.crs);
-    #[cfg(not(feature = "gdal"))]
-    let same = dsm.crs.same_as(&grid.crs);
-    if !same {
+    if !dsm.crs.same_as(&grid.crs) {
         #[cfg(not(feature = "gdal"))]
         return Err(Error::file(
             path,

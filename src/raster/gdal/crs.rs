@@ -100,10 +100,10 @@ pub fn complete_crs(crs: &Crs) -> Result<Crs> {
 
 /// Whether two CRSs are the same, through OSR's `IsSame` (criterion "equivalent except
 /// the axis order of geographic CRSs", data-axis mapping ignored). When either CRS
-/// cannot be built by OSR, falls back to [`Crs::same_as`].
+/// cannot be built by OSR, falls back to [`Crs::same_as_without_gdal`].
 pub fn same_crs(a: &Crs, b: &Crs) -> bool {
     if a.kind == CrsKind::Unknown && a.epsg.is_none() && a.wkt.is_none() {
-        return a.same_as(b);
+        return a.same_as_without_gdal(b);
     }
     match (srs_of(a), srs_of(b)) {
         (Ok(sa), Ok(sb)) => {
@@ -115,7 +115,7 @@ pub fn same_crs(a: &Crs, b: &Crs) -> bool {
             // outlives the call.
             unsafe { gdal_sys::OSRIsSameEx(sa.to_c_hsrs(), sb.to_c_hsrs(), opts.as_ptr()) == 1 }
         }
-        _ => a.same_as(b),
+        _ => a.same_as_without_gdal(b),
     }
 }
 
