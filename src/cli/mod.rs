@@ -6,6 +6,7 @@ use clap::{Parser, Subcommand};
 use terrastack::Result;
 
 mod info;
+mod sample;
 mod verify;
 
 /// Turn drone DSMs and multispectral orthomosaics into a co-registered, documented stack
@@ -23,6 +24,8 @@ enum Command {
     Info(info::Args),
     /// Check every terrain formula against closed-form surfaces; non-zero exit on failure.
     Verify(verify::Args),
+    /// Training tables at labelled points, circles and polygons, with cross-validation folds.
+    Sample(sample::Args),
 }
 
 /// Parse the command line and run the command.
@@ -31,5 +34,6 @@ pub fn run() -> Result<()> {
     match cli.command {
         Command::Info(args) => info::run(args),
         Command::Verify(args) => verify::run(args),
+        Command::Sample(args) => sample::run(args),
     }
 }
