@@ -268,7 +268,7 @@ mod tests {
         for (b, f) in blocks.iter().zip(&folds) {
             assert_eq!(*block_fold.entry(*b).or_insert(*f), *f, "block {b:?} split");
         }
-        let mut per = vec![0usize; 4];
+        let mut per = [0usize; 4];
         block_fold.values().for_each(|&f| per[f] += 1);
         assert!(per.iter().max().unwrap() - per.iter().min().unwrap() <= 1);
         // Independent of the samples' order.
