@@ -1,0 +1,171 @@
+//! `terrastack build`: one flight's DSM (and orthomosaic) → `stack.tif`, `stack.json`,
+//! `preview.png`.
+
+use std::path::PathBuf;
+
+use terrastack::align::Resampling;
+use terrastack::stack::output::parse_memory;
+use terrastack::stack::{self, BuildOptions, BuildReport, Progress, Recipe, RecipeFile, RecipeFlags};
+use terrastack::Result;
+
+#[derive(clap::Args)]
+pub struct Args {
+    /// Digital surface model (float elevations; GeoTIFF, or any GDAL format with the gdal feature).
+    #[arg(long, value_name = "FILE")]
+    pub dsm: Option<PathBuf>,
+    /// Multispectral orthomosaic with several bands (use with --bands).
+    #[arg(long, value_name = "FILE")]
+    pub ortho: Option<PathBuf>,
+    /// Which band of --ortho holds which role, e.g. blue=1,green=2,red=3,rededge=4,nir=5
+    /// (optionally alpha=N for a coverage band).
+    #[arg(long, value_name = "ROLE=N,...")]
+    pub bands: Option<String>,
+    /// One band from its own file: ROLE=FILE or ROLE=FILE:BAND (repeatable).
+    #[arg(long = "band", value_name = "ROLE=FILE[:BAND]")]
+    pub band: Vec<String>,
+    /// Features to build, comma-separated: terrain words, index names, `reflectance`,
+    /// `indices` (`terrastack features` lists them). Default: a terrain set at every
+    /// scale plus reflectance and every index the mapped bands allow.
+    #[arg(long, value_name = "LIST", value_delimiter = ',')]
+    pub features: Option<Vec<String>>,
+    /// Window radii in metres for windowed features, comma-separated (default 1,5).
+    #[arg(long, value_name = "METRES,...", value_delimiter = ',')]
+    pub scales: Option<Vec<f64>>,
+    /// Band math of your own: NAME=EXPRESSION over role names (repeatable).
+    #[arg(long = "index", value_name = "NAME=EXPR")]
+    pub index: Vec<String>,
+    /// Recipe file (TOML); flags given here override it.
+    #[arg(long, value_name = "FILE.toml")]
+    pub recipe: Option<PathBuf>,
+    /// Cell size of the stack in metres (default: the DSM's).
+    #[arg(long, value_name = "M")]
+    pub resolution: Option<f64>,
+    /// Resampling onto the stack's grid.
+    #[arg(long, value_enum, value_name = "KIND")]
+    pub resampling: Option<ResamplingArg>,
+    /// Extent of the stack: the DSM's, or the intersection of all inputs.
+    #[arg(long, value_name = "dsm|intersection")]
+    pub extent: Option<String>,
+    /// Window shape of windowed features.
+    #[arg(long, value_name = "disc|square")]
+    pub window: Option<String>,
+    /// Fraction of a window's cells that must be valid (default 0.75).
+    #[arg(long, value_name = "F")]
+    pub min_valid: Option<f64>,
+    /// Multiplier turning DSM values into metres (e.g. 0.3048 for feet).
+    #[arg(long, value_name = "F")]
+    pub z_factor: Option<f64>,
+    /// Reflectance = stored · scale + offset: one number (1e-4, 1/65535) or ROLE=NUMBER pairs.
+    #[arg(long, value_name = "S")]
+    pub reflectance_scale: Option<String>,
+    /// Reflectance offset, same form as the scale.
+    #[arg(long, value_name = "O", allow_hyphen_values = true)]
+    pub reflectance_offset: Option<String>,
+    /// Treat cells where every orthomosaic band is 0 as outside the flown area.
+    #[arg(long)]
+    pub zero_is_nodata: bool,
+    /// Compression of stack.tif.
+    #[arg(long, value_name = "deflate|zstd")]
+    pub compression: Option<String>,
+    /// Output folder (receives stack.tif, stack.json, preview.png).
+    #[arg(long, value_name = "DIR")]
+    pub out: PathBuf,
+    /// Replace an existing stack in the output folder.
+    #[arg(long)]
+    pub force: bool,
+    /// Worker threads (default: one per core).
+    #[arg(long, value_name = "N")]
+    pub threads: Option<usize>,
+    /// Memory budget for the whole build, e.g. 2G, 512M (default 2G).
+    #[arg(long, value_name = "SIZE", default_value = "2G")]
+    pub memory: String,
+    /// No progress output.
+    #[arg(long, short)]
+    pub quiet: bool,
+}
+
+/// Resampling kinds as typed on the command line.
+#[derive(Clone, Copy, clap::ValueEnum)]
+pub enum ResamplingArg {
+    Nearest,
+    Bilinear,
+    Cubic,
+    Average,
+}
+
+impl From<ResamplingArg> for Resampling {
+    fn from(r: ResamplingArg) -> Resampling {
+        match r {
+            ResamplingArg::Nearest => Resampling::Nearest,
+            ResamplingArg::Bilinear => Resampling::Bilinear,
+            ResamplingArg::Cubic => Resampling::Cubic,
+            ResamplingArg::Average => Resampling::Average,
+        }
+    }
+}
+
+pub fn run(args: Args) -> Result<()> {
+    let recipe_file = args.recipe.as_deref().map(RecipeFile::load).transpose()?;
+    let flags = RecipeFlags {
+        dsm: args.dsm,
+        ortho: args.ortho,
+        bands: args.bands,
+        band_files: args.band,
+        features: args.features,
+        scales_m: args.scales,
+        expressions: args.index,
+        resolution_m: args.resolution,
+        extent: args.extent,
+        resampling: args.resampling.map(Into::into),
+        window: args.window,
+        min_valid_fraction: args.min_valid,
+        z_factor: args.z_factor,
+        reflectance_scale: args.reflectance_scale,
+        reflectance_offset: args.reflectance_offset,
+        zero_is_nodata: args.zero_is_nodata,
+        compression: args.compression,
+    };
+    let recipe = Recipe::resolve(recipe_file.as_ref(), &flags)?;
+    let mut options = BuildOptions::new(args.out);
+    options.force = args.force;
+    options.threads = args.threads;
+    options.memory_bytes = parse_memory(&args.memory)?;
+    options.progress = if args.quiet { Progress::Quiet } else { Progress::Auto };
+    let report = stack::build(recipe, &options)?;
+    if !args.quiet {
+        print_summary(&report);
+    }
+    Ok(())
+}
+
+/// Where the outputs are and a table of bands with their ranges.
+pub fn print_summary(report: &BuildReport) {
+    let m = &report.metadata;
+    println!(
+        "stack: {} ({} x {} cells, {} bands, {} blocks of {} cells, {:.1} s)",
+        report.dir.join("stack.tif").display(),
+        m.grid.width,
+        m.grid.height,
+        m.bands.len(),
+        report.blocks,
+        report.block_size,
+        report.seconds
+    );
+    println!("metadata: {}", report.dir.join("stack.json").display());
+    println!("preview: {}", report.dir.join("preview.png").display());
+    println!();
+    println!("{:>4}  {:<30} {:<10} {:>12} {:>12} {:>12} {:>7}", "band", "name", "units", "min", "mean", "max", "valid");
+    for b in &m.bands {
+        let f = |v: Option<f64>| v.map(|x| format!("{x:.4}")).unwrap_or_else(|| "-".into());
+        println!(
+            "{:>4}  {:<30} {:<10} {:>12} {:>12} {:>12} {:>6.1}%",
+            b.index,
+            b.name,
+            b.units,
+            f(b.stats.min),
+            f(b.stats.mean),
+            f(b.stats.max),
+            b.stats.valid_fraction * 100.0
+        );
+    }
+}

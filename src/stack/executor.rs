@@ -1,0 +1,445 @@
+//! The executor: blocks of the target grid stream through read → resample → kernels →
+//! writer, in parallel, within a memory budget.
+//!
+//! Blocks are squares whose side is a multiple of the output tile, so every tile is
+//! written once, whole, as soon as its block is done. Blocks run in waves of at most
+//! `concurrency` blocks (what the memory budget allows, and no more than the threads), so
+//! peak memory is bounded by the budget, not by the raster. Statistics of each block are
+//! kept apart and merged in block order at the end.
+//!
+//! Determinism: a cell's value depends only on the inputs and its position (the kernels
+//! and resampling promise it), and statistics are merged in a fixed order, so two builds
+//! with different thread counts, memory budgets or block sizes write bit-identical
+//! bands.
+
+use std::fs::File;
+use std::io::{IsTerminal, Read};
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+use indicatif::{ProgressBar, ProgressStyle};
+use ndarray::{s, Array2};
+use rayon::prelude::*;
+use sha2::{Digest, Sha256};
+
+use crate::align::{self, Resampling};
+use crate::error::{Error, Result};
+use crate::grid::{Grid, Window};
+use crate::raster::geotiff::{Compression, GeoTiffWriter, WriteOptions};
+use crate::spectral::{self, BandArrays, MaskOptions};
+use crate::stack::output::OutputDir;
+use crate::stack::plan::{Producer, StackPlan};
+use crate::stack::preview::Preview;
+use crate::stack::recipe::Recipe;
+use crate::stack::sidecar::{
+    BandMetadata, GridMetadata, SoftwareMetadata, SourceMetadata, StackMetadata, StatsAccumulator,
+    STACK_FORMAT,
+};
+use crate::terrain;
+
+/// Memory kept aside from the block budget for readers' caches, the writer and thumbnails.
+const BASE_BYTES: u64 = 96 << 20;
+
+/// How a build reports progress.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Progress {
+    /// A bar on a terminal, a log line per tenth of the work otherwise.
+    Auto,
+    /// Nothing.
+    Quiet,
+}
+
+/// How a build runs (not what it computes: that is the [`Recipe`]).
+#[derive(Clone, Debug)]
+pub struct BuildOptions {
+    pub out: PathBuf,
+    pub force: bool,
+    /// Worker threads; `None` = one per core.
+    pub threads: Option<usize>,
+    /// Memory budget for the whole build in bytes.
+    pub memory_bytes: u64,
+    pub progress: Progress,
+    /// Block side in cells (a multiple of the tile size); `None` chooses from the halo and
+    /// the budget. Results do not depend on it.
+    pub block_size: Option<usize>,
+    /// Build on this grid instead of the one the recipe implies (multi-temporal stacks put
+    /// every flight on one common grid). Its CRS must be the DSM's.
+    pub grid: Option<Grid>,
+    /// ISO 8601 date recorded on every band (`date` in `stack.json`).
+    pub date: Option<String>,
+}
+
+impl BuildOptions {
+    /// Defaults: one thread per core, 2 GiB, progress on.
+    pub fn new(out: impl Into<PathBuf>) -> BuildOptions {
+        BuildOptions {
+            out: out.into(),
+            force: false,
+            threads: None,
+            memory_bytes: 2 << 30,
+            progress: Progress::Auto,
+            block_size: None,
+            grid: None,
+            date: None,
+        }
+    }
+}
+
+/// What a finished build wrote.
+#[derive(Clone, Debug)]
+pub struct BuildReport {
+    pub dir: PathBuf,
+    pub metadata: StackMetadata,
+    pub blocks: usize,
+    pub block_size: usize,
+    pub concurrency: usize,
+    pub seconds: f64,
+}
+
+/// Build the stack described by `recipe` into `options.out`: `stack.tif`, `preview.png`
+/// and `stack.json`. Inputs are checked before anything is written; outputs appear only
+/// when complete.
+pub fn build(recipe: Recipe, options: &BuildOptions) -> Result<BuildReport> {
+    let started = Instant::now();
+    let mut builder = rayon::ThreadPoolBuilder::new();
+    if let Some(n) = options.threads {
+        if n == 0 {
+            return Err(Error::usage("--threads must be at least 1"));
+        }
+        builder = builder.num_threads(n);
+    }
+    let pool = builder
+        .build()
+        .map_err(|e| Error::usage(format!("cannot start the worker threads: {e}")))?;
+    pool.install(|| {
+        let plan = StackPlan::new(recipe, options.grid.as_ref())?;
+        let out = OutputDir::prepare(&options.out, options.force)?;
+        run(plan, out, options, started)
+    })
+}
+
+fn run(plan: StackPlan, mut out: OutputDir, options: &BuildOptions, started: Instant) -> Result<BuildReport> {
+    let threads = rayon::current_num_threads();
+    let tif_path = out.temp_path("stack.tif");
+    let write_options = WriteOptions {
+        compression: if plan.recipe.compression == "zstd" {
+            Compression::Zstd
+        } else {
+            Compression::Deflate
+        },
+        ..WriteOptions::default()
+    };
+    let mut writer = GeoTiffWriter::create(&tif_path, &plan.target, plan.bands.len(), write_options)?;
+    for (i, band) in plan.bands.iter().enumerate() {
+        writer.set_band_description(i + 1, &band.name);
+    }
+    let tile = writer.block_size().0;
+    let (block, concurrency) = choose_blocks(&plan, options, tile, threads)?;
+    let blocks = plan.blocks(block);
+    let preview = Preview::new(
+        plan.target.width,
+        plan.target.height,
+        plan.bands
+            .iter()
+            .map(|b| (b.name.clone(), b.units.clone(), b.ramp))
+            .collect(),
+    );
+    let sources = hash_sources(&plan)?;
+
+    let bar = progress_bar(options.progress, blocks.len());
+    let mut stats: Vec<StatsAccumulator> = vec![StatsAccumulator::default(); plan.bands.len()];
+    let mut done = 0usize;
+    for wave in blocks.chunks(concurrency) {
+        let results: Vec<Result<Vec<StatsAccumulator>>> = wave
+            .par_iter()
+            .map(|w| {
+                let bands = compute_block(&plan, *w)?;
+                let mut block_stats = Vec::with_capacity(bands.len());
+                for (i, data) in bands.iter().enumerate() {
+                    write_tiles(&writer, i + 1, *w, tile, data)?;
+                    preview.record(i, *w, data.view());
+                    block_stats.push(StatsAccumulator::from_values(data.iter()));
+                }
+                Ok(block_stats)
+            })
+            .collect();
+        for r in results {
+            for (acc, part) in stats.iter_mut().zip(r?.iter()) {
+                acc.merge(part);
+            }
+        }
+        done += wave.len();
+        bar.advance(done, blocks.len());
+    }
+    writer.finish()?;
+    bar.finish();
+
+    let total = (plan.target.width * plan.target.height) as u64;
+    let bands: Vec<BandMetadata> = plan
+        .bands
+        .iter()
+        .zip(stats.iter())
+        .enumerate()
+        .map(|(i, (b, acc))| BandMetadata {
+            index: i + 1,
+            name: b.name.clone(),
+            feature: b.feature.clone(),
+            method: b.method.clone(),
+            scale_m: b.scale_m,
+            window_px: b.window_px,
+            units: b.units.clone(),
+            source: b.source.clone(),
+            date: options.date.clone(),
+            stats: acc.finish(total),
+            extra: b.extra.clone(),
+        })
+        .collect();
+    let metadata = StackMetadata {
+        format: STACK_FORMAT.into(),
+        grid: GridMetadata::from_grid(&plan.target),
+        nodata: "NaN".into(),
+        bands,
+        sources,
+        parameters: serde_json::to_value(&plan.recipe).unwrap_or_default(),
+        software: SoftwareMetadata::default(),
+    };
+    let png_path = out.temp_path("preview.png");
+    preview.write_png(&png_path)?;
+    let json_path = out.temp_path("stack.json");
+    let text = serde_json::to_string_pretty(&metadata).expect("stack metadata serialises");
+    std::fs::write(&json_path, text + "\n").map_err(|e| Error::io(&json_path, e))?;
+    let dir = out.dir().to_path_buf();
+    out.commit()?;
+    Ok(BuildReport {
+        dir,
+        metadata,
+        blocks: blocks.len(),
+        block_size: block,
+        concurrency,
+        seconds: started.elapsed().as_secs_f64(),
+    })
+}
+
+/// Block side (a multiple of `tile`) and how many blocks may be in flight at once.
+fn choose_blocks(plan: &StackPlan, options: &BuildOptions, tile: usize, threads: usize) -> Result<(usize, usize)> {
+    let budget = options.memory_bytes.saturating_sub(BASE_BYTES);
+    let round_up = |n: usize| n.div_ceil(tile).max(1) * tile;
+    let mut block = match options.block_size {
+        Some(b) => {
+            if b == 0 || b % tile != 0 {
+                return Err(Error::usage(format!("block size {b} is not a multiple of the {tile}-cell tile")));
+            }
+            b
+        }
+        // Halo overhead at most (1 + 2·halo/block)² ≤ 4 when block ≥ 2·halo; at most 4096.
+        None => round_up(2 * plan.halo).clamp(tile, round_up(4096)),
+    };
+    if options.block_size.is_none() {
+        while block > tile && plan.block_bytes(block) > budget {
+            block -= tile;
+        }
+    }
+    let need = plan.block_bytes(block);
+    if need > budget {
+        return Err(Error::usage(format!(
+            "the memory budget of {} MiB is too small: one {block}x{block} block with a {}-cell halo needs about {} MiB (plus {} MiB for readers and the writer)",
+            options.memory_bytes >> 20,
+            plan.halo,
+            need >> 20,
+            BASE_BYTES >> 20
+        ))
+        .with_fix("raise --memory, or use smaller --scales (the halo grows with the largest window)"));
+    }
+    let concurrency = ((budget / need.max(1)) as usize).clamp(1, threads.max(1));
+    Ok((block, concurrency))
+}
+
+/// Compute every band of the stack over block `w`.
+fn compute_block(plan: &StackPlan, w: Window) -> Result<Vec<Array2<f32>>> {
+    let mut terrain_out: Vec<Option<Array2<f32>>> = Vec::new();
+    if !plan.terrain.is_empty() {
+        let padded = w.grow(plan.halo);
+        let z = if plan.dsm_on_target {
+            plan.dsm.read_window(1, padded)?
+        } else {
+            align::resample_window(plan.dsm.as_ref(), 1, &plan.target, padded, plan.recipe.resampling)?
+        };
+        let cells = plan.target.cell_sizes(padded.row, padded.height)?;
+        terrain_out = terrain::compute(
+            &plan.terrain,
+            z.view(),
+            &cells,
+            plan.halo,
+            plan.reference_z,
+            &plan.terrain_params,
+        )
+        .into_iter()
+        .map(Some)
+        .collect();
+    }
+    let reflectance = if plan.needs_spectral() {
+        Some(read_reflectance(plan, w)?)
+    } else {
+        None
+    };
+    let mut out = Vec::with_capacity(plan.bands.len());
+    for band in &plan.bands {
+        let data = match &band.producer {
+            Producer::Terrain(i) => terrain_out[*i]
+                .take()
+                .expect("each terrain output feeds one band"),
+            Producer::Reflectance(role) => reflectance
+                .as_ref()
+                .and_then(|r| r.get(role))
+                .cloned()
+                .expect("mapped roles are read"),
+            Producer::Index(index) => index.compute(reflectance.as_ref().expect("spectral read"))?,
+            Producer::Expression(expr) => expr.eval(reflectance.as_ref().expect("spectral read"))?,
+        };
+        out.push(data);
+    }
+    Ok(out)
+}
+
+/// Reflectance of every mapped band over block `w`, resampled onto the target grid and
+/// masked (nodata, alpha, zero fill).
+fn read_reflectance(plan: &StackPlan, w: Window) -> Result<BandArrays> {
+    let mut stored = Vec::with_capacity(plan.spectral.len());
+    for input in &plan.spectral {
+        let data = align::resample_window(
+            input.source.as_ref(),
+            input.band.band,
+            &plan.target,
+            w,
+            plan.recipe.resampling,
+        )?;
+        stored.push((&input.band, data));
+    }
+    let alpha = match &plan.alpha {
+        Some((src, band)) => Some(align::resample_window(
+            src.as_ref(),
+            *band,
+            &plan.target,
+            w,
+            Resampling::Nearest,
+        )?),
+        None => None,
+    };
+    spectral::to_reflectance(
+        stored,
+        alpha.as_ref().map(|a| a.view()),
+        MaskOptions {
+            zero_fill: plan.recipe.zero_is_nodata,
+        },
+    )
+}
+
+/// Write the tiles of block `w` of band `band` (1-based).
+fn write_tiles(writer: &GeoTiffWriter, band: usize, w: Window, tile: usize, data: &Array2<f32>) -> Result<()> {
+    let (rows, cols) = data.dim();
+    for r0 in (0..rows).step_by(tile) {
+        for c0 in (0..cols).step_by(tile) {
+            let view = data.slice(s![r0..(r0 + tile).min(rows), c0..(c0 + tile).min(cols)]);
+            let tile_col = (w.col as usize + c0) / tile;
+            let tile_row = (w.row as usize + r0) / tile;
+            writer.write_block(band, tile_col, tile_row, view)?;
+        }
+    }
+    Ok(())
+}
+
+/// SHA-256 of every input file, hashed in parallel.
+fn hash_sources(plan: &StackPlan) -> Result<Vec<SourceMetadata>> {
+    let mut files: Vec<(String, PathBuf)> = vec![("dsm".into(), plan.recipe.dsm.clone())];
+    if let Some(o) = &plan.recipe.ortho {
+        files.push(("ortho".into(), o.clone()));
+    }
+    for input in &plan.spectral {
+        if !files.iter().any(|(_, p)| p == &input.band.path) {
+            files.push((input.band.role.name().to_string(), input.band.path.clone()));
+        }
+    }
+    files
+        .par_iter()
+        .map(|(role, path)| {
+            Ok(SourceMetadata {
+                role: role.clone(),
+                path: path.to_string_lossy().into_owned(),
+                sha256: sha256_file(path)?,
+            })
+        })
+        .collect()
+}
+
+/// Hex SHA-256 of a file's bytes, read in 1 MiB pieces.
+pub fn sha256_file(path: &Path) -> Result<String> {
+    let mut file = File::open(path).map_err(|e| Error::io(path, e))?;
+    let mut hasher = Sha256::new();
+    let mut buf = vec![0u8; 1 << 20];
+    loop {
+        let n = file.read(&mut buf).map_err(|e| Error::io(path, e))?;
+        if n == 0 {
+            break;
+        }
+        hasher.update(&buf[..n]);
+    }
+    Ok(hasher
+        .finalize()
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect())
+}
+
+/// Progress on a terminal (bar with rate and time left) or as log lines.
+enum Reporter {
+    Bar(ProgressBar),
+    Lines { started: Instant, last_tenth: usize },
+    Quiet,
+}
+
+fn progress_bar(mode: Progress, total: usize) -> Reporter {
+    match mode {
+        Progress::Quiet => Reporter::Quiet,
+        Progress::Auto if std::io::stderr().is_terminal() => {
+            let bar = ProgressBar::new(total as u64);
+            bar.set_style(
+                ProgressStyle::with_template(
+                    "{elapsed_precise} [{bar:32}] {pos}/{len} blocks  {per_sec}  {eta} left",
+                )
+                .expect("valid progress template")
+                .progress_chars("=> "),
+            );
+            Reporter::Bar(bar)
+        }
+        Progress::Auto => Reporter::Lines {
+            started: Instant::now(),
+            last_tenth: 0,
+        },
+    }
+}
+
+impl Reporter {
+    fn advance(&mut self, done: usize, total: usize) {
+        match self {
+            Reporter::Bar(bar) => bar.set_position(done as u64),
+            Reporter::Lines { started, last_tenth } => {
+                let tenth = done * 10 / total.max(1);
+                if tenth > *last_tenth {
+                    *last_tenth = tenth;
+                    eprintln!(
+                        "terrastack: {done}/{total} blocks ({}%) after {:.1} s",
+                        done * 100 / total.max(1),
+                        started.elapsed().as_secs_f64()
+                    );
+                }
+            }
+            Reporter::Quiet => {}
+        }
+    }
+
+    fn finish(&self) {
+        if let Reporter::Bar(bar) = self {
+            bar.finish_and_clear();
+        }
+    }
+}

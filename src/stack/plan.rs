@@ -1,0 +1,470 @@
+//! The plan: a resolved recipe turned into open sources, one target grid, the list of
+//! band producers with their metadata, the halo they need and the blocks to compute.
+//!
+//! Everything that can fail on bad input fails here, before any block is computed: a
+//! missing file, a DSM with no CRS, an orthomosaic that does not overlap the DSM, a band
+//! number past a file's band count, an index whose bands are not mapped, an expression
+//! that does not parse.
+
+use std::collections::BTreeSet;
+use std::path::Path;
+use std::sync::Arc;
+
+use crate::align::{self, ExtentRule, Resampling};
+use crate::error::{Error, Result};
+use crate::grid::{CrsKind, Grid, Window};
+use crate::raster::{self, RasterSource};
+use crate::spectral::{self, BandMap, BandSource, Expression, PerBand, Role, SpectralIndex};
+use crate::stack::preview::RampKind;
+use crate::stack::recipe::Recipe;
+use crate::terrain::{self, TerrainFeature, TerrainParams, WindowShape};
+
+/// What computes one band of the stack.
+pub enum Producer {
+    /// Output `i` of `terrain::compute` over the plan's terrain features.
+    Terrain(usize),
+    /// The reflectance of one mapped band.
+    Reflectance(Role),
+    /// A catalogue index.
+    Index(&'static SpectralIndex),
+    /// A user band-math expression.
+    Expression(Expression),
+}
+
+/// One band of the stack: what produces it and how it is described.
+pub struct BandPlan {
+    pub producer: Producer,
+    pub name: String,
+    pub feature: String,
+    pub method: Option<String>,
+    pub scale_m: Option<f64>,
+    pub window_px: Option<usize>,
+    pub units: String,
+    pub source: String,
+    pub ramp: RampKind,
+    /// Spectral details for the sidecar (role, file, scale, offset, resampling, expression).
+    pub extra: serde_json::Map<String, serde_json::Value>,
+}
+
+/// One reflectance band to read: its source file (opened once per file) and scaling.
+pub struct SpectralInput {
+    pub source: Arc<dyn RasterSource>,
+    pub band: BandSource,
+}
+
+/// Everything needed to compute the stack block by block.
+pub struct StackPlan {
+    pub recipe: Recipe,
+    /// The stack's grid (nodata NaN).
+    pub target: Grid,
+    pub dsm: Arc<dyn RasterSource>,
+    /// True when the DSM already lies on the target grid: its blocks are read, not resampled.
+    pub dsm_on_target: bool,
+    pub spectral: Vec<SpectralInput>,
+    /// Alpha (coverage) band of the orthomosaic, 0 = outside the flown area.
+    pub alpha: Option<(Arc<dyn RasterSource>, usize)>,
+    pub terrain: Vec<TerrainFeature>,
+    pub terrain_params: TerrainParams,
+    pub bands: Vec<BandPlan>,
+    /// Cells of context every terrain block needs on each side.
+    pub halo: usize,
+    /// Global elevation offset handed to every terrain block (see `terrain::compute`).
+    pub reference_z: f64,
+}
+
+impl StackPlan {
+    /// Open the recipe's inputs and plan the stack, on `grid` when given (else the grid
+    /// the recipe implies: the DSM's, or its resolution and extent rule).
+    pub fn new(recipe: Recipe, grid: Option<&Grid>) -> Result<StackPlan> {
+        let dsm: Arc<dyn RasterSource> = Arc::from(raster::open(&recipe.dsm)?);
+        let dsm_grid = dsm.grid().clone();
+        if dsm_grid.crs.kind == CrsKind::Unknown {
+            return Err(Error::file(
+                &recipe.dsm,
+                "the DSM has no coordinate reference system, so its cell size in metres is unknown",
+            )
+            .with_fix("export the DSM with its CRS from the photogrammetry software, or assign one (GDAL: -a_srs EPSG:XXXX)"));
+        }
+        dsm_grid.cell_size_m(0.0).map_err(|e| e.in_file(&recipe.dsm))?;
+
+        let (spectral_inputs, alpha) = open_spectral(&recipe)?;
+        let mut other_grids: Vec<Grid> = Vec::new();
+        let mut seen = BTreeSet::new();
+        for input in &spectral_inputs {
+            if seen.insert(input.band.path.clone()) {
+                check_overlap(&recipe.dsm, &dsm_grid, &input.band.path, input.source.grid())?;
+                other_grids.push(input.source.grid().clone());
+            }
+        }
+        let extent = match recipe.extent.as_str() {
+            "intersection" => ExtentRule::Intersection,
+            _ => ExtentRule::Dsm,
+        };
+        let refs: Vec<&Grid> = other_grids.iter().collect();
+        let mut target = match grid {
+            Some(g) => {
+                if !g.crs.same_as(&dsm_grid.crs) {
+                    return Err(Error::file(
+                        &recipe.dsm,
+                        format!("the DSM lies in {} but the common grid in {}", dsm_grid.crs.label(), g.crs.label()),
+                    )
+                    .with_fix("give every flight of a multi-temporal stack the same CRS"));
+                }
+                g.clone()
+            }
+            None => align::target_grid(&dsm_grid, &refs, recipe.resolution_m, extent)
+                .map_err(|e| e.in_file(&recipe.dsm))?,
+        };
+        target.nodata = Some(f64::NAN);
+        let dsm_on_target = dsm_grid.same_geometry(&target, 0.0);
+
+        let mapped: Vec<Role> = spectral_inputs.iter().map(|s| s.band.role.clone()).collect();
+        let shape = if recipe.window == "square" {
+            WindowShape::Square
+        } else {
+            WindowShape::Disc
+        };
+        let terrain_params = TerrainParams {
+            min_valid_fraction: recipe.min_valid_fraction,
+            z_factor: recipe.z_factor,
+            shape,
+        };
+        let (hx, hy) = smallest_cell(&target)?;
+        let mut terrain_features: Vec<TerrainFeature> = Vec::new();
+        let mut bands: Vec<BandPlan> = Vec::new();
+        for word in &recipe.features {
+            let w = word.trim().to_ascii_lowercase();
+            if w == "reflectance" {
+                for input in &spectral_inputs {
+                    bands.push(reflectance_band(input, recipe.resampling));
+                }
+            } else if w == "indices" {
+                for index in spectral::catalogue() {
+                    if index.required_roles().iter().all(|r| mapped.contains(r)) {
+                        bands.push(index_band(index, recipe.resampling));
+                    }
+                }
+            } else if let Ok(index) = spectral::find_index(&w) {
+                if let Some(missing) = index.required_roles().into_iter().find(|r| !mapped.contains(r)) {
+                    return Err(Error::usage(format!(
+                        "index {} needs the `{missing}` band, which is not mapped",
+                        index.name
+                    ))
+                    .with_fix(format!(
+                        "map it with --ortho FILE --bands {missing}=N or --band {missing}=FILE, or drop {}",
+                        index.name
+                    )));
+                }
+                bands.push(index_band(index, recipe.resampling));
+            } else {
+                let expanded = terrain::expand(std::slice::from_ref(&w), &recipe.scales_m).map_err(|e| {
+                    let names: Vec<&str> = spectral::catalogue().iter().map(|i| i.name).collect();
+                    match e {
+                        Error::Usage { problem, fix } => Error::Usage {
+                            problem,
+                            fix: Some(format!(
+                                "{}; spectral words: reflectance, indices, {}",
+                                fix.unwrap_or_default(),
+                                names.join(", ")
+                            )),
+                        },
+                        other => other,
+                    }
+                })?;
+                for feature in expanded {
+                    let (wx, wy) = feature.window_px(hx, hy);
+                    bands.push(BandPlan {
+                        producer: Producer::Terrain(terrain_features.len()),
+                        name: feature.band_name(),
+                        feature: feature.feature_key().to_string(),
+                        method: feature.method(),
+                        scale_m: feature.scale_m(),
+                        window_px: feature.scale_m().map(|_| 2 * wx.max(wy) + 1),
+                        units: feature.units().to_string(),
+                        source: "dsm".into(),
+                        ramp: ramp_for(feature.feature_key()),
+                        extra: serde_json::Map::new(),
+                    });
+                    terrain_features.push(feature);
+                }
+            }
+        }
+        for (name, text) in &recipe.expressions {
+            let expr = Expression::parse(name, text)?;
+            if let Some(missing) = expr.roles().into_iter().find(|r| !mapped.contains(r)) {
+                return Err(Error::usage(format!(
+                    "expression {name} uses the `{missing}` band, which is not mapped"
+                ))
+                .with_fix(format!("map it with --bands {missing}=N or --band {missing}=FILE")));
+            }
+            let mut extra = serde_json::Map::new();
+            extra.insert("expression".into(), text.clone().into());
+            extra.insert("resampling".into(), serde_json::to_value(recipe.resampling).unwrap_or_default());
+            let source = expr.roles().iter().map(|r| r.name().to_string()).collect::<Vec<_>>().join(",");
+            bands.push(BandPlan {
+                producer: Producer::Expression(expr),
+                name: name.clone(),
+                feature: "expression".into(),
+                method: None,
+                scale_m: None,
+                window_px: None,
+                units: "unitless".into(),
+                source,
+                ramp: RampKind::Diverging,
+                extra,
+            });
+        }
+        // Same name twice (e.g. "slope" and "slope:horn"): keep the first.
+        let mut names = BTreeSet::new();
+        bands.retain(|b| names.insert(b.name.clone()));
+        if bands.is_empty() {
+            return Err(Error::usage("the recipe produces no band (no spectral band is mapped for the spectral words)")
+                .with_fix("add terrain features, or map orthomosaic bands with --ortho/--bands"));
+        }
+        let halo = terrain_features
+            .iter()
+            .map(|f| f.halo_px(hx, hy))
+            .max()
+            .unwrap_or(0);
+        let reference_z = reference_elevation(dsm.as_ref())?;
+        Ok(StackPlan {
+            recipe,
+            target,
+            dsm,
+            dsm_on_target,
+            spectral: spectral_inputs,
+            alpha,
+            terrain: terrain_features,
+            terrain_params,
+            bands,
+            halo,
+            reference_z,
+        })
+    }
+
+    /// Whether any band needs orthomosaic reflectance.
+    pub fn needs_spectral(&self) -> bool {
+        self.bands.iter().any(|b| !matches!(b.producer, Producer::Terrain(_)))
+    }
+
+    /// Bytes one block of `block` x `block` cells needs while it is computed: the DSM
+    /// block with its halo and the terrain kernels' working arrays (taken as 96 bytes per
+    /// padded cell per distinct window, the summed-area tables and moments), the spectral
+    /// inputs and every output band.
+    pub fn block_bytes(&self, block: usize) -> u64 {
+        let padded = ((block + 2 * self.halo) as u64).pow(2);
+        let cells = (block as u64).pow(2);
+        let scales: BTreeSet<u64> = self
+            .terrain
+            .iter()
+            .filter_map(|f| f.scale_m().map(|s| s.to_bits()))
+            .collect();
+        let terrain = if self.terrain.is_empty() {
+            0
+        } else {
+            padded * (4 + 48 + 96 * scales.len() as u64)
+        };
+        let spectral = if self.needs_spectral() {
+            cells * 4 * (2 * self.spectral.len() as u64 + 2)
+        } else {
+            0
+        };
+        terrain + spectral + cells * 4 * self.bands.len() as u64 * 2
+    }
+
+    /// Blocks of the target grid, `block` cells square, row by row from the north-west.
+    pub fn blocks(&self, block: usize) -> Vec<Window> {
+        let mut out = Vec::new();
+        for row in (0..self.target.height).step_by(block) {
+            for col in (0..self.target.width).step_by(block) {
+                out.push(Window::new(
+                    col as i64,
+                    row as i64,
+                    block.min(self.target.width - col),
+                    block.min(self.target.height - row),
+                ));
+            }
+        }
+        out
+    }
+}
+
+/// Open the orthomosaic (one file, several roles) and per-band files; check band numbers.
+fn open_spectral(recipe: &Recipe) -> Result<(Vec<SpectralInput>, Option<(Arc<dyn RasterSource>, usize)>)> {
+    let mut inputs = Vec::new();
+    let mut sources: Vec<BandSource> = Vec::new();
+    let mut alpha = None;
+    let mut opened: Vec<(std::path::PathBuf, Arc<dyn RasterSource>)> = Vec::new();
+    let mut open_once = |path: &Path| -> Result<Arc<dyn RasterSource>> {
+        if let Some((_, s)) = opened.iter().find(|(p, _)| p == path) {
+            return Ok(s.clone());
+        }
+        let s: Arc<dyn RasterSource> = Arc::from(raster::open(path)?);
+        opened.push((path.to_path_buf(), s.clone()));
+        Ok(s)
+    };
+    if let (Some(ortho), Some(map_text)) = (&recipe.ortho, &recipe.bands) {
+        let map = BandMap::parse(map_text)?;
+        let src = open_once(ortho)?;
+        for (role, band) in &map.roles {
+            spectral::check_band_exists(ortho, *band, src.band_count(), role)?;
+            sources.push(BandSource {
+                role: role.clone(),
+                path: ortho.clone(),
+                band: *band,
+                scale: 1.0,
+                offset: 0.0,
+            });
+        }
+        if let Some(a) = map.alpha {
+            spectral::check_band_exists(ortho, a, src.band_count(), &Role::Extra("alpha".into()))?;
+            alpha = Some((src.clone(), a));
+        }
+    }
+    for spec in &recipe.band_files {
+        let (role, path, band) = spectral::parse_band_file(spec)?;
+        let role = role.ok_or_else(|| {
+            Error::usage(format!("--band {spec:?} does not name a role")).with_fix("write --band ROLE=FILE[:BAND]")
+        })?;
+        if sources.iter().any(|s| s.role == role) {
+            return Err(Error::usage(format!("role `{role}` is mapped twice")).with_fix("map each role once"));
+        }
+        let src = open_once(&path)?;
+        spectral::check_band_exists(&path, band, src.band_count(), &role)?;
+        sources.push(BandSource {
+            role,
+            path,
+            band,
+            scale: 1.0,
+            offset: 0.0,
+        });
+    }
+    let scale = match &recipe.reflectance_scale {
+        Some(t) => PerBand::parse("--reflectance-scale", t)?,
+        None => PerBand::default(),
+    };
+    let offset = match &recipe.reflectance_offset {
+        Some(t) => PerBand::parse("--reflectance-offset", t)?,
+        None => PerBand::default(),
+    };
+    spectral::apply_scaling(&mut sources, &scale, &offset)?;
+    for band in sources {
+        let source = open_once(&band.path)?;
+        inputs.push(SpectralInput { source, band });
+    }
+    Ok((inputs, alpha))
+}
+
+/// Refuse an input that does not overlap the DSM, or lies in another CRS without GDAL.
+fn check_overlap(dsm_path: &Path, dsm: &Grid, path: &Path, grid: &Grid) -> Result<()> {
+    #[cfg(feature = "gdal")]
+    let same = raster::gdal::same_crs(&dsm.crs, &grid.crs);
+    #[cfg(not(feature = "gdal"))]
+    let same = dsm.crs.same_as(&grid.crs);
+    if !same {
+        #[cfg(not(feature = "gdal"))]
+        return Err(Error::file(
+            path,
+            format!(
+                "lies in {} but the DSM {} lies in {}; this build cannot reproject",
+                grid.crs.label(),
+                dsm_path.display(),
+                dsm.crs.label()
+            ),
+        )
+        .with_fix("reproject it onto the DSM's CRS first, or build terrastack with `--features gdal`"));
+        #[cfg(feature = "gdal")]
+        return Ok(()); // GDAL's warper aligns it; overlap is checked in the target CRS by warping.
+    }
+    let (ax0, ay0, ax1, ay1) = dsm.bounds();
+    let (bx0, by0, bx1, by1) = grid.bounds();
+    if bx0 >= ax1 || bx1 <= ax0 || by0 >= ay1 || by1 <= ay0 {
+        return Err(Error::file(
+            path,
+            format!(
+                "does not overlap the DSM {}: its extent x {bx0:.2}..{bx1:.2}, y {by0:.2}..{by1:.2} \
+                 lies outside the DSM's x {ax0:.2}..{ax1:.2}, y {ay0:.2}..{ay1:.2}",
+                dsm_path.display()
+            ),
+        )
+        .with_fix("check that both files come from the same flight and CRS"));
+    }
+    Ok(())
+}
+
+/// Smallest cell size in metres over the grid's rows (the first and last rows bound it on
+/// geographic grids); windows in cells are sized on it, so no row gets less context.
+fn smallest_cell(grid: &Grid) -> Result<(f64, f64)> {
+    let (ax, ay) = grid.cell_size_m(0.0)?;
+    let (bx, by) = grid.cell_size_m((grid.height - 1) as f64)?;
+    Ok((ax.min(bx), ay.min(by)))
+}
+
+/// A whole-metre elevation near the DSM's data: the median of valid cells in a small
+/// window at the centre, else 0. Every block of the raster gets the same value.
+fn reference_elevation(dsm: &dyn RasterSource) -> Result<f64> {
+    let g = dsm.grid();
+    let w = 64.min(g.width);
+    let h = 64.min(g.height);
+    let win = Window::new(((g.width - w) / 2) as i64, ((g.height - h) / 2) as i64, w, h);
+    let data = dsm.read_window(1, win)?;
+    let mut valid: Vec<f32> = data.iter().copied().filter(|v| v.is_finite()).collect();
+    if valid.is_empty() {
+        return Ok(0.0);
+    }
+    valid.sort_by(|a, b| a.total_cmp(b));
+    Ok((valid[valid.len() / 2] as f64).round())
+}
+
+fn reflectance_band(input: &SpectralInput, resampling: Resampling) -> BandPlan {
+    let role = input.band.role.clone();
+    let mut extra = serde_json::Map::new();
+    extra.insert("role".into(), role.name().into());
+    extra.insert("source_path".into(), input.band.path.to_string_lossy().into_owned().into());
+    extra.insert("source_band".into(), input.band.band.into());
+    extra.insert("reflectance_scale".into(), input.band.scale.into());
+    extra.insert("reflectance_offset".into(), input.band.offset.into());
+    extra.insert("resampling".into(), serde_json::to_value(resampling).unwrap_or_default());
+    BandPlan {
+        name: format!("reflectance_{}", role.name()),
+        producer: Producer::Reflectance(role.clone()),
+        feature: "reflectance".into(),
+        method: None,
+        scale_m: None,
+        window_px: None,
+        units: "unitless".into(),
+        source: role.name().to_string(),
+        ramp: RampKind::Sequential,
+        extra,
+    }
+}
+
+fn index_band(index: &'static SpectralIndex, resampling: Resampling) -> BandPlan {
+    let roles: Vec<String> = index.required_roles().iter().map(|r| r.name().to_string()).collect();
+    let mut extra = serde_json::Map::new();
+    extra.insert("formula".into(), index.formula.into());
+    extra.insert("reference".into(), index.reference.into());
+    extra.insert("resampling".into(), serde_json::to_value(resampling).unwrap_or_default());
+    BandPlan {
+        producer: Producer::Index(index),
+        name: index.name.to_string(),
+        feature: index.name.to_string(),
+        method: None,
+        scale_m: None,
+        window_px: None,
+        units: "unitless".into(),
+        source: roles.join(","),
+        ramp: if index.name == "ndwi" { RampKind::Diverging } else { RampKind::Sequential },
+        extra,
+    }
+}
+
+/// Colour ramp for a terrain feature key.
+fn ramp_for(feature: &str) -> RampKind {
+    match feature {
+        "aspect" => RampKind::Cyclic,
+        "tpi" | "dev" | "northness" | "eastness" | "profile_curvature" | "plan_curvature"
+        | "tangential_curvature" | "mean_curvature" | "gaussian_curvature" => RampKind::Diverging,
+        _ => RampKind::Sequential,
+    }
+}
