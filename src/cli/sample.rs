@@ -5,7 +5,7 @@ use std::path::PathBuf;
 
 use clap::ValueEnum;
 use terrastack::sample::{self, Aggregate, SampleOptions, DEFAULT_FOLDS, DEFAULT_SEED};
-use terrastack::{Error, Result};
+use terrastack::Result;
 
 /// Statistic of one-row-per-sample tables.
 #[derive(Clone, Copy, Debug, ValueEnum)]
@@ -62,14 +62,6 @@ pub struct Args {
 }
 
 pub fn run(args: Args) -> Result<()> {
-    if let Some(b) = args.block_size {
-        if !(b.is_finite() && b > 0.0) {
-            return Err(Error::usage(format!(
-                "--block-size {b} is not a positive number of metres"
-            ))
-            .with_fix("give the block side in metres, e.g. --block-size 50"));
-        }
-    }
     let options = SampleOptions {
         folds: args.folds,
         seed: args.seed,

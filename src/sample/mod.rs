@@ -258,8 +258,8 @@ pub struct SamplePlan {
     pub report: CheckReport,
 }
 
-/// Cells, checks and folds for `samples` (already in the CRS of `grid`).
-pub fn plan(grid: &Grid, samples: &[Sample], options: &SampleOptions) -> Result<SamplePlan> {
+/// Refuse fold counts below 2 and block sizes that are not positive metres.
+pub fn check_options(options: &SampleOptions) -> Result<()> {
     if options.folds < 2 {
         return Err(Error::usage(format!(
             "--folds {} is too few: cross-validation needs at least 2 folds",
@@ -267,6 +267,20 @@ pub fn plan(grid: &Grid, samples: &[Sample], options: &SampleOptions) -> Result<
         ))
         .with_fix("give --folds 2 or more (5 and 10 are usual)"));
     }
+    if let Some(b) = options.block_size_m {
+        if !(b.is_finite() && b > 0.0) {
+            return Err(Error::usage(format!(
+                "--block-size {b} is not a positive number of metres"
+            ))
+            .with_fix("give the block side in metres, e.g. --block-size 50"));
+        }
+    }
+    Ok(())
+}
+
+/// Cells, checks and folds for `samples` (already in the CRS of `grid`).
+pub fn plan(grid: &Grid, samples: &[Sample], options: &SampleOptions) -> Result<SamplePlan> {
+    check_options(options)?;
     let footprints = samples
         .iter()
         .map(|s| cells::shape_cells(grid, &s.shape))
@@ -574,6 +588,7 @@ pub fn run(
     force: bool,
     options: &SampleOptions,
 ) -> Result<SampleSummary> {
+    check_options(options)?;
     let stack = open_stack(stack_dir)?;
     let json = stack.dir.join("stack.json");
     let tif = stack.dir.join("stack.tif");
@@ -593,7 +608,7 @@ pub fn run(
     }
     let grid = stack.source.grid().clone();
     to_stack_crs(&mut file, &grid, options.lonlat)?;
-    let plan = plan(&grid, &file.samples, options).map_err(|e| e.in_file(samples_path))?;
+    let plan = plan(&grid, &file.samples, options)?;
     if options.strict && !plan.report.is_clean() {
         return Err(Error::CheckFailed {
             problem: format!(
