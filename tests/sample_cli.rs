@@ -324,14 +324,15 @@ fn bad_input_is_refused_with_file_and_fix() {
     let o = run(&["--strict"], &samples, &stack);
     assert_eq!(o.status.code(), Some(3), "{}", err(&o));
     assert!(
-        err(&o).contains("fewer samples than the 5 folds"),
+        err(&o).contains("fewer samples inside the stack than the 5 folds"),
         "{}",
         err(&o)
     );
     assert!(!out.exists());
     let o = run(&[], &samples, &stack);
     assert!(o.status.success());
-    assert!(String::from_utf8_lossy(&o.stdout).contains("fewer samples than the 5 folds"));
+    assert!(String::from_utf8_lossy(&o.stdout)
+        .contains("fewer samples inside the stack than the 5 folds"));
 
     // Existing output without --force.
     let o = run(&["--folds", "2"], &samples, &stack);

@@ -18,9 +18,10 @@ pub struct CheckReport {
     /// Pairs of samples of different classes sharing at least one cell:
     /// (id, class, id, class), the earlier sample in the file first.
     pub overlaps: Vec<(String, String, String, String)>,
-    /// Classes with fewer samples than folds: (class, samples).
+    /// Classes with fewer samples inside the stack than folds: (class, samples).
     pub small_classes: Vec<(String, usize)>,
-    /// With spatial blocks: classes present in fewer blocks than folds: (class, blocks).
+    /// With spatial blocks: classes inside the stack in fewer blocks than folds:
+    /// (class, blocks).
     pub thin_block_classes: Vec<(String, usize)>,
     /// The fold count the classes were checked against.
     pub folds: usize,
@@ -81,7 +82,7 @@ impl fmt::Display for CheckReport {
                 .collect();
             writeln!(
                 f,
-                "check: class(es) with fewer samples than the {} folds: {}",
+                "check: class(es) with fewer samples inside the stack than the {} folds: {}",
                 self.folds,
                 list(&c, 20)
             )?;
@@ -153,8 +154,13 @@ pub fn check_samples(
         })
         .collect();
 
+    let inside = |i: usize| !footprints[i].cells.is_empty();
     let mut per_class = vec![0usize; classes.len()];
-    labels.iter().for_each(|&c| per_class[c] += 1);
+    for (i, &c) in labels.iter().enumerate() {
+        if inside(i) {
+            per_class[c] += 1;
+        }
+    }
     let small_classes = classes
         .iter()
         .zip(&per_class)
@@ -166,8 +172,10 @@ pub fn check_samples(
         None => Vec::new(),
         Some(blocks) => {
             let mut seen: BTreeSet<(usize, (i64, i64))> = BTreeSet::new();
-            for (&c, &b) in labels.iter().zip(blocks) {
-                seen.insert((c, b));
+            for (i, (&c, &b)) in labels.iter().zip(blocks).enumerate() {
+                if inside(i) {
+                    seen.insert((c, b));
+                }
             }
             let mut per = vec![0usize; classes.len()];
             seen.iter().for_each(|&(c, _)| per[c] += 1);
@@ -240,21 +248,22 @@ mod tests {
                 ("b".into(), "bog".into(), "c".into(), "fen".into()),
             ]
         );
-        assert_eq!(r.small_classes, vec![("bog".to_string(), 2)]);
+        // bog has 2 samples but only b inside the stack.
+        assert_eq!(r.small_classes, vec![("bog".to_string(), 1)]);
         assert!(!r.is_clean());
         let text = r.to_string();
         assert!(text.contains("outside the stack: e"), "{text}");
         assert!(text.contains("a (fen) / b (bog)"), "{text}");
-        assert!(text.contains("bog (2)"), "{text}");
+        assert!(text.contains("bog (1)"), "{text}");
 
+        // Blocks: fen inside in blocks (0,0) and (1,0); bog inside only in (0,0).
         let blocks = vec![(0, 0), (0, 0), (0, 0), (1, 0), (1, 0)];
         let r = check_samples(&samples, &footprints, &labels, &classes, 2, Some(&blocks));
-        assert!(r.small_classes.is_empty());
-        assert_eq!(r.thin_block_classes, vec![]);
+        assert_eq!(r.thin_block_classes, vec![("bog".to_string(), 1)]);
         let r = check_samples(&samples, &footprints, &labels, &classes, 3, Some(&blocks));
         assert_eq!(
             r.thin_block_classes,
-            vec![("bog".to_string(), 2), ("fen".to_string(), 2)]
+            vec![("bog".to_string(), 1), ("fen".to_string(), 2)]
         );
     }
 

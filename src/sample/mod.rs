@@ -2,9 +2,9 @@
 //! polygons, with cross-validation folds that never split a sample.
 //!
 //! The flow is: read the samples ([`inputs`]) → move them into the stack's CRS → find the
-//! cells each one covers ([`cells`]) → check the set ([`checks`]) → assign folds
-//! ([`folds`]) → read the stack's values, only in the windows the samples touch → write
-//! the table ([`table`]) atomically.
+//! cells each one covers ([`cells`]) → check the set ([`checks`]) → read the stack's
+//! values, only in the windows the samples touch → assign folds ([`folds`]) to the samples
+//! that made rows → write the table ([`table`]) atomically.
 //!
 //! - [`inputs`]: CSV and GeoJSON sample files.
 //! - [`cells`]: cells whose centre lies inside a circle or polygon.
@@ -251,8 +251,6 @@ pub struct SamplePlan {
     pub classes: Vec<String>,
     /// Each sample's class index into `classes`.
     pub labels: Vec<usize>,
-    /// Each sample's fold, 0-based.
-    pub folds: Vec<usize>,
     /// Each sample's spatial block (block folds only).
     pub blocks: Option<Vec<(i64, i64)>>,
     pub report: CheckReport,
@@ -292,23 +290,19 @@ pub fn plan(grid: &Grid, samples: &[Sample], options: &SampleOptions) -> Result<
         .iter()
         .map(|s| classes.binary_search(&s.class).unwrap_or(0))
         .collect();
-    let (folds, blocks) = match options.block_size_m {
-        None => (
-            folds::stratified_folds(&labels, classes.len(), options.folds, options.seed),
-            None,
-        ),
+    let blocks = match options.block_size_m {
+        None => None,
         Some(side) => {
             let layout = folds::BlockLayout::new(grid, side)?;
-            let blocks: Vec<(i64, i64)> = samples
-                .iter()
-                .map(|s| {
-                    let (x, y) = s.shape.anchor();
-                    layout.block_of(grid, x, y)
-                })
-                .collect();
-            let (f, _) =
-                folds::block_folds(&blocks, &labels, classes.len(), options.folds, options.seed);
-            (f, Some(blocks))
+            Some(
+                samples
+                    .iter()
+                    .map(|s| {
+                        let (x, y) = s.shape.anchor();
+                        layout.block_of(grid, x, y)
+                    })
+                    .collect::<Vec<_>>(),
+            )
         }
     };
     let report = checks::check_samples(
@@ -323,10 +317,34 @@ pub fn plan(grid: &Grid, samples: &[Sample], options: &SampleOptions) -> Result<
         footprints,
         classes,
         labels,
-        folds,
         blocks,
         report,
     })
+}
+
+/// Folds (0-based) of the samples that made rows (`has_rows[i]`); `None` for the others
+/// (outside the stack, or only nodata cells), which therefore never unbalance the folds.
+/// Per sample, or per spatial block when the plan has blocks (see [`folds`]).
+pub fn assign_folds(
+    plan: &SamplePlan,
+    has_rows: &[bool],
+    options: &SampleOptions,
+) -> Vec<Option<usize>> {
+    let used: Vec<usize> = (0..has_rows.len()).filter(|&i| has_rows[i]).collect();
+    let labels: Vec<usize> = used.iter().map(|&i| plan.labels[i]).collect();
+    let n_classes = plan.classes.len();
+    let assigned = match &plan.blocks {
+        None => folds::stratified_folds(&labels, n_classes, options.folds, options.seed),
+        Some(blocks) => {
+            let blocks: Vec<(i64, i64)> = used.iter().map(|&i| blocks[i]).collect();
+            folds::block_folds(&blocks, &labels, n_classes, options.folds, options.seed).0
+        }
+    };
+    let mut out = vec![None; has_rows.len()];
+    for (&i, f) in used.iter().zip(assigned) {
+        out[i] = Some(f);
+    }
+    out
 }
 
 /// Values of every sample cell in every band: a vector of `cells × bands` values, cells in
@@ -504,13 +522,13 @@ pub struct SampleSummary {
     pub samples: usize,
     pub classes: Vec<String>,
     pub folds: usize,
-    /// Distinct spatial blocks holding samples (block folds only).
+    /// Distinct spatial blocks holding samples with rows (block folds only).
     pub blocks: Option<usize>,
     /// Ids of samples reaching past the stack's edge (cells outside are not sampled).
     pub clipped: Vec<String>,
     pub counts: SampleCounts,
     pub rows: usize,
-    /// Samples per class (rows of `classes`) and fold (columns).
+    /// Samples with rows per class (rows of `classes`) and fold (columns).
     pub per_fold: Vec<Vec<usize>>,
     pub report: CheckReport,
 }
@@ -626,24 +644,37 @@ pub fn run(
         &plan,
         options,
     )?;
+    let mut has_rows = vec![false; file.samples.len()];
+    for row in &table.rows {
+        has_rows[row.sample] = true;
+    }
+    let folds = assign_folds(&plan, &has_rows, options);
     let ids: Vec<String> = file.samples.iter().map(|s| s.id.clone()).collect();
     let classes: Vec<String> = file.samples.iter().map(|s| s.class.clone()).collect();
-    table::write_atomically(out, |w| table.write_csv(w, &ids, &classes, &plan.folds))?;
+    table::write_atomically(out, |w| table.write_csv(w, &ids, &classes, &folds))?;
     let mut per_fold = vec![vec![0usize; options.folds]; plan.classes.len()];
-    for (&c, &f) in plan.labels.iter().zip(&plan.folds) {
-        per_fold[c][f] += 1;
+    for (&c, f) in plan.labels.iter().zip(&folds) {
+        if let Some(f) = f {
+            per_fold[c][*f] += 1;
+        }
     }
+    let used_blocks = plan.blocks.as_ref().map(|b| {
+        let mut b: Vec<_> = b
+            .iter()
+            .zip(&has_rows)
+            .filter(|(_, &used)| used)
+            .map(|(b, _)| *b)
+            .collect();
+        b.sort_unstable();
+        b.dedup();
+        b.len()
+    });
     Ok(SampleSummary {
         out: out.to_path_buf(),
         samples: file.samples.len(),
         classes: plan.classes.clone(),
         folds: options.folds,
-        blocks: plan.blocks.as_ref().map(|b| {
-            let mut b = b.clone();
-            b.sort_unstable();
-            b.dedup();
-            b.len()
-        }),
+        blocks: used_blocks,
         clipped: file
             .samples
             .iter()
@@ -859,6 +890,49 @@ pub(crate) mod tests {
         assert_eq!(p.report.overlaps.len(), 1);
         assert_eq!(p.report.small_classes.len(), 2);
         assert_eq!(p.classes, vec!["a".to_string(), "b".to_string()]);
+    }
+
+    #[test]
+    fn folds_only_for_samples_with_rows() {
+        let st = MemStack::new(20, 20, 1, &[]);
+        let mut samples = Vec::new();
+        for i in 0..12 {
+            let x = if i % 4 == 3 {
+                0.0
+            } else {
+                600_000.3 + 0.4 * i as f64
+            };
+            samples.push(point(
+                &format!("s{i}"),
+                ["a", "b"][i % 2],
+                x,
+                4_999_999.0,
+                None,
+            ));
+        }
+        let opts = SampleOptions {
+            folds: 3,
+            ..SampleOptions::default()
+        };
+        let p = plan(&st.grid, &samples, &opts).unwrap();
+        let has_rows: Vec<bool> = p.footprints.iter().map(|f| !f.cells.is_empty()).collect();
+        let folds = assign_folds(&p, &has_rows, &opts);
+        for (i, f) in folds.iter().enumerate() {
+            assert_eq!(f.is_some(), i % 4 != 3, "sample {i}");
+        }
+        // 9 samples inside: class a (i = 0, 2, 4, 6, 8, 10) has 6, two per fold;
+        // class b (i = 1, 5, 9) has 3, one per fold.
+        for (class, want) in [(0usize, 2usize), (1, 1)] {
+            let mut per = [0usize; 3];
+            for (i, f) in folds.iter().enumerate() {
+                if let Some(f) = f {
+                    if p.labels[i] == class {
+                        per[*f] += 1;
+                    }
+                }
+            }
+            assert_eq!(per, [want; 3], "class {class}");
+        }
     }
 
     #[test]

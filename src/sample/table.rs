@@ -67,14 +67,14 @@ fn number(v: f64, precision: Precision) -> String {
 }
 
 impl SampleTable {
-    /// Write the table as CSV to `out`. `ids`, `classes` and `folds` (0-based) are indexed
-    /// by [`Row::sample`].
+    /// Write the table as CSV to `out`. `ids`, `classes` and `folds` (0-based; every
+    /// sample with a row has one) are indexed by [`Row::sample`].
     pub fn write_csv(
         &self,
         out: &mut impl Write,
         ids: &[String],
         classes: &[String],
-        folds: &[usize],
+        folds: &[Option<usize>],
     ) -> std::io::Result<()> {
         let mut header = vec![
             "sample_id".to_string(),
@@ -91,7 +91,8 @@ impl SampleTable {
             line.push_str(&field(&ids[row.sample]));
             line.push(',');
             line.push_str(&field(&classes[row.sample]));
-            line.push_str(&format!(",{},{},{}", row.x, row.y, folds[row.sample] + 1));
+            let fold = folds[row.sample].map_or(0, |f| f + 1);
+            line.push_str(&format!(",{},{},{fold}", row.x, row.y));
             for &v in &row.values {
                 line.push(',');
                 line.push_str(&number(v, self.precision));
@@ -186,7 +187,7 @@ mod tests {
             &mut buf,
             &["s1".into(), "s 2 ".into()],
             &["fen".into(), "wet \"meadow\"".into()],
-            &[0, 4],
+            &[Some(0), Some(4)],
         )
         .unwrap();
         let text = String::from_utf8(buf).unwrap();
