@@ -935,6 +935,55 @@ pub(crate) mod tests {
         }
     }
 
+    fn file(declared: Option<u32>) -> SampleFile {
+        SampleFile {
+            path: PathBuf::from("plots.geojson"),
+            samples: vec![point("a", "fen", 13.4, 52.5, None)],
+            declared_epsg: declared,
+        }
+    }
+
+    #[test]
+    fn sample_crs_is_checked_against_the_stack() {
+        let utm = MemStack::new(4, 4, 1, &[]).grid;
+        let e = to_stack_crs(&mut file(Some(32632)), &utm, false)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.starts_with("plots.geojson: the samples are in EPSG:32632, the stack in EPSG:32633"),
+            "{e}"
+        );
+        let e = to_stack_crs(&mut file(Some(4326)), &utm, false)
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("add --lonlat"), "{e}");
+        let e = to_stack_crs(&mut file(Some(32633)), &utm, true)
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("drop --lonlat"), "{e}");
+        let mut f = file(Some(32633));
+        to_stack_crs(&mut f, &utm, false).unwrap();
+        assert_eq!(f, file(Some(32633)));
+        // A stack in EPSG:4326 takes lon/lat as they are, GDAL or not.
+        let geo = Grid::new(
+            4,
+            4,
+            [13.0, 0.1, 0.0, 53.0, 0.0, -0.1],
+            Crs::from_epsg(4326),
+        )
+        .unwrap();
+        let mut f = file(None);
+        to_stack_crs(&mut f, &geo, true).unwrap();
+        assert_eq!(f, file(None));
+        #[cfg(not(feature = "gdal"))]
+        {
+            let e = to_stack_crs(&mut file(None), &utm, true)
+                .unwrap_err()
+                .to_string();
+            assert!(e.contains("--features gdal"), "{e}");
+        }
+    }
+
     #[test]
     fn median_of_even_and_odd_counts() {
         assert_eq!(median(&mut [3.0, 1.0, 2.0]), 2.0);
