@@ -377,6 +377,18 @@ fn bad_input_is_refused_with_file_and_fix() {
     let o = run(&["--force"], &dup, &stack);
     assert!(err(&o).contains("used more than once"), "{}", err(&o));
 
+    // Every sample outside the stack: most likely the wrong CRS.
+    let far = tmp.path().join("far.csv");
+    std::fs::write(&far, "x,y,class\n13.4,52.5,a\n13.5,52.6,b\n").unwrap();
+    let o = run(&["--force"], &far, &stack);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(
+        err(&o).contains("none of the 2 sample(s) lies inside the stack"),
+        "{}",
+        err(&o)
+    );
+    assert!(err(&o).contains("EPSG:32632"), "{}", err(&o));
+
     // Lon/lat without GDAL.
     #[cfg(not(feature = "gdal"))]
     {

@@ -38,7 +38,7 @@ impl CheckReport {
 }
 
 /// Up to `max` items joined with ", ", then "… and N more".
-fn list(items: &[String], max: usize) -> String {
+pub(crate) fn list(items: &[String], max: usize) -> String {
     let mut s = items
         .iter()
         .take(max)

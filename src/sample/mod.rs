@@ -558,14 +558,14 @@ impl fmt::Display for SampleSummary {
             writeln!(
                 f,
                 "samples with only nodata cells (no row): {}",
-                self.counts.samples_without_rows.join(", ")
+                checks::list(&self.counts.samples_without_rows, 20)
             )?;
         }
         if !self.clipped.is_empty() {
             writeln!(
                 f,
                 "samples reaching past the stack's edge: {}",
-                self.clipped.join(", ")
+                checks::list(&self.clipped, 20)
             )?;
         }
         match self.blocks {
@@ -627,6 +627,21 @@ pub fn run(
     let grid = stack.source.grid().clone();
     to_stack_crs(&mut file, &grid, options.lonlat)?;
     let plan = plan(&grid, &file.samples, options)?;
+    if plan.footprints.iter().all(|f| f.cells.is_empty()) {
+        let (x0, y0, x1, y1) = grid.bounds();
+        return Err(Error::file(
+            samples_path,
+            format!(
+                "none of the {} sample(s) lies inside the stack (x {x0} to {x1}, y {y0} to {y1}, {})",
+                file.samples.len(),
+                grid.crs.label()
+            ),
+        )
+        .with_fix(format!(
+            "give the coordinates in {}, or add --lonlat if they are WGS84 longitude/latitude",
+            grid.crs.label()
+        )));
+    }
     if options.strict && !plan.report.is_clean() {
         return Err(Error::CheckFailed {
             problem: format!(
