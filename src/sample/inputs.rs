@@ -19,6 +19,9 @@
 //! is one quote). Without an id column, a sample's id is its data-row number (1-based).
 //! In GeoJSON the id is the feature's `id`, else its `id` property, else its 1-based
 //! position in the file; the radius is the `radius_m` or `radius` property of a point.
+//! With the `gdal` feature, other vector formats (GeoPackage, Shapefile, …) are read
+//! through OGR with the same attribute names, and their layer's CRS is kept so that the
+//! samples can be transformed into the stack's.
 
 use std::path::{Path, PathBuf};
 
@@ -106,48 +109,139 @@ pub struct SampleFile {
     /// EPSG code the file declares for its coordinates (GeoJSON's `crs` member), if any;
     /// 4326 for OGC CRS84.
     pub declared_epsg: Option<u32>,
+    /// The CRS of the file's layer, for formats read through GDAL/OGR (`gdal` feature);
+    /// samples are transformed from it into the stack's CRS.
+    pub layer_crs: Option<crate::grid::Crs>,
 }
 
-/// Read samples from `path`: `.csv` as CSV, `.geojson`/`.json` as GeoJSON. Other
-/// extensions are refused with a fix naming the accepted formats. `class_field` names the
-/// CSV column or GeoJSON property holding the class (default: `class`, and in CSV also
-/// `label`).
+/// Read samples from `path`: `.csv` as CSV, `.geojson`/`.json` as GeoJSON (both pure
+/// Rust); with the `gdal` feature any other vector format GDAL reads (GeoPackage,
+/// Shapefile, …), taking the class, id and radius from attributes named as in GeoJSON.
+/// Without the feature other extensions are refused with a fix. `class_field` names the
+/// CSV column or property holding the class (default: `class`, and in CSV also `label`).
 pub fn read_samples(path: &Path, class_field: Option<&str>) -> Result<SampleFile> {
     let ext = path
         .extension()
         .and_then(|e| e.to_str())
         .map(|e| e.to_ascii_lowercase())
         .unwrap_or_default();
+    if !matches!(ext.as_str(), "csv" | "txt" | "geojson" | "json") {
+        return read_other(path, &ext, class_field);
+    }
     let text = std::fs::read(path).map_err(|e| Error::io(path, e))?;
     let text = String::from_utf8(text).map_err(|_| {
         Error::file(path, "the file is not UTF-8 text")
             .with_fix("save the samples as UTF-8 CSV or GeoJSON")
     })?;
     let text = text.strip_prefix('\u{feff}').unwrap_or(&text);
-    match ext.as_str() {
-        "csv" | "txt" => Ok(SampleFile {
-            path: path.to_path_buf(),
-            samples: parse_csv(text, class_field).map_err(|e| e.in_file(path))?,
-            declared_epsg: None,
-        }),
-        "geojson" | "json" => {
-            let (samples, declared_epsg) =
-                parse_geojson(text, class_field.unwrap_or("class")).map_err(|e| e.in_file(path))?;
-            Ok(SampleFile {
-                path: path.to_path_buf(),
-                samples,
-                declared_epsg,
-            })
-        }
-        _ => Err(Error::file(
-            path,
-            format!("sample files must be CSV (.csv) or GeoJSON (.geojson, .json), not '.{ext}'"),
+    let (samples, declared_epsg) = if ext == "csv" || ext == "txt" {
+        (
+            parse_csv(text, class_field).map_err(|e| e.in_file(path))?,
+            None,
         )
-        .with_fix(
-            "export the samples as CSV with x, y, class columns or as GeoJSON; other vector \
-             formats can be converted with GDAL's ogr2ogr",
-        )),
+    } else {
+        parse_geojson(text, class_field.unwrap_or("class")).map_err(|e| e.in_file(path))?
+    };
+    Ok(SampleFile {
+        path: path.to_path_buf(),
+        samples,
+        declared_epsg,
+        layer_crs: None,
+    })
+}
+
+/// A vector file of another format: refused without GDAL.
+#[cfg(not(feature = "gdal"))]
+fn read_other(path: &Path, ext: &str, _class_field: Option<&str>) -> Result<SampleFile> {
+    Err(Error::file(
+        path,
+        format!(
+            "this build reads samples from CSV (.csv) and GeoJSON (.geojson, .json), not '.{ext}'"
+        ),
+    )
+    .with_fix(
+        "export the samples as CSV with x, y, class columns or as GeoJSON, or build terrastack \
+         with `--features gdal` to read every vector format GDAL reads",
+    ))
+}
+
+/// A vector file of another format, through GDAL/OGR.
+#[cfg(feature = "gdal")]
+fn read_other(path: &Path, _ext: &str, class_field: Option<&str>) -> Result<SampleFile> {
+    use crate::raster::gdal::{read_vector, Geometry};
+    let class_field = class_field.unwrap_or("class");
+    let features = read_vector(path)?;
+    let mut layer_crs = None;
+    let mut samples = Vec::with_capacity(features.len());
+    let open = |ring: &Vec<(f64, f64)>| {
+        let mut r: Vec<[f64; 2]> = ring.iter().map(|&(x, y)| [x, y]).collect();
+        if r.len() > 1 && r.first() == r.last() {
+            r.pop();
+        }
+        r
+    };
+    for (n, f) in features.iter().enumerate() {
+        if layer_crs.is_none() {
+            layer_crs.clone_from(&f.crs);
+        }
+        let attr = |name: &str| {
+            f.attributes
+                .iter()
+                .find(|(k, _)| k == name)
+                .or_else(|| {
+                    f.attributes
+                        .iter()
+                        .find(|(k, _)| k.eq_ignore_ascii_case(name))
+                })
+                .map(|(_, v)| v.trim().to_string())
+                .filter(|v| !v.is_empty())
+        };
+        let id = attr("id").unwrap_or_else(|| (n + 1).to_string());
+        let what = format!("feature {} (id {id})", n + 1);
+        let class = attr(class_field).ok_or_else(|| {
+            Error::file(path, format!("{what}: no '{class_field}' attribute"))
+                .with_fix(format!(
+                    "give every feature a '{class_field}' attribute, or name the class attribute with --class-field"
+                ))
+        })?;
+        let shape = match &f.geometry {
+            Geometry::Point(x, y) => {
+                let radius_m =
+                    match attr("radius_m").or_else(|| attr("radius")) {
+                        None => None,
+                        Some(t) => match t.parse::<f64>() {
+                            Ok(r) if r > 0.0 && r.is_finite() => Some(r),
+                            _ => return Err(Error::file(
+                                path,
+                                format!("{what}: radius '{t}' is not a positive number"),
+                            )
+                            .with_fix(
+                                "give radius_m as a number of metres above 0, or leave it empty",
+                            )),
+                        },
+                    };
+                Shape::Point {
+                    x: *x,
+                    y: *y,
+                    radius_m,
+                }
+            }
+            Geometry::Polygon(rings) => Shape::Polygons(vec![rings.iter().map(open).collect()]),
+            Geometry::MultiPolygon(polys) => Shape::Polygons(
+                polys
+                    .iter()
+                    .map(|rings| rings.iter().map(open).collect())
+                    .collect(),
+            ),
+        };
+        samples.push(Sample { id, class, shape });
     }
+    Ok(SampleFile {
+        path: path.to_path_buf(),
+        samples,
+        declared_epsg: None,
+        layer_crs,
+    })
 }
 
 /// Split CSV text into records of fields (RFC 4180 quoting), with the 1-based line number
@@ -569,6 +663,19 @@ mod tests {
             }
             other => panic!("expected polygons, got {other:?}"),
         }
+    }
+
+    #[cfg(not(feature = "gdal"))]
+    #[test]
+    fn other_formats_need_gdal() {
+        let e = read_samples(Path::new("plots.gpkg"), None)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.starts_with("plots.gpkg: this build reads samples from CSV"),
+            "{e}"
+        );
+        assert!(e.contains("--features gdal"), "{e}");
     }
 
     #[test]

@@ -178,12 +178,16 @@ pub fn open_stack(dir: &Path) -> Result<Stack> {
     })
 }
 
-/// Move the samples of `file` into the CRS of `grid`: check a CRS the file declares, and
-/// transform WGS84 lon/lat when `lonlat` (through GDAL; without the `gdal` feature only
-/// when the stack itself is in EPSG:4326).
+/// Move the samples of `file` into the CRS of `grid`. A CRS the file declares by EPSG
+/// code (GeoJSON's `crs` member) must be the stack's; WGS84 lon/lat (`lonlat`) and the
+/// layer CRS of files read through OGR are transformed through GDAL. Without the `gdal`
+/// feature, lon/lat is accepted only when the stack itself is in EPSG:4326.
 pub fn to_stack_crs(file: &mut SampleFile, grid: &Grid, lonlat: bool) -> Result<()> {
     let stack_crs = grid.crs.label();
-    if let Some(declared) = file.declared_epsg {
+    let declared = file
+        .declared_epsg
+        .or(file.layer_crs.as_ref().and_then(|c| c.epsg));
+    if let Some(declared) = declared {
         if lonlat && declared != 4326 {
             return Err(Error::file(
                 &file.path,
@@ -191,7 +195,7 @@ pub fn to_stack_crs(file: &mut SampleFile, grid: &Grid, lonlat: bool) -> Result<
             )
             .with_fix("drop --lonlat, or reproject the samples to EPSG:4326"));
         }
-        if !lonlat && grid.crs.epsg.is_some_and(|e| e != declared) {
+        if !lonlat && file.layer_crs.is_none() && grid.crs.epsg.is_some_and(|e| e != declared) {
             let hint = if declared == 4326 {
                 "add --lonlat to transform WGS84 lon/lat into the stack's CRS".to_string()
             } else {
@@ -204,42 +208,58 @@ pub fn to_stack_crs(file: &mut SampleFile, grid: &Grid, lonlat: bool) -> Result<
             .with_fix(hint));
         }
     }
-    if !lonlat || grid.crs.epsg == Some(4326) {
+    let from = if lonlat {
+        crate::grid::Crs::from_epsg(4326)
+    } else {
+        match file.layer_crs.clone() {
+            Some(crs) => crs,
+            None => return Ok(()),
+        }
+    };
+    if from.epsg.is_some() && from.epsg == grid.crs.epsg {
         return Ok(());
     }
-    #[cfg(feature = "gdal")]
-    {
-        let mut points: Vec<(f64, f64)> = Vec::new();
-        for s in &mut file.samples {
-            s.shape.for_each_position(|x, y| points.push((*x, *y)));
-        }
-        crate::raster::gdal::transform_points(
-            &crate::grid::Crs::from_epsg(4326),
-            &grid.crs,
-            &mut points,
-        )
+    transform_samples(file, &from, grid)
+}
+
+/// Transform every sample position of `file` from `from` into the CRS of `grid`.
+#[cfg(feature = "gdal")]
+fn transform_samples(file: &mut SampleFile, from: &crate::grid::Crs, grid: &Grid) -> Result<()> {
+    if crate::raster::gdal::same_crs(from, &grid.crs) {
+        return Ok(());
+    }
+    let mut points: Vec<(f64, f64)> = Vec::new();
+    for s in &mut file.samples {
+        s.shape.for_each_position(|x, y| points.push((*x, *y)));
+    }
+    crate::raster::gdal::transform_points(from, &grid.crs, &mut points)
         .map_err(|e| e.in_file(&file.path))?;
-        let mut it = points.into_iter();
-        for s in &mut file.samples {
-            s.shape.for_each_position(|x, y| {
-                if let Some((px, py)) = it.next() {
-                    *x = px;
-                    *y = py;
-                }
-            });
-        }
-        Ok(())
+    let mut it = points.into_iter();
+    for s in &mut file.samples {
+        s.shape.for_each_position(|x, y| {
+            if let Some((px, py)) = it.next() {
+                *x = px;
+                *y = py;
+            }
+        });
     }
-    #[cfg(not(feature = "gdal"))]
-    {
-        Err(Error::file(
-            &file.path,
-            format!("lon/lat samples must be transformed into the stack's CRS ({stack_crs}), which needs GDAL"),
-        )
-        .with_fix(format!(
-            "build terrastack with `--features gdal`, or give the coordinates in {stack_crs} and drop --lonlat"
-        )))
-    }
+    Ok(())
+}
+
+/// Without GDAL no transformation is possible.
+#[cfg(not(feature = "gdal"))]
+fn transform_samples(file: &mut SampleFile, from: &crate::grid::Crs, grid: &Grid) -> Result<()> {
+    let stack_crs = grid.crs.label();
+    Err(Error::file(
+        &file.path,
+        format!(
+            "samples in {} must be transformed into the stack's CRS ({stack_crs}), which needs GDAL",
+            from.label()
+        ),
+    )
+    .with_fix(format!(
+        "build terrastack with `--features gdal`, or give the coordinates in {stack_crs} and drop --lonlat"
+    )))
 }
 
 /// Everything decided before a pixel is read.
@@ -955,6 +975,7 @@ pub(crate) mod tests {
             path: PathBuf::from("plots.geojson"),
             samples: vec![point("a", "fen", 13.4, 52.5, None)],
             declared_epsg: declared,
+            layer_crs: None,
         }
     }
 
