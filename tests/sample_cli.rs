@@ -39,9 +39,13 @@ fn grid() -> Grid {
 
 /// Write a stack folder (tiled 64 x 64 so samples cross tiles) and return its path.
 fn make_stack(root: &Path) -> PathBuf {
+    make_stack_on(root, &grid())
+}
+
+/// The same on another grid of W x H cells.
+fn make_stack_on(root: &Path, g: &Grid) -> PathBuf {
     let dir = root.join("stack");
     std::fs::create_dir_all(&dir).unwrap();
-    let g = grid();
     let bands: Vec<Array2<f32>> = (1..=3)
         .map(|b| Array2::from_shape_fn((H, W), |(r, c)| value(b, r, c)))
         .collect();
@@ -50,10 +54,10 @@ fn make_stack(root: &Path) -> PathBuf {
         layout: Layout::Tiled { size: 64 },
         ..WriteOptions::default()
     };
-    write_geotiff(&dir.join("stack.tif"), &g, &views, &NAMES, &options).unwrap();
+    write_geotiff(&dir.join("stack.tif"), g, &views, &NAMES, &options).unwrap();
     let meta = StackMetadata {
         format: STACK_FORMAT.into(),
-        grid: GridMetadata::from_grid(&g),
+        grid: GridMetadata::from_grid(g),
         nodata: "NaN".into(),
         bands: NAMES
             .iter()
@@ -399,4 +403,81 @@ fn bad_input_is_refused_with_file_and_fix() {
 
     // None of this panicked.
     assert!(!err(&o).contains("panicked"));
+}
+
+/// Lon/lat input through GDAL: on the central meridian of UTM zone 32 (9°E) at the
+/// equator, easting is 500 000 m and northing 0 m exactly (definition of the UTM false
+/// easting and of the equator's northing).
+#[cfg(feature = "gdal")]
+#[test]
+fn lonlat_and_ogr_layers_are_transformed_into_the_stack_crs() {
+    let tmp = tempfile::tempdir().unwrap();
+    // Cell (40, 40) has its north-west corner at (500000, 0).
+    let g = Grid::new(
+        W,
+        H,
+        [499_990.0, 0.25, 0.0, 10.0, 0.0, -0.25],
+        Crs::from_epsg(32632),
+    )
+    .unwrap();
+    let stack = make_stack_on(tmp.path(), &g);
+    let csv = tmp.path().join("ll.csv");
+    // 1e-7 degrees (about 1 cm) inside cell (40, 40).
+    std::fs::write(&csv, "lon,lat,class\n9.0000001,-0.0000001,a\n").unwrap();
+    let out = tmp.path().join("ll_out.csv");
+    let o = terrastack(
+        &[
+            "sample",
+            "--stack",
+            s(&stack),
+            "--samples",
+            s(&csv),
+            "--out",
+            s(&out),
+            "--folds",
+            "2",
+            "--lonlat",
+        ],
+        "2",
+    );
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let (_, rows) = read_table(&out);
+    assert_eq!(rows.len(), 1);
+    assert_eq!(
+        (rows[0][2].as_str(), rows[0][3].as_str()),
+        ("500000.125", "-0.125")
+    );
+    assert_eq!(
+        rows[0][5].parse::<f32>().unwrap().to_bits(),
+        value(1, 40, 40).to_bits()
+    );
+
+    // A GeoJSON text sequence read through OGR: WGS84 by definition (RFC 8142/7946); a
+    // 0.3 m circle around (500000, 0) holds the 4 cell centres at (±0.125, ±0.125) m,
+    // 0.177 m away; the next ones are 0.395 m away (closed form).
+    let seq = tmp.path().join("plots.geojsons");
+    std::fs::write(
+        &seq,
+        "\u{1e}{\"type\":\"Feature\",\"properties\":{\"class\":\"a\",\"radius_m\":0.3,\"id\":\"c1\"},\"geometry\":{\"type\":\"Point\",\"coordinates\":[9.0,0.0]}}\n",
+    )
+    .unwrap();
+    let out = tmp.path().join("seq_out.csv");
+    let o = terrastack(
+        &[
+            "sample",
+            "--stack",
+            s(&stack),
+            "--samples",
+            s(&seq),
+            "--out",
+            s(&out),
+            "--folds",
+            "2",
+        ],
+        "2",
+    );
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let (_, rows) = read_table(&out);
+    assert_eq!(rows.len(), 4, "{rows:?}");
+    assert!(rows.iter().all(|r| r[0] == "c1"));
 }
