@@ -22,7 +22,8 @@ pub struct Args {
     #[arg(long, value_name = "DIR")]
     pub stack: PathBuf,
     /// Labelled samples: CSV (x, y, class, optional radius_m and id columns) or GeoJSON
-    /// (points with an optional radius_m property, polygons, multipolygons).
+    /// (points with an optional radius_m property, polygons, multipolygons); with the
+    /// `gdal` feature also any vector format GDAL reads.
     #[arg(long, value_name = "FILE")]
     pub samples: PathBuf,
     /// Training table to write (CSV).
