@@ -87,13 +87,13 @@ with open(f"{work}/plots.geojson", "w") as f:
 EOF
 
 ts() { "$TERRASTACK" sample --stack "$WORK/stack" "$@"; }
-ts --samples "$WORK/points.csv" --out "$WORK/points.csv.out" --folds 4 --keep-nodata > "$WORK/points.log"
+ts --samples "$WORK/points.csv" --out "$WORK/points_table.csv" --folds 4 --keep-nodata > "$WORK/points.log"
 ts --samples "$WORK/points.csv" --out "$WORK/points_again.csv" --folds 4 --keep-nodata > /dev/null
 ts --samples "$WORK/points.csv" --out "$WORK/points_seed.csv" --folds 4 --keep-nodata --seed 7 > /dev/null
 ts --samples "$WORK/points.csv" --out "$WORK/points_blocks.csv" --folds 3 --block-size 25 > /dev/null
 ts --samples "$WORK/plots.geojson" --class-field cover --out "$WORK/plots.csv" --folds 3 --keep-nodata > /dev/null
 ts --samples "$WORK/plots.geojson" --class-field cover --out "$WORK/plots_mean.csv" --folds 3 --aggregate mean > /dev/null
-cmp "$WORK/points.csv.out" "$WORK/points_again.csv"
+cmp "$WORK/points_table.csv" "$WORK/points_again.csv"
 cat "$WORK/points.log"
 
 WORK="$WORK" python3 - <<'EOF'
@@ -139,7 +139,7 @@ def cells_of(rows):
     return out
 
 # 1. Points and circles.
-pts = table("points.csv.out")
+pts = table("points_table.csv")
 n = check_values(pts)
 got = cells_of(pts)
 with open(f"{work}/points.csv") as f:
@@ -186,14 +186,14 @@ def fold_map(rows):
         assert f.setdefault(r["sample_id"], r["fold"]) == r["fold"], ("sample split", r)
     return f
 
-for name, k in [("points.csv.out", 4), ("plots.csv", 3)]:
+for name, k in [("points_table.csv", 4), ("plots.csv", 3)]:
     rows = table(name)
     folds = fold_map(rows)
     cls = {r["sample_id"]: r["class"] for r in rows}
     for c in set(cls.values()):
         counts = np.bincount([int(folds[s]) - 1 for s in folds if cls[s] == c], minlength=k)
         assert counts.max() - counts.min() <= 1, (name, c, counts)
-seed_a = fold_map(table("points.csv.out"))
+seed_a = fold_map(table("points_table.csv"))
 seed_b = fold_map(table("points_seed.csv"))
 assert seed_a != seed_b, "another seed gives other folds"
 
@@ -208,6 +208,6 @@ for s in samples:
 print(f"folds: samples whole, classes stratified, {len(by_block)} blocks whole, seed changes folds")
 EOF
 
-python3 scripts/sample_forest.py "$WORK/points.csv.out"
+python3 scripts/sample_forest.py "$WORK/points_table.csv"
 python3 scripts/sample_forest.py "$WORK/plots_mean.csv"
 echo "sample cross-check passed"
