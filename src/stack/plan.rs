@@ -52,6 +52,9 @@ pub struct SpectralInput {
     pub band: BandSource,
 }
 
+/// An orthomosaic's alpha (coverage) band: its source and 1-based band number.
+pub type AlphaBand = (Arc<dyn RasterSource>, usize);
+
 /// Everything needed to compute the stack block by block.
 pub struct StackPlan {
     pub recipe: Recipe,
@@ -62,7 +65,7 @@ pub struct StackPlan {
     pub dsm_on_target: bool,
     pub spectral: Vec<SpectralInput>,
     /// Alpha (coverage) band of the orthomosaic, 0 = outside the flown area.
-    pub alpha: Option<(Arc<dyn RasterSource>, usize)>,
+    pub alpha: Option<AlphaBand>,
     pub terrain: Vec<TerrainFeature>,
     pub terrain_params: TerrainParams,
     pub bands: Vec<BandPlan>,
@@ -90,24 +93,22 @@ impl StackPlan {
             .map_err(|e| e.in_file(&recipe.dsm))?;
 
         let (spectral_inputs, alpha) = open_spectral(&recipe)?;
-        let mut other_grids: Vec<Grid> = Vec::new();
-        let mut seen = BTreeSet::new();
+        let mut others: Vec<(std::path::PathBuf, Grid)> = Vec::new();
         for input in &spectral_inputs {
-            if seen.insert(input.band.path.clone()) {
+            if !others.iter().any(|(p, _)| p == &input.band.path) {
                 check_overlap(
                     &recipe.dsm,
                     &dsm_grid,
                     &input.band.path,
                     input.source.grid(),
                 )?;
-                other_grids.push(input.source.grid().clone());
+                others.push((input.band.path.clone(), input.source.grid().clone()));
             }
         }
         let extent = match recipe.extent.as_str() {
             "intersection" => ExtentRule::Intersection,
             _ => ExtentRule::Dsm,
         };
-        let refs: Vec<&Grid> = other_grids.iter().collect();
         let mut target = match grid {
             Some(g) => {
                 if !g.crs.same_as(&dsm_grid.crs) {
@@ -123,8 +124,16 @@ impl StackPlan {
                 }
                 g.clone()
             }
-            None => align::target_grid(&dsm_grid, &refs, recipe.resolution_m, extent)
-                .map_err(|e| e.in_file(&recipe.dsm))?,
+            None => {
+                let named: Vec<(&Path, &Grid)> =
+                    others.iter().map(|(p, g)| (p.as_path(), g)).collect();
+                align::target_grid_named(
+                    (&recipe.dsm, &dsm_grid),
+                    &named,
+                    recipe.resolution_m,
+                    extent,
+                )?
+            }
         };
         target.nodata = Some(f64::NAN);
         let dsm_on_target = dsm_grid.same_geometry(&target, 0.0);
@@ -324,9 +333,7 @@ impl StackPlan {
 }
 
 /// Open the orthomosaic (one file, several roles) and per-band files; check band numbers.
-fn open_spectral(
-    recipe: &Recipe,
-) -> Result<(Vec<SpectralInput>, Option<(Arc<dyn RasterSource>, usize)>)> {
+fn open_spectral(recipe: &Recipe) -> Result<(Vec<SpectralInput>, Option<AlphaBand>)> {
     let mut inputs = Vec::new();
     let mut sources: Vec<BandSource> = Vec::new();
     let mut alpha = None;
@@ -359,10 +366,23 @@ fn open_spectral(
     }
     for spec in &recipe.band_files {
         let (role, path, band) = spectral::parse_band_file(spec)?;
-        let role = role.ok_or_else(|| {
-            Error::usage(format!("--band {spec:?} does not name a role"))
-                .with_fix("write --band ROLE=FILE[:BAND]")
-        })?;
+        let Some(role) = role else {
+            // `--band alpha=FILE[:BAND]`: a coverage mask from its own file.
+            let src = open_once(&path)?;
+            spectral::check_band_exists(
+                &path,
+                band,
+                src.band_count(),
+                &Role::Extra("alpha".into()),
+            )?;
+            if alpha.is_some() {
+                return Err(
+                    Error::usage("the alpha band is given twice").with_fix("give one alpha band")
+                );
+            }
+            alpha = Some((src, band));
+            continue;
+        };
         if sources.iter().any(|s| s.role == role) {
             return Err(Error::usage(format!("role `{role}` is mapped twice"))
                 .with_fix("map each role once"));

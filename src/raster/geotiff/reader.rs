@@ -13,6 +13,7 @@ use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex};
 
 use ndarray::Array2;
+use rayon::prelude::*;
 
 use crate::error::{Error, Result};
 use crate::grid::{Crs, Grid, RasterSpace, Window, MAX_DIMENSION};
@@ -25,6 +26,9 @@ use super::{
     metadata, Compression, Interleave, Layout, MetadataItem, TiffSample, CACHE_BYTES,
     MAX_BLOCK_BYTES,
 };
+
+/// Decoded bytes of the blocks one window read decodes at once, in parallel.
+const PARALLEL_DECODE_BYTES: usize = 64 << 20;
 
 /// Hint for corrupt or truncated files.
 const FIX_CORRUPT: &str =
@@ -225,7 +229,12 @@ impl GeoTiffReader {
                 codec::compression_name(compression_code)
             ))
         })?;
-        let predictor = ifd.uint(tags::PREDICTOR).map_err(bad)?.unwrap_or(1);
+        // libtiff (and so GDAL) applies a predictor only with LZW, Deflate and ZSTD among
+        // the codecs read here; a Predictor tag beside no compression or PackBits is ignored.
+        let predictor = match codec {
+            Codec::None | Codec::PackBits => 1,
+            _ => ifd.uint(tags::PREDICTOR).map_err(bad)?.unwrap_or(1),
+        };
         let is_float = matches!(sample_type, SampleType::F32 | SampleType::F64);
         match (predictor, is_float) {
             (1, _) | (2, false) | (3, true) => {}
@@ -569,19 +578,38 @@ impl GeoTiffReader {
         };
         let (r0, r1) = (inter.row as usize, inter.row as usize + inter.height);
         let (c0, c1) = (inter.col as usize, inter.col as usize + inter.width);
-        for br in r0 / self.block_h..=(r1 - 1) / self.block_h {
-            for bc in c0 / self.block_w..=(c1 - 1) / self.block_w {
-                let block = self.block(plane + br * self.across + bc)?;
+        let touched: Vec<(usize, usize)> = (r0 / self.block_h..=(r1 - 1) / self.block_h)
+            .flat_map(|br| (c0 / self.block_w..=(c1 - 1) / self.block_w).map(move |bc| (br, bc)))
+            .collect();
+        // Blocks are decoded in parallel, a bounded group at a time.
+        let block_bytes = self.block_w * self.block_h * ss * if self.planar { 1 } else { self.spp };
+        let group = (PARALLEL_DECODE_BYTES / block_bytes.max(1)).max(1);
+        for part in touched.chunks(group) {
+            let blocks: Vec<Arc<Vec<u8>>> = if part.len() == 1 {
+                vec![self.block(plane + part[0].0 * self.across + part[0].1)?]
+            } else {
+                part.par_iter()
+                    .map(|(br, bc)| self.block(plane + br * self.across + bc))
+                    .collect::<Result<_>>()?
+            };
+            for (&(br, bc), block) in part.iter().zip(blocks.iter()) {
                 let (by, bx) = (br * self.block_h, bc * self.block_w);
                 let rows = r0.max(by)..r1.min(by + self.block_h);
                 let cols = c0.max(bx)..c1.min(bx + self.block_w);
+                let oc0 = (cols.start as i64 - window.col) as usize;
                 for r in rows {
                     let orow = (r as i64 - window.row) as usize;
-                    let base = (r - by) * self.block_w;
-                    for c in cols.clone() {
-                        let i = ((base + c - bx) * step + sub) * ss;
-                        let v = T::from_ne(&block[i..i + ss]);
-                        out[[orow, (c as i64 - window.col) as usize]] = conv(v);
+                    let mut out_row = out.row_mut(orow);
+                    let dst = &mut out_row
+                        .as_slice_mut()
+                        .expect("a freshly allocated array has contiguous rows")
+                        [oc0..oc0 + cols.len()];
+                    let first = (((r - by) * self.block_w + cols.start - bx) * step + sub) * ss;
+                    let src = &block[first..];
+                    let stride = step * ss;
+                    for (k, d) in dst.iter_mut().enumerate() {
+                        let i = k * stride;
+                        *d = conv(T::from_ne(&src[i..i + ss]));
                     }
                 }
             }
