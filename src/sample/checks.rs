@@ -13,8 +13,11 @@ use super::inputs::Sample;
 /// Findings of [`check_samples`].
 #[derive(Clone, Debug, Default, PartialEq, Eq)]
 pub struct CheckReport {
-    /// Ids of samples with no cell centre inside the stack.
+    /// Ids of samples with no cell centre inside the stack, lying outside or across its
+    /// edge.
     pub outside: Vec<String>,
+    /// Ids of samples inside the stack too small to hold any cell centre.
+    pub no_cells: Vec<String>,
     /// Pairs of samples of different classes sharing at least one cell:
     /// (id, class, id, class), the earlier sample in the file first.
     pub overlaps: Vec<(String, String, String, String)>,
@@ -31,6 +34,7 @@ impl CheckReport {
     /// True when nothing was found.
     pub fn is_clean(&self) -> bool {
         self.outside.is_empty()
+            && self.no_cells.is_empty()
             && self.overlaps.is_empty()
             && self.small_classes.is_empty()
             && self.thin_block_classes.is_empty()
@@ -59,6 +63,14 @@ impl fmt::Display for CheckReport {
                 "check: {} sample(s) outside the stack: {}",
                 self.outside.len(),
                 list(&self.outside, 20)
+            )?;
+        }
+        if !self.no_cells.is_empty() {
+            writeln!(
+                f,
+                "check: {} sample(s) holding no cell centre (smaller than a cell): {}",
+                self.no_cells.len(),
+                list(&self.no_cells, 20)
             )?;
         }
         if !self.overlaps.is_empty() {
@@ -115,12 +127,16 @@ pub fn check_samples(
     folds: usize,
     blocks: Option<&[(i64, i64)]>,
 ) -> CheckReport {
-    let outside = samples
-        .iter()
-        .zip(footprints)
-        .filter(|(_, fp)| fp.cells.is_empty())
-        .map(|(s, _)| s.id.clone())
-        .collect();
+    let empty = |clipped: bool| {
+        samples
+            .iter()
+            .zip(footprints)
+            .filter(|(_, fp)| fp.cells.is_empty() && fp.clipped == clipped)
+            .map(|(s, _)| s.id.clone())
+            .collect::<Vec<_>>()
+    };
+    let outside = empty(true);
+    let no_cells = empty(false);
 
     // Every (cell, sample) pair, sorted by cell: samples sharing a cell are adjacent.
     let mut owners: Vec<((i64, i64), usize)> = footprints
@@ -190,6 +206,7 @@ pub fn check_samples(
 
     CheckReport {
         outside,
+        no_cells,
         overlaps,
         small_classes,
         thin_block_classes,
@@ -217,7 +234,7 @@ mod tests {
     fn fp(cells: &[(i64, i64)]) -> Footprint {
         Footprint {
             cells: cells.to_vec(),
-            clipped: false,
+            clipped: cells.is_empty(),
         }
     }
 
@@ -265,6 +282,19 @@ mod tests {
             r.thin_block_classes,
             vec![("bog".to_string(), 1), ("fen".to_string(), 2)]
         );
+    }
+
+    #[test]
+    fn tiny_sample_inside_is_not_called_outside() {
+        let samples = vec![sample("tiny", "fen")];
+        let footprints = vec![Footprint {
+            cells: vec![],
+            clipped: false,
+        }];
+        let r = check_samples(&samples, &footprints, &[0], &["fen".into()], 1, None);
+        assert!(r.outside.is_empty());
+        assert_eq!(r.no_cells, vec!["tiny".to_string()]);
+        assert!(r.to_string().contains("smaller than a cell): tiny"));
     }
 
     #[test]

@@ -647,7 +647,11 @@ pub fn run(
     let grid = stack.source.grid().clone();
     to_stack_crs(&mut file, &grid, options.lonlat)?;
     let plan = plan(&grid, &file.samples, options)?;
-    if plan.footprints.iter().all(|f| f.cells.is_empty()) {
+    if plan
+        .footprints
+        .iter()
+        .all(|f| f.cells.is_empty() && f.clipped)
+    {
         let (x0, y0, x1, y1) = grid.bounds();
         return Err(Error::file(
             samples_path,
@@ -922,6 +926,11 @@ pub(crate) mod tests {
         assert!(plan(&st.grid, &samples, &bad).is_err());
         let p = plan(&st.grid, &samples, &SampleOptions::default()).unwrap();
         assert_eq!(p.report.outside, vec!["out".to_string()]);
+        // A 5 cm circle on a cell corner (nearest centres 0.35 m away) holds no centre.
+        let tiny = vec![point("tiny", "a", 600_001.0, 4_999_999.0, Some(0.05))];
+        let p2 = plan(&st.grid, &tiny, &SampleOptions::default()).unwrap();
+        assert!(p2.report.outside.is_empty());
+        assert_eq!(p2.report.no_cells, vec!["tiny".to_string()]);
         assert_eq!(p.report.overlaps.len(), 1);
         assert_eq!(p.report.small_classes.len(), 2);
         assert_eq!(p.classes, vec!["a".to_string(), "b".to_string()]);
