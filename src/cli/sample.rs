@@ -36,7 +36,8 @@ pub struct Args {
     #[arg(long, value_name = "N", default_value_t = DEFAULT_SEED)]
     pub seed: u64,
     /// Assign folds by square spatial blocks of this side in metres, aligned to the
-    /// stack's origin, instead of by sample.
+    /// stack's origin, instead of by sample: all samples of a block share its fold, and
+    /// blocks are stratified by the class most of their samples have.
     #[arg(long, value_name = "M")]
     pub block_size: Option<f64>,
     /// One row per sample holding this statistic of its cells, instead of one per cell.
