@@ -6,3 +6,5 @@ cd "$(dirname "$0")/../.."
 DIR="${XCHECK_ROOT:-$(mktemp -d)}/demo"
 cargo run --release --quiet -- demo --out "$DIR" --quiet
 python3 scripts/check_stack.py "$DIR"/*/
+# The demo's training table is classifier-ready: a random forest with the fold column as groups.
+python3 scripts/sample_forest.py "$DIR/training.csv"
