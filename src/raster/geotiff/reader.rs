@@ -325,9 +325,9 @@ impl GeoTiffReader {
             let k = (VIRTUAL_STRIP_BYTES as u64 / rb).max(1) as usize;
             let down = height.div_ceil(k);
             let (mut o, mut c) = (Vec::new(), Vec::new());
-            for p in 0..planes {
+            for start in &offsets[..planes] {
                 for j in 0..down {
-                    o.push(offsets[p] + (j * k) as u64 * rb);
+                    o.push(start + (j * k) as u64 * rb);
                     c.push(k.min(height - j * k) as u64 * rb);
                 }
             }
