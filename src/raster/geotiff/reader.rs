@@ -595,7 +595,8 @@ impl GeoTiffReader {
         let Some(inter) = window.intersect(&Window::full(&self.grid)) else {
             return Ok(());
         };
-        let ss = self.sample_type.size();
+        // A constant per instantiation, so sample loops compile to fixed-width loads.
+        let ss = std::mem::size_of::<T>();
         let (step, sub) = if self.planar {
             (1, 0)
         } else {
@@ -637,8 +638,14 @@ impl GeoTiffReader {
                     let first = (((r - by) * self.block_w + cols.start - bx) * step + sub) * ss;
                     let stride = step * ss;
                     let src = &block[first..first + (cols.len() - 1) * stride + ss];
-                    for (d, sample) in dst.iter_mut().zip(src.chunks(stride)) {
-                        *d = conv(T::from_ne(&sample[..ss]));
+                    if step == 1 {
+                        for (d, sample) in dst.iter_mut().zip(src.chunks_exact(ss)) {
+                            *d = conv(T::from_ne(sample));
+                        }
+                    } else {
+                        for (d, sample) in dst.iter_mut().zip(src.chunks(stride)) {
+                            *d = conv(T::from_ne(&sample[..ss]));
+                        }
                     }
                 }
             }
