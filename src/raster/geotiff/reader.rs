@@ -327,7 +327,8 @@ impl GeoTiffReader {
             let (mut o, mut c) = (Vec::new(), Vec::new());
             for start in &offsets[..planes] {
                 for j in 0..down {
-                    o.push(start + (j * k) as u64 * rb);
+                    // Offsets past the end are refused when the strip is read.
+                    o.push(start.saturating_add((j * k) as u64 * rb));
                     c.push(k.min(height - j * k) as u64 * rb);
                 }
             }
