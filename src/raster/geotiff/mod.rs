@@ -716,4 +716,41 @@ mod tests {
         }
         assert_eq!(seen, 5);
     }
+
+    #[test]
+    fn single_uncompressed_strip_is_read_in_parts() {
+        // 1536 x 1400 float32 in one uncompressed strip (8.6 MB): read as strips of 1365
+        // rows (8 MiB / 6144 bytes per row); a window across the seam reads the same
+        // values as written and the file's own layout is still reported.
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("one_strip.tif");
+        let grid = utm_grid(1536, 1400);
+        let a = Array2::from_shape_fn((1400, 1536), |(r, c)| (r * 1536 + c) as f32);
+        let opts = WriteOptions {
+            compression: Compression::None,
+            layout: Layout::Strips {
+                rows_per_strip: 1400,
+            },
+            ..WriteOptions::default()
+        };
+        write_geotiff(&path, &grid, &[a.view()], &[], &opts).unwrap();
+        let r = GeoTiffReader::open(&path).unwrap();
+        assert_eq!(
+            r.layout(),
+            Layout::Strips {
+                rows_per_strip: 1400
+            }
+        );
+        assert_eq!(r.block_size(), (1536, 1400));
+        let w = r.read_window(1, Window::new(1530, 1360, 10, 10)).unwrap();
+        for ((i, j), v) in w.indexed_iter() {
+            let (row, col) = (1360 + i, 1530 + j);
+            if col < 1536 {
+                assert_eq!(*v, (row * 1536 + col) as f32);
+            } else {
+                assert!(v.is_nan());
+            }
+        }
+        assert_eq!(r.read_window(1, Window::full(&grid)).unwrap(), a);
+    }
 }
