@@ -966,7 +966,7 @@ pub fn compute(
 
 #[cfg(test)]
 pub(crate) mod test_support {
-    //! Shared helpers for the terrain tests: a small deterministic PRNG and surface sampling.
+    //! Shared fixtures for the terrain tests: a small deterministic PRNG and surface sampling.
 
     use ndarray::Array2;
 
