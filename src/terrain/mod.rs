@@ -14,6 +14,10 @@
 //! nine cells; window sums use exact integer arithmetic (see [`window_sums`]); running
 //! extrema are exact. Two runs with different blocks or thread counts are bit-identical.
 //!
+//! Cost per output cell: 3x3 features and square windows O(1) whatever the radius; disc
+//! windows O(r/h) (one row segment per window row); the multi-scale quadratic fit O(1).
+//! `z_factor` should be finite and positive (the command line checks it).
+//!
 //! Outputs are analysis aids for mapping and classification, not engineering assessments
 //! of ground stability or access; those defer to local codes and licensed practice.
 
@@ -962,7 +966,7 @@ pub fn compute(
 
 #[cfg(test)]
 pub(crate) mod test_support {
-    //! Shared helpers for the terrain tests: a small deterministic PRNG and surface sampling.
+    //! Shared fixtures for the terrain tests: a small deterministic PRNG and surface sampling.
 
     use ndarray::Array2;
 

@@ -22,10 +22,13 @@
 //! square holds (2kx+1) x (2ky+1) cells with kx = ⌊r/hx⌋, ky = ⌊r/hy⌋ at the centre row.
 //! Cells beyond the array count as nodata.
 //!
-//! Cost per cell: square windows O(1) whatever the radius (horizontal row-prefix
-//! differences, then vertical prefix differences, the idea of summed-area tables used for
-//! multi-scale position by Lindsay, Cockburn & Russell 2015, Geomorphology 245, from memory);
-//! discs O(ry) = O(r/h): one row-prefix difference per window row.
+//! Cost per output cell: square windows O(1) whatever the radius (row-prefix differences,
+//! then sums sliding down the rows, exact in integers: the idea of summed-area tables used
+//! for multi-scale position by Lindsay, Cockburn & Russell 2015, Geomorphology 245, from
+//! memory); discs O(ry) = O(r/h): one row-prefix difference per window row. Row prefixes
+//! and quantisation cost O(1) per *input* cell, halo included, so a block whose halo is
+//! large next to its interior pays for the halo too. Memory: 32 bytes per input cell for
+//! the prefixes of count, Σz and Σz² (more with plane moments).
 
 use ndarray::{Array2, Array3, Axis};
 use rayon::prelude::*;
