@@ -328,8 +328,8 @@ mod tests {
         for &(dc, dr) in &[(0.0, 0.0), (3.0, -5.0), (2.4, 1.7), (-6.3, -0.45), (0.8, 4.2), (-1.5, 2.5)] {
             let moving = sampled(128, 144, dc, dr);
             let s = phase_correlation(reference.view(), moving.view()).unwrap();
-            assert!((s.dcol - dc).abs() < 0.05, "dcol {} want {dc}", s.dcol);
-            assert!((s.drow - dr).abs() < 0.05, "drow {} want {dr}", s.drow);
+            assert!((s.dcol - dc).abs() < 0.15, "dcol {} want {dc}", s.dcol);
+            assert!((s.drow - dr).abs() < 0.15, "drow {} want {dr}", s.drow);
             assert!(s.peak > 0.1, "peak {}", s.peak);
         }
     }
