@@ -9,3 +9,4 @@ pub mod ledger;
 pub mod manifest;
 pub mod shard;
 pub mod shift;
+pub mod temporal;
