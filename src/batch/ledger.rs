@@ -127,7 +127,10 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
 
 /// Hex SHA-256 of `bytes`.
 pub fn sha256_hex(bytes: &[u8]) -> String {
-    Sha256::digest(bytes).iter().map(|b| format!("{b:02x}")).collect()
+    Sha256::digest(bytes)
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
 }
 
 /// Hex SHA-256 of a file's bytes, read in 1 MiB pieces.
@@ -143,7 +146,11 @@ pub fn sha256_file(path: &Path) -> Result<String> {
         }
         hasher.update(&buf[..n]);
     }
-    Ok(hasher.finalize().iter().map(|b| format!("{b:02x}")).collect())
+    Ok(hasher
+        .finalize()
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect())
 }
 
 #[cfg(test)]
@@ -187,7 +194,9 @@ mod tests {
         let p = tmp.path().join("abc.bin");
         std::fs::write(&p, b"abc").unwrap();
         assert_eq!(sha256_file(&p).unwrap(), sha256_hex(b"abc"));
-        let e = sha256_file(&tmp.path().join("none.tif")).unwrap_err().to_string();
+        let e = sha256_file(&tmp.path().join("none.tif"))
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("none.tif"), "{e}");
     }
 

@@ -182,7 +182,9 @@ impl Flight {
 /// `FILE` of a `FILE[:BAND]` spec (a trailing `:N` with N a number is the band).
 fn split_band_suffix(spec: &str) -> PathBuf {
     match spec.rsplit_once(':') {
-        Some((file, band)) if !band.is_empty() && band.trim().chars().all(|c| c.is_ascii_digit()) => {
+        Some((file, band))
+            if !band.is_empty() && band.trim().chars().all(|c| c.is_ascii_digit()) =>
+        {
             PathBuf::from(file.trim())
         }
         _ => PathBuf::from(spec.trim()),
@@ -207,7 +209,11 @@ impl Manifest {
             )
         })?;
         let base = path.parent().map(Path::to_path_buf).unwrap_or_default();
-        let base = if base.as_os_str().is_empty() { PathBuf::from(".") } else { base };
+        let base = if base.as_os_str().is_empty() {
+            PathBuf::from(".")
+        } else {
+            base
+        };
         if file.flight.is_empty() {
             return Err(bad(
                 "the manifest lists no flight".into(),
@@ -265,16 +271,15 @@ impl Manifest {
                 .map(|f| f.id.clone())
                 .expect("at least one flight"),
         };
-        let shift_layer = match file.batch.shift_layer.as_deref() {
-            None | Some("dsm") => ShiftLayer::Dsm,
-            Some("nir") => ShiftLayer::Nir,
-            Some(other) => {
-                return Err(bad(
+        let shift_layer =
+            match file.batch.shift_layer.as_deref() {
+                None | Some("dsm") => ShiftLayer::Dsm,
+                Some("nir") => ShiftLayer::Nir,
+                Some(other) => return Err(bad(
                     format!("shift_layer {other:?} is not \"dsm\" or \"nir\""),
                     "set batch.shift_layer = \"dsm\" (elevations) or \"nir\" (near-infrared band)",
-                ))
-            }
-        };
+                )),
+            };
         if let Some(g) = &file.grid {
             check_grid_spec(g).map_err(|p| bad(p, "fix the [grid] table: epsg = CODE, resolution = CELL SIZE (> 0), bounds = [xmin, ymin, xmax, ymax]"))?;
         }
@@ -376,7 +381,13 @@ impl Manifest {
 pub fn check_date(date: &str) -> std::result::Result<(), String> {
     let b = date.as_bytes();
     let digits = |r: std::ops::Range<usize>| b[r].iter().all(u8::is_ascii_digit);
-    if b.len() != 10 || b[4] != b'-' || b[7] != b'-' || !digits(0..4) || !digits(5..7) || !digits(8..10) {
+    if b.len() != 10
+        || b[4] != b'-'
+        || b[7] != b'-'
+        || !digits(0..4)
+        || !digits(5..7)
+        || !digits(8..10)
+    {
         return Err(format!("date {date:?} is not YYYY-MM-DD"));
     }
     let year: u32 = date[0..4].parse().expect("digits");
@@ -391,7 +402,9 @@ pub fn check_date(date: &str) -> std::result::Result<(), String> {
         _ => return Err(format!("date {date:?} has month {month}, outside 1–12")),
     };
     if day == 0 || day > days {
-        return Err(format!("date {date:?} has day {day}, outside 1–{days} for that month"));
+        return Err(format!(
+            "date {date:?} has day {day}, outside 1–{days} for that month"
+        ));
     }
     Ok(())
 }
@@ -414,7 +427,8 @@ fn check_grid_spec(g: &GridSpec) -> std::result::Result<(), String> {
 
 /// A recipe file as a TOML value (paths already absolute or relative to the caller).
 fn recipe_to_value(r: &RecipeFile, path: &Path) -> Result<toml::Value> {
-    toml::Value::try_from(r).map_err(|e| Error::file(path, format!("cannot merge this recipe: {e}")))
+    toml::Value::try_from(r)
+        .map_err(|e| Error::file(path, format!("cannot merge this recipe: {e}")))
 }
 
 fn value_to_recipe(v: &toml::Value, manifest: &Path, what: &str) -> Result<RecipeFile> {
@@ -490,7 +504,12 @@ pub fn common_grid(spec: &GridSpec, reference: &Grid, grids: &[(PathBuf, Grid)])
             let mut bounds = reference.bounds();
             for (_, g) in grids {
                 let (a, b, c, d) = g.bounds();
-                bounds = (bounds.0.max(a), bounds.1.max(b), bounds.2.min(c), bounds.3.min(d));
+                bounds = (
+                    bounds.0.max(a),
+                    bounds.1.max(b),
+                    bounds.2.min(c),
+                    bounds.3.min(d),
+                );
             }
             // Snap inward to the lattice anchored at the reference's north-west corner.
             let ox = reference.transform[0];
@@ -511,7 +530,9 @@ pub fn common_grid(spec: &GridSpec, reference: &Grid, grids: &[(PathBuf, Grid)])
             "the flights' DSMs do not overlap by a single cell ({})",
             listed.join(", ")
         ))
-        .with_fix("check that every flight covers the same site, or give [grid] bounds explicitly"));
+        .with_fix(
+            "check that every flight covers the same site, or give [grid] bounds explicitly",
+        ));
     }
     if spec.bounds.is_some() && ((w - w.round()).abs() > 1e-6 || (h - h.round()).abs() > 1e-6) {
         return Err(Error::usage(format!(
@@ -578,7 +599,10 @@ mod tests {
         assert_eq!(june.nir_band(), Some((PathBuf::from("/site/b/nir.tif"), 2)));
         let may = &m.flights[1];
         assert_eq!(may.recipe.scales_m, vec![1.0]);
-        assert_eq!(may.nir_band(), Some((PathBuf::from("/site/a/ortho.tif"), 5)));
+        assert_eq!(
+            may.nir_band(),
+            Some((PathBuf::from("/site/a/ortho.tif"), 5))
+        );
         assert_eq!(
             may.inputs(),
             vec![
@@ -677,17 +701,26 @@ mod tests {
             resolution: Some(1.0),
             epsg: None,
         };
-        assert!(common_grid(&spec, &a, &[]).unwrap_err().to_string().contains("whole number"));
-        let far = grid(1000.0, 2000.0, 10, 10, 0.5);
-        let e = common_grid(&GridSpec::default(), &a, &[("a".into(), a.clone()), ("far.tif".into(), far)])
+        assert!(common_grid(&spec, &a, &[])
             .unwrap_err()
-            .to_string();
+            .to_string()
+            .contains("whole number"));
+        let far = grid(1000.0, 2000.0, 10, 10, 0.5);
+        let e = common_grid(
+            &GridSpec::default(),
+            &a,
+            &[("a".into(), a.clone()), ("far.tif".into(), far)],
+        )
+        .unwrap_err()
+        .to_string();
         assert!(e.contains("do not overlap") && e.contains("far.tif"), "{e}");
         let spec = GridSpec {
             epsg: Some(32634),
             ..Default::default()
         };
-        let e = common_grid(&spec, &a, &[("a.tif".into(), a.clone())]).unwrap_err().to_string();
+        let e = common_grid(&spec, &a, &[("a.tif".into(), a.clone())])
+            .unwrap_err()
+            .to_string();
         assert!(e.contains("a.tif") && e.contains("EPSG:32634"), "{e}");
     }
 }

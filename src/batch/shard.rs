@@ -25,14 +25,12 @@ impl Shard {
         let (i, n) = text
             .split_once('/')
             .ok_or_else(|| Error::usage(format!("--shard {text:?} is not I/N")).with_fix(fix))?;
-        let index: usize = i
-            .trim()
-            .parse()
-            .map_err(|_| Error::usage(format!("--shard {text:?}: {i:?} is not a whole number")).with_fix(fix))?;
-        let count: usize = n
-            .trim()
-            .parse()
-            .map_err(|_| Error::usage(format!("--shard {text:?}: {n:?} is not a whole number")).with_fix(fix))?;
+        let index: usize = i.trim().parse().map_err(|_| {
+            Error::usage(format!("--shard {text:?}: {i:?} is not a whole number")).with_fix(fix)
+        })?;
+        let count: usize = n.trim().parse().map_err(|_| {
+            Error::usage(format!("--shard {text:?}: {n:?} is not a whole number")).with_fix(fix)
+        })?;
         if count == 0 || index >= count {
             return Err(Error::usage(format!(
                 "--shard {text:?}: the shard index must lie in 0..{count}"
@@ -74,7 +72,10 @@ mod tests {
     #[test]
     fn parse_accepts_and_refuses() {
         assert_eq!(Shard::parse("0/2").unwrap(), Shard { index: 0, count: 2 });
-        assert_eq!(Shard::parse(" 3 / 4 ").unwrap(), Shard { index: 3, count: 4 });
+        assert_eq!(
+            Shard::parse(" 3 / 4 ").unwrap(),
+            Shard { index: 3, count: 4 }
+        );
         for bad in ["2/2", "0/0", "a/2", "1", "-1/2", "1/2/3"] {
             let e = Shard::parse(bad).unwrap_err();
             assert!(e.to_string().contains("--shard"), "{bad}: {e}");
@@ -84,7 +85,9 @@ mod tests {
 
     #[test]
     fn shards_cover_every_flight_exactly_once() {
-        let ids: Vec<String> = (0..23).map(|i| format!("flight-{:02}", (i * 7) % 23)).collect();
+        let ids: Vec<String> = (0..23)
+            .map(|i| format!("flight-{:02}", (i * 7) % 23))
+            .collect();
         for count in 1..=8 {
             let mut seen: Vec<&str> = Vec::new();
             let mut sizes = Vec::new();

@@ -120,8 +120,20 @@ pub fn phase_correlation(reference: ArrayView2<f32>, moving: ArrayView2<f32>) ->
     let (imax, _) = cross
         .iter()
         .enumerate()
-        .fold((0, f64::NEG_INFINITY), |best, (i, v)| if v.re > best.1 { (i, v.re) } else { best });
-    let wrap = |i: usize, len: usize| if i > len / 2 { i as f64 - len as f64 } else { i as f64 };
+        .fold((0, f64::NEG_INFINITY), |best, (i, v)| {
+            if v.re > best.1 {
+                (i, v.re)
+            } else {
+                best
+            }
+        });
+    let wrap = |i: usize, len: usize| {
+        if i > len / 2 {
+            i as f64 - len as f64
+        } else {
+            i as f64
+        }
+    };
     let mut best = (wrap(imax / cols, rows), wrap(imax % cols, cols));
     let mut peak = 0.0;
     for (half, step) in [(1.0, 0.05), (0.05, 0.002)] {
@@ -154,7 +166,13 @@ fn refine(
     let m = (2.0 * half / step).round() as usize + 1;
     let ys: Vec<f64> = (0..m).map(|i| centre.0 - half + i as f64 * step).collect();
     let xs: Vec<f64> = (0..m).map(|i| centre.1 - half + i as f64 * step).collect();
-    let signed = |k: usize, len: usize| if k > len / 2 { k as f64 - len as f64 } else { k as f64 };
+    let signed = |k: usize, len: usize| {
+        if k > len / 2 {
+            k as f64 - len as f64
+        } else {
+            k as f64
+        }
+    };
     let tau = 2.0 * std::f64::consts::PI;
     // T[p][l] = Σ_k e^{2πi k y_p / rows} S[k][l]
     let mut t = vec![Complex::new(0.0, 0.0); m * cols];
@@ -170,7 +188,10 @@ fn refine(
     }
     let ex: Vec<Complex<f64>> = xs
         .iter()
-        .flat_map(|x| (0..cols).map(move |l| Complex::from_polar(1.0, tau * signed(l, cols) * x / cols as f64)))
+        .flat_map(|x| {
+            (0..cols)
+                .map(move |l| Complex::from_polar(1.0, tau * signed(l, cols) * x / cols as f64))
+        })
         .collect();
     let mut best = (centre.0, centre.1, f64::NEG_INFINITY);
     for (p, y) in ys.iter().enumerate() {
@@ -219,9 +240,15 @@ fn spectrum(image: ArrayView2<f32>) -> Result<Vec<Complex<f64>>> {
 fn fft2(data: &mut [Complex<f64>], rows: usize, cols: usize, inverse: bool) {
     let mut planner = FftPlanner::<f64>::new();
     let (row_fft, col_fft) = if inverse {
-        (planner.plan_fft_inverse(cols), planner.plan_fft_inverse(rows))
+        (
+            planner.plan_fft_inverse(cols),
+            planner.plan_fft_inverse(rows),
+        )
     } else {
-        (planner.plan_fft_forward(cols), planner.plan_fft_forward(rows))
+        (
+            planner.plan_fft_forward(cols),
+            planner.plan_fft_forward(rows),
+        )
     };
     row_fft.process(data);
     let mut column = vec![Complex::new(0.0, 0.0); rows];
@@ -238,7 +265,12 @@ fn fft2(data: &mut [Complex<f64>], rows: usize, cols: usize, inverse: bool) {
 
 /// Band `band` of `source` sampled by nearest neighbour at the cell centres of `window`
 /// of `grid` (cells outside the source are NaN).
-pub fn sample_nearest(source: &dyn RasterSource, band: usize, grid: &Grid, window: Window) -> Result<Array2<f32>> {
+pub fn sample_nearest(
+    source: &dyn RasterSource,
+    band: usize,
+    grid: &Grid,
+    window: Window,
+) -> Result<Array2<f32>> {
     let sg = source.grid();
     let mut cols = Vec::with_capacity(window.width);
     let mut rows = Vec::with_capacity(window.height);
@@ -250,13 +282,20 @@ pub fn sample_nearest(source: &dyn RasterSource, band: usize, grid: &Grid, windo
         let (_, y) = grid.cell_centre(0.0, (window.row + r as i64) as f64);
         rows.push(sg.to_cell(sg.transform[0], y).1.floor() as i64);
     }
-    let (c0, c1) = (*cols.iter().min().expect("width ≥ 1"), *cols.iter().max().expect("width ≥ 1"));
-    let (r0, r1) = (*rows.iter().min().expect("height ≥ 1"), *rows.iter().max().expect("height ≥ 1"));
+    let (c0, c1) = (
+        *cols.iter().min().expect("width ≥ 1"),
+        *cols.iter().max().expect("width ≥ 1"),
+    );
+    let (r0, r1) = (
+        *rows.iter().min().expect("height ≥ 1"),
+        *rows.iter().max().expect("height ≥ 1"),
+    );
     let src_window = Window::new(c0, r0, (c1 - c0 + 1) as usize, (r1 - r0 + 1) as usize);
     let data = source.read_window(band, src_window)?;
-    Ok(Array2::from_shape_fn((window.height, window.width), |(r, c)| {
-        data[[(rows[r] - r0) as usize, (cols[c] - c0) as usize]]
-    }))
+    Ok(Array2::from_shape_fn(
+        (window.height, window.width),
+        |(r, c)| data[[(rows[r] - r0) as usize, (cols[c] - c0) as usize]],
+    ))
 }
 
 /// The central window of `grid`, at most [`MAX_WINDOW`] cells a side, on which shifts
@@ -264,7 +303,12 @@ pub fn sample_nearest(source: &dyn RasterSource, band: usize, grid: &Grid, windo
 pub fn central_window(grid: &Grid) -> Window {
     let w = grid.width.min(MAX_WINDOW);
     let h = grid.height.min(MAX_WINDOW);
-    Window::new(((grid.width - w) / 2) as i64, ((grid.height - h) / 2) as i64, w, h)
+    Window::new(
+        ((grid.width - w) / 2) as i64,
+        ((grid.height - h) / 2) as i64,
+        w,
+        h,
+    )
 }
 
 /// Ground offset (east, north, in CRS units) of band `moving_band` of `moving` against
@@ -281,7 +325,11 @@ pub fn estimate_ground_shift(
     let a = sample_nearest(reference, reference_band, grid, window)?;
     let b = sample_nearest(moving, moving_band, grid, window)?;
     let shift = phase_correlation(a.view(), b.view()).map_err(|e| in_file(e, moving.path()))?;
-    Ok((shift.dcol * grid.res_x(), -shift.drow * grid.res_y(), shift.peak))
+    Ok((
+        shift.dcol * grid.res_x(),
+        -shift.drow * grid.res_y(),
+        shift.peak,
+    ))
 }
 
 fn in_file(e: Error, path: &Path) -> Error {
@@ -318,14 +366,23 @@ mod tests {
 
     fn sampled(rows: usize, cols: usize, dcol: f64, drow: f64) -> Array2<f32> {
         // moving(r, c) = reference(r − drow, c − dcol): features appear at +drow, +dcol.
-        Array2::from_shape_fn((rows, cols), |(r, c)| surface(c as f64 - dcol, r as f64 - drow) as f32)
+        Array2::from_shape_fn((rows, cols), |(r, c)| {
+            surface(c as f64 - dcol, r as f64 - drow) as f32
+        })
     }
 
     #[test]
     fn recovers_integer_and_sub_cell_shifts() {
         // Closed-form surface sampled at known offsets (exact by construction).
         let reference = sampled(128, 144, 0.0, 0.0);
-        for &(dc, dr) in &[(0.0, 0.0), (3.0, -5.0), (2.4, 1.7), (-6.3, -0.45), (0.8, 4.2), (-1.5, 2.5)] {
+        for &(dc, dr) in &[
+            (0.0, 0.0),
+            (3.0, -5.0),
+            (2.4, 1.7),
+            (-6.3, -0.45),
+            (0.8, 4.2),
+            (-1.5, 2.5),
+        ] {
             let moving = sampled(128, 144, dc, dr);
             let s = phase_correlation(reference.view(), moving.view()).unwrap();
             assert!((s.dcol - dc).abs() < 0.15, "dcol {} want {dc}", s.dcol);
@@ -356,14 +413,20 @@ mod tests {
             }
         }
         let s = phase_correlation(reference.view(), moving.view()).unwrap();
-        assert!((s.dcol + 2.3).abs() < 0.25 && (s.drow - 3.6).abs() < 0.25, "{s:?}");
+        assert!(
+            (s.dcol + 2.3).abs() < 0.25 && (s.drow - 3.6).abs() < 0.25,
+            "{s:?}"
+        );
     }
 
     #[test]
     fn bad_inputs_are_errors() {
         let a = sampled(32, 32, 0.0, 0.0);
         let b = sampled(32, 40, 0.0, 0.0);
-        assert!(phase_correlation(a.view(), b.view()).unwrap_err().to_string().contains("one shape"));
+        assert!(phase_correlation(a.view(), b.view())
+            .unwrap_err()
+            .to_string()
+            .contains("one shape"));
         let small = sampled(8, 8, 0.0, 0.0);
         assert!(phase_correlation(small.view(), small.view()).is_err());
         let empty = Array2::from_elem((32, 32), f32::NAN);

@@ -39,8 +39,20 @@ use super::ledger::sha256_file;
 
 /// Features whose summaries include the date of the maximum.
 pub const INDEX_FEATURES: &[&str] = &[
-    "ndvi", "gndvi", "ndre", "savi", "osavi", "msavi2", "evi", "evi2", "ndwi", "cire", "cigreen",
-    "exg", "vari", "expression",
+    "ndvi",
+    "gndvi",
+    "ndre",
+    "savi",
+    "osavi",
+    "msavi2",
+    "evi",
+    "evi2",
+    "ndwi",
+    "cire",
+    "cigreen",
+    "exg",
+    "vari",
+    "expression",
 ];
 
 /// One summary across dates.
@@ -56,7 +68,13 @@ pub enum Summary {
 
 impl Summary {
     /// The summaries every feature gets.
-    pub const ALWAYS: [Summary; 5] = [Summary::Mean, Summary::Min, Summary::Max, Summary::Amplitude, Summary::Std];
+    pub const ALWAYS: [Summary; 5] = [
+        Summary::Mean,
+        Summary::Min,
+        Summary::Max,
+        Summary::Amplitude,
+        Summary::Std,
+    ];
 
     /// Suffix of the band name and value of the band's `summary` field.
     pub fn name(self) -> &'static str {
@@ -85,7 +103,10 @@ impl Summary {
 /// per entry of `which`, in that order.
 pub fn summarise(dated: &[ArrayView2<f32>], which: &[Summary]) -> Vec<Array2<f32>> {
     let dim = dated.first().map(|a| a.dim()).unwrap_or((0, 0));
-    let mut out: Vec<Array2<f32>> = which.iter().map(|_| Array2::from_elem(dim, f32::NAN)).collect();
+    let mut out: Vec<Array2<f32>> = which
+        .iter()
+        .map(|_| Array2::from_elem(dim, f32::NAN))
+        .collect();
     let mut values: Vec<f64> = Vec::with_capacity(dated.len());
     for r in 0..dim.0 {
         for c in 0..dim.1 {
@@ -117,7 +138,9 @@ pub fn summarise(dated: &[ArrayView2<f32>], which: &[Summary]) -> Vec<Array2<f32
                     Summary::Min => min,
                     Summary::Max => max,
                     Summary::Amplitude => max - min,
-                    Summary::Std => (values.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n).sqrt(),
+                    Summary::Std => {
+                        (values.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n).sqrt()
+                    }
                     Summary::ArgmaxDate => argmax as f64,
                 } as f32;
             }
@@ -147,9 +170,16 @@ enum Origin {
 
 /// Write the multi-temporal stack of `flights` on `grid` into `out` (atomic: `stack.json`
 /// last). Returns its metadata.
-pub fn write_temporal(flights: &[DatedStack], grid: &Grid, out: &Path, force: bool) -> Result<StackMetadata> {
+pub fn write_temporal(
+    flights: &[DatedStack],
+    grid: &Grid,
+    out: &Path,
+    force: bool,
+) -> Result<StackMetadata> {
     if flights.is_empty() {
-        return Err(Error::usage("the multi-temporal stack needs at least one finished flight"));
+        return Err(Error::usage(
+            "the multi-temporal stack needs at least one finished flight",
+        ));
     }
     let mut flights: Vec<DatedStack> = flights.to_vec();
     flights.sort_by(|a, b| a.date.cmp(&b.date).then(a.id.cmp(&b.id)));
@@ -177,7 +207,11 @@ pub fn write_temporal(flights: &[DatedStack], grid: &Grid, out: &Path, force: bo
         if reader.band_count() != meta.bands.len() {
             return Err(Error::file(
                 &tif,
-                format!("holds {} bands but its stack.json describes {}", reader.band_count(), meta.bands.len()),
+                format!(
+                    "holds {} bands but its stack.json describes {}",
+                    reader.band_count(),
+                    meta.bands.len()
+                ),
             )
             .with_fix("rebuild the flight"));
         }
@@ -196,7 +230,10 @@ pub fn write_temporal(flights: &[DatedStack], grid: &Grid, out: &Path, force: bo
             band.name = format!("{}_{}", b.name, f.date);
             band.date = Some(f.date.clone());
             band.extra.insert("flight".into(), f.id.clone().into());
-            origins.push(Origin::Dated { flight: fi, band: b.index });
+            origins.push(Origin::Dated {
+                flight: fi,
+                band: b.index,
+            });
             bands.push(band);
         }
     }
@@ -213,7 +250,11 @@ pub fn write_temporal(flights: &[DatedStack], grid: &Grid, out: &Path, force: bo
         })
         .collect();
     for (ni, (name, _, which)) in common.iter().enumerate() {
-        let template = metas[0].bands.iter().find(|b| &b.name == name).expect("common name");
+        let template = metas[0]
+            .bands
+            .iter()
+            .find(|b| &b.name == name)
+            .expect("common name");
         for (wi, s) in which.iter().enumerate() {
             let mut band = template.clone();
             band.index = bands.len() + 1;
@@ -224,8 +265,14 @@ pub fn write_temporal(flights: &[DatedStack], grid: &Grid, out: &Path, force: bo
             }
             band.extra.insert("summary".into(), s.name().into());
             band.extra.insert("summarises".into(), name.clone().into());
-            band.extra.insert("dates".into(), serde_json::to_value(&dates).expect("dates serialise"));
-            origins.push(Origin::Summary { name: ni, which: wi });
+            band.extra.insert(
+                "dates".into(),
+                serde_json::to_value(&dates).expect("dates serialise"),
+            );
+            origins.push(Origin::Summary {
+                name: ni,
+                which: wi,
+            });
             bands.push(band);
         }
     }
@@ -241,7 +288,12 @@ pub fn write_temporal(flights: &[DatedStack], grid: &Grid, out: &Path, force: bo
         .flat_map(|tr| {
             (0..grid.width.div_ceil(tile)).map(move |tc| {
                 let (c0, r0) = (tc * tile, tr * tile);
-                Window::new(c0 as i64, r0 as i64, tile.min(grid.width - c0), tile.min(grid.height - r0))
+                Window::new(
+                    c0 as i64,
+                    r0 as i64,
+                    tile.min(grid.width - c0),
+                    tile.min(grid.height - r0),
+                )
             })
         })
         .collect();
@@ -346,7 +398,10 @@ mod tests {
         assert!((s[4][[0, 0]] as f64 - (2.0f64 / 3.0).sqrt()).abs() < 1e-7);
         assert_eq!(s[5][[0, 0]], 1.0);
         // Cell (0,1): one valid date → std 0, amplitude 0, argmax 1.
-        assert_eq!((s[0][[0, 1]], s[3][[0, 1]], s[4][[0, 1]], s[5][[0, 1]]), (5.0, 0.0, 0.0, 1.0));
+        assert_eq!(
+            (s[0][[0, 1]], s[3][[0, 1]], s[4][[0, 1]], s[5][[0, 1]]),
+            (5.0, 0.0, 0.0, 1.0)
+        );
         // Cell (1,0): 0.2, 0.6, 0.6 → the tie goes to the earlier date (index 1).
         assert_eq!(s[5][[1, 0]], 1.0);
         // Cell (1,1): no valid date → NaN everywhere.
@@ -373,7 +428,11 @@ mod tests {
         let s = summarise(&views, &Summary::for_feature("evi"));
         for r in 0..9 {
             for c in 0..11 {
-                let v: Vec<f64> = dated.iter().map(|a| a[[r, c]] as f64).filter(|v| !v.is_nan()).collect();
+                let v: Vec<f64> = dated
+                    .iter()
+                    .map(|a| a[[r, c]] as f64)
+                    .filter(|v| !v.is_nan())
+                    .collect();
                 if v.is_empty() {
                     assert!(s[0][[r, c]].is_nan());
                     continue;
