@@ -1,6 +1,44 @@
-//! Resampling every input onto the target grid. (filled in by its issue)
+//! Resampling every input onto the target grid.
+//!
+//! [`target_grid`] chooses the one grid every layer of a stack is computed on: the DSM's
+//! grid by default, or the DSM's CRS and origin with another cell size, over the DSM's
+//! extent or over the intersection of all inputs, always snapped to whole target cells
+//! anchored on the DSM's origin.
+//!
+//! [`resample_window`] brings one band of any source onto a window of that grid. Inputs in
+//! the target's CRS are resampled here in pure Rust; other CRSs go through GDAL's warper
+//! (cargo feature `gdal`). The weights of a target cell are computed from that cell's
+//! absolute position in the target grid, never from its place in the window, so a cell has
+//! bit-for-bit the same value whichever block or thread produced it.
+//!
+//! Source positions: a target cell centre (x, y) falls at fractional source position
+//! u = (x − x₀)/Δx, v = (y − y₀)/Δy measured from the source's corner (cell k spans
+//! [k, k + 1)). Kernels and their nodata rules:
+//!
+//! | method | cells used | NaN (nodata or outside the source) |
+//! | --- | --- | --- |
+//! | nearest | the cell containing the centre: ⌊u⌋, ⌊v⌋ | that cell's value (NaN stays NaN) |
+//! | bilinear | 2x2 centres around (u − ½, v − ½), linear weights | NaN if any cell with non-zero weight is NaN |
+//! | cubic | 4x4 centres, Keys (1981) cubic convolution, a = −0.5 | NaN if any cell with non-zero weight is NaN |
+//! | average | every cell the target cell's footprint overlaps, weighted by overlapped area | mean of the valid cells, NaN if they cover less than half the footprint |
+//!
+//! Bilinear and cubic interpolate with the plain (unstretched) kernel whatever the ratio of
+//! cell sizes; for going coarser, `average` is the method that uses every source cell.
+//! Near the source's edges the kernels of bilinear (½ cell) and cubic (1½ cells) reach
+//! outside it and those target cells are NaN: no value is made up from outside the data.
+//! Target cells outside the target grid (a block's halo) get values wherever the source
+//! has data there. Accumulation is in f64, rounded once to f32. Cost per target cell: 1,
+//! 4, 16 reads, or the number of overlapped cells for `average`.
 
+use std::path::{Path, PathBuf};
+
+use ndarray::{Array2, ArrayView2};
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, Result};
+use crate::grid::{Grid, Window};
+use crate::raster::{check_band, BandInfo, RasterSource, SampleType};
 
 /// How source cells are combined into a target cell.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, Default)]
@@ -15,4 +53,917 @@ pub enum Resampling {
     Cubic,
     /// Area-weighted mean of the source cells the target cell covers (for going coarser).
     Average,
+}
+
+impl Resampling {
+    /// Parse `nearest`, `bilinear`, `cubic` or `average` (case-insensitive).
+    pub fn parse(text: &str) -> Result<Resampling> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "nearest" => Ok(Resampling::Nearest),
+            "bilinear" => Ok(Resampling::Bilinear),
+            "cubic" => Ok(Resampling::Cubic),
+            "average" => Ok(Resampling::Average),
+            _ => Err(Error::usage(format!("unknown resampling method `{text}`"))
+                .with_fix("choose nearest, bilinear, cubic or average")),
+        }
+    }
+
+    /// Lower-case name, as parsed.
+    pub fn name(self) -> &'static str {
+        match self {
+            Resampling::Nearest => "nearest",
+            Resampling::Bilinear => "bilinear",
+            Resampling::Cubic => "cubic",
+            Resampling::Average => "average",
+        }
+    }
+}
+
+/// Which extent the target grid covers.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "lowercase")]
+pub enum ExtentRule {
+    /// The DSM's extent.
+    #[default]
+    Dsm,
+    /// The area every input covers.
+    Intersection,
+}
+
+/// Fraction of a cell by which snapped edges may miss a lattice line and still count as on
+/// it (absorbs floating-point noise in transforms written with limited digits).
+const SNAP_TOL: f64 = 1e-6;
+
+/// The target grid, with inputs labelled "the DSM" and "input N" in errors. See
+/// [`target_grid_named`], which names files.
+pub fn target_grid(
+    dsm: &Grid,
+    others: &[&Grid],
+    resolution_m: Option<f64>,
+    extent: ExtentRule,
+) -> Result<Grid> {
+    let dsm_label = PathBuf::from("the DSM");
+    let labels: Vec<PathBuf> = (1..=others.len())
+        .map(|i| PathBuf::from(format!("input {i}")))
+        .collect();
+    let named: Vec<(&Path, &Grid)> = labels
+        .iter()
+        .map(|p| p.as_path())
+        .zip(others.iter().copied())
+        .collect();
+    target_grid_named((&dsm_label, dsm), &named, resolution_m, extent)
+}
+
+/// The grid every layer is computed on.
+///
+/// - CRS and origin: the DSM's. The lattice of target cells is anchored on the DSM's
+///   corner (x₀, y₀): cell edges lie at x₀ + i·Δx, y₀ + j·Δy.
+/// - Cell size: the DSM's, or `resolution_m` metres converted to CRS units. Projected CRSs
+///   divide by the linear unit (metres per foot, …); geographic CRSs use the WGS84
+///   metres per degree of longitude and of latitude at the DSM's centre latitude, so cells
+///   are square in metres there and only there.
+/// - Extent: the DSM's or the intersection of all inputs' extents (all in the DSM's CRS),
+///   shrunk to whole target cells (a partial cell at an edge is left out).
+///
+/// With no new resolution and the DSM's extent, the result is the DSM's grid exactly.
+/// Errors: an input in the DSM's CRS that does not overlap it (named), the intersection
+/// rule with an input in another CRS, a resolution that is not positive or leaves no cell.
+pub fn target_grid_named(
+    dsm: (&Path, &Grid),
+    others: &[(&Path, &Grid)],
+    resolution_m: Option<f64>,
+    extent: ExtentRule,
+) -> Result<Grid> {
+    let (dsm_path, dsm_grid) = dsm;
+    let (dx0, dy0, dx1, dy1) = dsm_grid.bounds();
+    let mut bounds = (dx0, dy0, dx1, dy1);
+    for (path, grid) in others {
+        if !grid.crs.same_as(&dsm_grid.crs) {
+            if extent == ExtentRule::Intersection {
+                return Err(Error::file(
+                    path,
+                    format!(
+                        "is in {} but the DSM {} is in {}; the intersection extent needs every input in the DSM's CRS",
+                        grid.crs.label(),
+                        dsm_path.display(),
+                        dsm_grid.crs.label()
+                    ),
+                )
+                .with_fix("use the DSM's extent, or reproject the file to the DSM's CRS first"));
+            }
+            continue;
+        }
+        let (x0, y0, x1, y1) = grid.bounds();
+        let overlaps_dsm = x0 < dx1 && x1 > dx0 && y0 < dy1 && y1 > dy0;
+        if !overlaps_dsm {
+            return Err(Error::file(
+                path,
+                format!(
+                    "does not overlap the DSM {}: its extent ({x0}, {y0}) – ({x1}, {y1}) and the DSM's ({dx0}, {dy0}) – ({dx1}, {dy1}) share no area",
+                    dsm_path.display()
+                ),
+            )
+            .with_fix("check that the file belongs to the same flight and is georeferenced in the DSM's CRS"));
+        }
+        if extent == ExtentRule::Intersection {
+            bounds = (
+                bounds.0.max(x0),
+                bounds.1.max(y0),
+                bounds.2.min(x1),
+                bounds.3.min(y1),
+            );
+            if bounds.0 >= bounds.2 || bounds.1 >= bounds.3 {
+                return Err(Error::file(
+                    path,
+                    "leaves no area common to every input (each overlaps the DSM, but not all together)",
+                )
+                .with_fix("drop the input that lies apart, or use the DSM's extent"));
+            }
+        }
+    }
+    let t = dsm_grid.transform;
+    let (step_x, step_y) = match resolution_m {
+        None => (t[1], t[5]),
+        Some(res) => {
+            if !(res.is_finite() && res > 0.0) {
+                return Err(Error::usage(format!(
+                    "the target resolution {res} m is not a positive number of metres"
+                ))
+                .with_fix("give the cell size in metres, e.g. `--resolution 0.25`"));
+            }
+            let centre_row = dsm_grid.height as f64 / 2.0 - 0.5;
+            let (hx, hy) = dsm_grid
+                .cell_size_m(centre_row)
+                .map_err(|e| e.in_file(dsm_path))?;
+            (
+                t[1].signum() * res * dsm_grid.res_x() / hx,
+                t[5].signum() * res * dsm_grid.res_y() / hy,
+            )
+        }
+    };
+    if resolution_m.is_none() && extent == ExtentRule::Dsm {
+        return Ok(dsm_grid.clone());
+    }
+    let span = |a: f64, b: f64, origin: f64, step: f64| -> (i64, i64) {
+        let (ia, ib) = ((a - origin) / step, (b - origin) / step);
+        let (lo, hi) = (ia.min(ib), ia.max(ib));
+        (
+            (lo - SNAP_TOL).ceil() as i64,
+            (hi + SNAP_TOL).floor() as i64,
+        )
+    };
+    let (c0, c1) = span(bounds.0, bounds.2, t[0], step_x);
+    let (r0, r1) = span(bounds.1, bounds.3, t[3], step_y);
+    if c1 <= c0 || r1 <= r0 {
+        return Err(Error::file(
+            dsm_path,
+            format!(
+                "the target grid would hold no whole cell: the extent is {:.3} x {:.3} CRS units and the cell {:.6} x {:.6}",
+                bounds.2 - bounds.0,
+                bounds.3 - bounds.1,
+                step_x.abs(),
+                step_y.abs()
+            ),
+        )
+        .with_fix("choose a smaller --resolution"));
+    }
+    let transform = [
+        t[0] + c0 as f64 * step_x,
+        step_x,
+        0.0,
+        t[3] + r0 as f64 * step_y,
+        0.0,
+        step_y,
+    ];
+    Ok(Grid::new(
+        (c1 - c0) as usize,
+        (r1 - r0) as usize,
+        transform,
+        dsm_grid.crs.clone(),
+    )
+    .map_err(|e| e.in_file(dsm_path))?
+    .with_nodata(dsm_grid.nodata))
+}
+
+/// Keys (1981) cubic convolution kernel with a = −0.5 (IEEE Trans. ASSP 29(6), eq. 15).
+fn keys_cubic(d: f64) -> f64 {
+    const A: f64 = -0.5;
+    let d = d.abs();
+    if d <= 1.0 {
+        ((A + 2.0) * d - (A + 3.0)) * d * d + 1.0
+    } else if d < 2.0 {
+        ((A * d - 5.0 * A) * d + 8.0 * A) * d - 4.0 * A
+    } else {
+        0.0
+    }
+}
+
+/// The source cells and weights for every target index along one axis.
+struct AxisTaps {
+    /// First source index of each target index.
+    start: Vec<i64>,
+    /// Number of taps of each target index.
+    len: Vec<usize>,
+    /// Weights, `stride` per target index.
+    weights: Vec<f64>,
+    stride: usize,
+}
+
+impl AxisTaps {
+    /// Taps for target indices `first .. first + count` along an axis whose target cell
+    /// `i` spans [t_origin + i·t_step, t_origin + (i + 1)·t_step] and whose source cell `k`
+    /// spans [s_origin + k·s_step, …].
+    fn new(
+        method: Resampling,
+        first: i64,
+        count: usize,
+        t_origin: f64,
+        t_step: f64,
+        s_origin: f64,
+        s_step: f64,
+    ) -> AxisTaps {
+        let stride = match method {
+            Resampling::Nearest => 1,
+            Resampling::Bilinear => 2,
+            Resampling::Cubic => 4,
+            Resampling::Average => (t_step.abs() / s_step.abs()).ceil() as usize + 2,
+        };
+        let mut taps = AxisTaps {
+            start: Vec::with_capacity(count),
+            len: Vec::with_capacity(count),
+            weights: vec![0.0; count * stride],
+            stride,
+        };
+        for k in 0..count {
+            let i = first + k as i64;
+            let w = &mut taps.weights[k * stride..(k + 1) * stride];
+            let centre = t_origin + (i as f64 + 0.5) * t_step;
+            let u = (centre - s_origin) / s_step;
+            let (start, len) = match method {
+                Resampling::Nearest => {
+                    w[0] = 1.0;
+                    (u.floor() as i64, 1)
+                }
+                Resampling::Bilinear => {
+                    let f = u - 0.5;
+                    let i0 = f.floor();
+                    let frac = f - i0;
+                    w[0] = 1.0 - frac;
+                    w[1] = frac;
+                    (i0 as i64, 2)
+                }
+                Resampling::Cubic => {
+                    let f = u - 0.5;
+                    let i0 = f.floor();
+                    let frac = f - i0;
+                    w[0] = keys_cubic(1.0 + frac);
+                    w[1] = keys_cubic(frac);
+                    w[2] = keys_cubic(1.0 - frac);
+                    w[3] = keys_cubic(2.0 - frac);
+                    (i0 as i64 - 1, 4)
+                }
+                Resampling::Average => {
+                    let ua = (t_origin + i as f64 * t_step - s_origin) / s_step;
+                    let ub = (t_origin + (i as f64 + 1.0) * t_step - s_origin) / s_step;
+                    let (lo, hi) = (ua.min(ub), ua.max(ub));
+                    // Overlaps thinner than 1e-9 of a cell are rounding noise, not coverage.
+                    let k0 = (lo + 1e-9).floor();
+                    let k1 = (hi - 1e-9).ceil();
+                    let n = ((k1 - k0) as usize).clamp(1, stride);
+                    for (j, wj) in w.iter_mut().take(n).enumerate() {
+                        let a = k0 + j as f64;
+                        *wj = ((a + 1.0).min(hi) - a.max(lo)).max(0.0);
+                    }
+                    (k0 as i64, n)
+                }
+            };
+            taps.start.push(start);
+            taps.len.push(len);
+        }
+        taps
+    }
+
+    /// The range of source indices all taps touch, as (first, count).
+    fn span(&self) -> (i64, usize) {
+        let lo = self.start.iter().copied().min().unwrap_or(0);
+        let hi = self
+            .start
+            .iter()
+            .zip(&self.len)
+            .map(|(s, l)| s + *l as i64)
+            .max()
+            .unwrap_or(0);
+        (lo, (hi - lo).max(0) as usize)
+    }
+
+    fn weights(&self, k: usize) -> &[f64] {
+        &self.weights[k * self.stride..k * self.stride + self.len[k]]
+    }
+}
+
+/// Band `band` of `source` resampled onto `window` of `target` (see the module
+/// documentation for the kernels and the nodata rule). Reads only the source cells the
+/// window needs, plus the kernel's margin; NaN for nodata and outside the source.
+///
+/// When the source's grid is the target grid, the source's values are returned exactly.
+/// A source in another CRS is warped by GDAL with the `gdal` feature and refused without
+/// it, naming both CRSs.
+pub fn resample_window(
+    source: &dyn RasterSource,
+    band: usize,
+    target: &Grid,
+    window: Window,
+    method: Resampling,
+) -> Result<Array2<f32>> {
+    check_band(source, band)?;
+    let sg = source.grid();
+    if !sg.crs.same_as(&target.crs) {
+        return warp_other_crs(source, band, target, window, method);
+    }
+    let tol = 1e-9 * target.res_x().min(target.res_y());
+    if sg.same_geometry(target, tol) {
+        return source.read_window(band, window);
+    }
+    if window.is_empty() {
+        return Ok(Array2::from_elem((window.height, window.width), f32::NAN));
+    }
+    let (tt, st) = (target.transform, sg.transform);
+    let cols = AxisTaps::new(method, window.col, window.width, tt[0], tt[1], st[0], st[1]);
+    let rows = AxisTaps::new(
+        method,
+        window.row,
+        window.height,
+        tt[3],
+        tt[5],
+        st[3],
+        st[5],
+    );
+    let (c0, nc) = cols.span();
+    let (r0, nr) = rows.span();
+    let src = source.read_window(band, Window::new(c0, r0, nc, nr))?;
+    Ok(apply_taps(src.view(), c0, r0, &cols, &rows, method))
+}
+
+fn apply_taps(
+    src: ArrayView2<f32>,
+    c0: i64,
+    r0: i64,
+    cols: &AxisTaps,
+    rows: &AxisTaps,
+    method: Resampling,
+) -> Array2<f32> {
+    let src = src.as_standard_layout();
+    let stride = src.ncols();
+    let s = src.as_slice().expect("standard layout");
+    let (h, w) = (rows.start.len(), cols.start.len());
+    let mut out = Array2::<f32>::from_elem((h, w), f32::NAN);
+    out.axis_iter_mut(ndarray::Axis(0))
+        .into_par_iter()
+        .enumerate()
+        .for_each(|(ti, mut line)| {
+            let wy = rows.weights(ti);
+            let base = (rows.start[ti] - r0) as usize * stride;
+            for (tj, o) in line.iter_mut().enumerate() {
+                let wx = cols.weights(tj);
+                let p = base + (cols.start[tj] - c0) as usize;
+                *o = match method {
+                    Resampling::Nearest => s[p],
+                    Resampling::Bilinear => interpolate::<2>(s, p, stride, wx, wy),
+                    Resampling::Cubic => interpolate::<4>(s, p, stride, wx, wy),
+                    Resampling::Average => area_mean(s, p, stride, wx, wy),
+                };
+            }
+        });
+    out
+}
+
+/// Separable interpolation over a K x K neighbourhood whose north-west cell is `s[p]`.
+/// The branch-free sum is used when finite; otherwise the sum is redone skipping
+/// zero-weight cells, and is NaN if a cell with non-zero weight is NaN. Both sums add the
+/// same terms in the same order, so a finite result is the same either way.
+#[inline]
+fn interpolate<const K: usize>(s: &[f32], p: usize, stride: usize, wx: &[f64], wy: &[f64]) -> f32 {
+    let wx: &[f64; K] = wx.try_into().expect("K taps");
+    let wy: &[f64; K] = wy.try_into().expect("K taps");
+    let mut sum = 0.0f64;
+    for (a, wa) in wy.iter().enumerate() {
+        let row = &s[p + a * stride..p + a * stride + K];
+        let mut row_sum = 0.0f64;
+        for (wb, v) in wx.iter().zip(row) {
+            row_sum += wb * *v as f64;
+        }
+        sum += wa * row_sum;
+    }
+    if !sum.is_nan() {
+        return sum as f32;
+    }
+    let mut sum = 0.0f64;
+    for (a, &wa) in wy.iter().enumerate() {
+        if wa == 0.0 {
+            continue;
+        }
+        let mut row_sum = 0.0f64;
+        for (b, &wb) in wx.iter().enumerate() {
+            if wb == 0.0 {
+                continue;
+            }
+            let v = s[p + a * stride + b];
+            if v.is_nan() {
+                return f32::NAN;
+            }
+            row_sum += wb * v as f64;
+        }
+        sum += wa * row_sum;
+    }
+    sum as f32
+}
+
+/// Area-weighted mean of the valid cells under a footprint; NaN when they cover less than
+/// half of it.
+#[inline]
+fn area_mean(s: &[f32], p: usize, stride: usize, wx: &[f64], wy: &[f64]) -> f32 {
+    let (mut sum, mut area, mut total) = (0.0f64, 0.0f64, 0.0f64);
+    for (a, &wa) in wy.iter().enumerate() {
+        let row = &s[p + a * stride..p + a * stride + wx.len()];
+        for (&wb, &v) in wx.iter().zip(row) {
+            let wgt = wa * wb;
+            total += wgt;
+            if !v.is_nan() {
+                sum += wgt * v as f64;
+                area += wgt;
+            }
+        }
+    }
+    if area > 0.0 && area >= 0.5 * total {
+        (sum / area) as f32
+    } else {
+        f32::NAN
+    }
+}
+
+#[cfg(feature = "gdal")]
+fn warp_other_crs(
+    source: &dyn RasterSource,
+    band: usize,
+    target: &Grid,
+    window: Window,
+    method: Resampling,
+) -> Result<Array2<f32>> {
+    crate::raster::gdal::warp_window(source.path(), band, target, window, method)
+}
+
+#[cfg(not(feature = "gdal"))]
+fn warp_other_crs(
+    source: &dyn RasterSource,
+    _band: usize,
+    target: &Grid,
+    _window: Window,
+    _method: Resampling,
+) -> Result<Array2<f32>> {
+    Err(Error::file(
+        source.path(),
+        format!(
+            "is in {} but the target grid is in {}, and this build cannot reproject",
+            source.grid().crs.label(),
+            target.crs.label()
+        ),
+    )
+    .with_fix(format!(
+        "build terrastack with `--features gdal`, or reproject the file to {} first",
+        target.crs.label()
+    )))
+}
+
+/// A raster held in memory: layers computed on the fly, tests and benchmarks. Reads
+/// follow [`RasterSource`]: the grid's nodata value and cells outside the raster are NaN.
+#[derive(Clone, Debug)]
+pub struct MemoryRaster {
+    path: PathBuf,
+    grid: Grid,
+    bands: Vec<Array2<f32>>,
+}
+
+impl MemoryRaster {
+    /// A raster called `name` (used in messages as its path) with `bands`, each shaped
+    /// (grid.height, grid.width).
+    pub fn new(
+        name: impl Into<PathBuf>,
+        grid: Grid,
+        bands: Vec<Array2<f32>>,
+    ) -> Result<MemoryRaster> {
+        let path = name.into();
+        if bands.is_empty() {
+            return Err(Error::file(
+                &path,
+                "an in-memory raster needs at least one band",
+            ));
+        }
+        for (i, b) in bands.iter().enumerate() {
+            if b.dim() != (grid.height, grid.width) {
+                return Err(Error::file(
+                    &path,
+                    format!(
+                        "band {} is {} x {} cells but the grid is {} x {}",
+                        i + 1,
+                        b.ncols(),
+                        b.nrows(),
+                        grid.width,
+                        grid.height
+                    ),
+                ));
+            }
+        }
+        Ok(MemoryRaster { path, grid, bands })
+    }
+}
+
+impl RasterSource for MemoryRaster {
+    fn path(&self) -> &Path {
+        &self.path
+    }
+
+    fn grid(&self) -> &Grid {
+        &self.grid
+    }
+
+    fn band_count(&self) -> usize {
+        self.bands.len()
+    }
+
+    fn band_info(&self, _band: usize) -> BandInfo {
+        BandInfo {
+            description: None,
+            sample_type: SampleType::F32,
+            nodata: self.grid.nodata,
+        }
+    }
+
+    fn read_window(&self, band: usize, window: Window) -> Result<Array2<f32>> {
+        check_band(self, band)?;
+        let data = &self.bands[band - 1];
+        let nodata = self.grid.nodata.map(|v| v as f32);
+        let mut out = Array2::from_elem((window.height, window.width), f32::NAN);
+        if let Some(inside) = window.intersect(&Window::full(&self.grid)) {
+            for r in 0..inside.height {
+                let sr = inside.row as usize + r;
+                let orow = (inside.row - window.row) as usize + r;
+                for c in 0..inside.width {
+                    let sc = inside.col as usize + c;
+                    let v = data[[sr, sc]];
+                    out[[orow, (inside.col - window.col) as usize + c]] =
+                        if Some(v) == nodata { f32::NAN } else { v };
+                }
+            }
+        }
+        Ok(out)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::grid::{metres_per_degree, Crs};
+
+    fn utm_grid(w: usize, h: usize, x0: f64, y0: f64, res: f64) -> Grid {
+        Grid::new(w, h, [x0, res, 0.0, y0, 0.0, -res], Crs::from_epsg(32633)).unwrap()
+    }
+
+    /// A source whose value at cell centre (x, y) is the plane 2x + 3y + 5.
+    fn plane_source(grid: &Grid) -> MemoryRaster {
+        let data = Array2::from_shape_fn((grid.height, grid.width), |(r, c)| {
+            let (x, y) = grid.cell_centre(c as f64, r as f64);
+            (2.0 * (x - 500_000.0) + 3.0 * (y - 4_000_000.0) + 5.0) as f32
+        });
+        MemoryRaster::new("plane.tif", grid.clone(), vec![data]).unwrap()
+    }
+
+    fn plane_at(x: f64, y: f64) -> f64 {
+        2.0 * (x - 500_000.0) + 3.0 * (y - 4_000_000.0) + 5.0
+    }
+
+    #[test]
+    fn keys_kernel_partition_of_unity() {
+        // Keys 1981: the kernel interpolates (1 at 0, 0 at ±1, ±2) and its taps sum to 1.
+        assert_eq!(keys_cubic(0.0), 1.0);
+        assert_eq!(keys_cubic(1.0), 0.0);
+        assert_eq!(keys_cubic(2.0), 0.0);
+        for f in [0.1, 0.25, 0.5, 0.9] {
+            let s = keys_cubic(1.0 + f) + keys_cubic(f) + keys_cubic(1.0 - f) + keys_cubic(2.0 - f);
+            assert!((s - 1.0).abs() < 1e-15);
+        }
+        // Worked by hand at d = 0.5: (1.5·0.5 − 2.5)·0.25 + 1 = 0.5625; d = 1.5: −0.0625.
+        assert!((keys_cubic(0.5) - 0.5625).abs() < 1e-15);
+        assert!((keys_cubic(1.5) + 0.0625).abs() < 1e-15);
+    }
+
+    #[test]
+    fn identical_grid_returns_source_exactly() {
+        let g = utm_grid(20, 15, 500_000.0, 4_000_015.0, 1.0);
+        let data = Array2::from_shape_fn((15, 20), |(r, c)| ((r * 31 + c * 7) % 13) as f32 * 0.37);
+        let src = MemoryRaster::new("a.tif", g.clone(), vec![data.clone()]).unwrap();
+        for m in [
+            Resampling::Nearest,
+            Resampling::Bilinear,
+            Resampling::Cubic,
+            Resampling::Average,
+        ] {
+            let out = resample_window(&src, 1, &g, Window::full(&g), m).unwrap();
+            assert_eq!(out, data, "{m:?}");
+        }
+    }
+
+    #[test]
+    fn linear_methods_reproduce_a_plane() {
+        // Bilinear and cubic convolution reproduce linear functions exactly (Keys 1981,
+        // §III); the area mean of a plane over a cell is its value at the cell centre.
+        let src_grid = utm_grid(60, 60, 500_000.0, 4_000_060.0, 1.0);
+        let src = plane_source(&src_grid);
+        let target = utm_grid(30, 30, 500_010.3, 4_000_049.7, 1.25);
+        // Average: footprints aligned on whole source cells (2 and 3 cells wide), so the
+        // area mean of cell-centre values of a plane is the plane at the footprint centre.
+        let aligned2 = utm_grid(20, 20, 500_004.0, 4_000_056.0, 2.0);
+        let aligned3 = utm_grid(15, 15, 500_006.0, 4_000_054.0, 3.0);
+        for (m, target) in [
+            (Resampling::Bilinear, &target),
+            (Resampling::Cubic, &target),
+            (Resampling::Average, &aligned2),
+            (Resampling::Average, &aligned3),
+        ] {
+            let out = resample_window(&src, 1, target, Window::full(target), m).unwrap();
+            for ((r, c), v) in out.indexed_iter() {
+                let (x, y) = target.cell_centre(c as f64, r as f64);
+                assert!(
+                    (*v as f64 - plane_at(x, y)).abs() < 1e-3,
+                    "{m:?} at {r},{c}: {v}"
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn nearest_picks_containing_cell() {
+        let src_grid = utm_grid(10, 10, 0.0, 10.0, 1.0);
+        let data = Array2::from_shape_fn((10, 10), |(r, c)| (r * 10 + c) as f32);
+        let src = MemoryRaster::new("n.tif", src_grid, vec![data]).unwrap();
+        // Target cells of 0.8 shifted by 0.13: centre of target col 3 is 0.13 + 3.5·0.8 = 2.93 → source col 2.
+        let target = utm_grid(11, 11, 0.13, 9.87, 0.8);
+        let out =
+            resample_window(&src, 1, &target, Window::full(&target), Resampling::Nearest).unwrap();
+        assert_eq!(out[[0, 3]], 2.0);
+        // Row 4: centre y = 9.87 − 4.5·0.8 = 6.27 → source row floor((10 − 6.27)/1) = 3.
+        assert_eq!(out[[4, 3]], 32.0);
+    }
+
+    #[test]
+    fn average_of_two_by_two_blocks() {
+        // Target cells of 2 m aligned on 1 m source cells: the mean of four values (by hand).
+        let src_grid = utm_grid(4, 4, 0.0, 4.0, 1.0);
+        let data = Array2::from_shape_fn((4, 4), |(r, c)| (r * 4 + c) as f32);
+        let src = MemoryRaster::new("a.tif", src_grid, vec![data]).unwrap();
+        let target = utm_grid(2, 2, 0.0, 4.0, 2.0);
+        let out =
+            resample_window(&src, 1, &target, Window::full(&target), Resampling::Average).unwrap();
+        assert_eq!(out, ndarray::array![[2.5f32, 4.5], [10.5, 12.5]]);
+        // A 1.5 m target cell at the origin covers source (0,0) fully, (0,1) and (1,0) half,
+        // (1,1) a quarter: (0·1 + 1·.5 + 4·.5 + 5·.25)/2.25 = 3.75/2.25 (by hand).
+        let t2 = utm_grid(2, 2, 0.0, 4.0, 1.5);
+        let out = resample_window(&src, 1, &t2, Window::full(&t2), Resampling::Average).unwrap();
+        assert!((out[[0, 0]] as f64 - 3.75 / 2.25).abs() < 1e-6);
+    }
+
+    #[test]
+    fn nodata_rules() {
+        let src_grid = utm_grid(6, 6, 0.0, 6.0, 1.0).with_nodata(Some(-9999.0));
+        let mut data = Array2::from_elem((6, 6), 1.0f32);
+        data[[2, 2]] = -9999.0;
+        let src = MemoryRaster::new("h.tif", src_grid, vec![data]).unwrap();
+        // Half-cell shift: every target centre lies between four source centres.
+        let target = utm_grid(5, 5, 0.5, 5.5, 1.0);
+        let bil = resample_window(
+            &src,
+            1,
+            &target,
+            Window::full(&target),
+            Resampling::Bilinear,
+        )
+        .unwrap();
+        // The hole at source (2,2) poisons the four target cells around it, nothing else.
+        assert_eq!(bil.iter().filter(|v| v.is_nan()).count(), 4);
+        assert!(bil[[1, 1]].is_nan() && bil[[2, 2]].is_nan() && bil[[0, 0]] == 1.0);
+        // Average over 2x2 source cells: a quarter missing keeps the mean of the rest.
+        let t2 = utm_grid(3, 3, 0.0, 6.0, 2.0);
+        let avg = resample_window(&src, 1, &t2, Window::full(&t2), Resampling::Average).unwrap();
+        assert_eq!(avg[[1, 1]], 1.0);
+        // The edge: a half-shifted target's last column reaches outside the source.
+        let t3 = utm_grid(6, 6, 0.4, 6.0, 1.0);
+        let bil = resample_window(&src, 1, &t3, Window::full(&t3), Resampling::Bilinear).unwrap();
+        assert!(bil[[0, 5]].is_nan() && bil[[0, 4]] == 1.0);
+        let near = resample_window(&src, 1, &t3, Window::full(&t3), Resampling::Nearest).unwrap();
+        assert!(near[[0, 5]] == 1.0 && near[[2, 2]].is_nan() && near[[2, 1]] == 1.0);
+    }
+
+    #[test]
+    fn zero_weight_neighbours_do_not_poison() {
+        // A target on the source's lattice but shifted by one cell: every centre coincides
+        // with a source centre, so each value is that cell's own (weights 1 and 0), even
+        // beside a NaN column or the source's edge.
+        let src_grid = utm_grid(6, 6, 0.0, 6.0, 1.0);
+        let mut data = Array2::from_shape_fn((6, 6), |(r, c)| (r * 6 + c) as f32 + 0.25);
+        data.column_mut(3).fill(f32::NAN);
+        let src = MemoryRaster::new("z.tif", src_grid, vec![data.clone()]).unwrap();
+        let target = utm_grid(5, 5, 1.0, 5.0, 1.0);
+        for m in [
+            Resampling::Bilinear,
+            Resampling::Cubic,
+            Resampling::Nearest,
+            Resampling::Average,
+        ] {
+            let out = resample_window(&src, 1, &target, Window::full(&target), m).unwrap();
+            for ((r, c), v) in out.indexed_iter() {
+                let want = data[[r + 1, c + 1]];
+                assert!(
+                    v.to_bits() == want.to_bits(),
+                    "{m:?} at {r},{c}: {v} vs {want}"
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn values_do_not_depend_on_the_window() {
+        let src_grid = utm_grid(50, 40, 500_000.0, 4_000_040.0, 1.0);
+        let data = Array2::from_shape_fn((40, 50), |(r, c)| {
+            ((r as f32 * 0.7).sin() + (c as f32 * 0.3).cos()) * 10.0
+        });
+        let src = MemoryRaster::new("w.tif", src_grid, vec![data]).unwrap();
+        let target = utm_grid(37, 29, 500_001.13, 4_000_038.9, 1.27);
+        for m in [
+            Resampling::Nearest,
+            Resampling::Bilinear,
+            Resampling::Cubic,
+            Resampling::Average,
+        ] {
+            let full = resample_window(&src, 1, &target, Window::full(&target), m).unwrap();
+            for (bw, bh) in [(7usize, 5usize), (16, 16), (37, 1)] {
+                let mut r = 0;
+                while r < target.height {
+                    let mut c = 0;
+                    while c < target.width {
+                        let w = Window::new(
+                            c as i64,
+                            r as i64,
+                            bw.min(target.width - c),
+                            bh.min(target.height - r),
+                        );
+                        let part = resample_window(&src, 1, &target, w, m).unwrap();
+                        for ((i, j), v) in part.indexed_iter() {
+                            let f = full[[r + i, c + j]];
+                            assert_eq!(v.to_bits(), f.to_bits(), "{m:?} block {bw}x{bh}");
+                        }
+                        c += bw;
+                    }
+                    r += bh;
+                }
+            }
+            // A halo window reaching outside the target grid gives the same inner values.
+            let halo = resample_window(&src, 1, &target, Window::full(&target).grow(2), m).unwrap();
+            assert_eq!(halo.slice(ndarray::s![2..31, 2..39]), full.view());
+        }
+    }
+
+    #[test]
+    fn other_crs_refused_without_gdal() {
+        let src = plane_source(&utm_grid(4, 4, 500_000.0, 4_000_004.0, 1.0));
+        let target = Grid::new(
+            4,
+            4,
+            [15.0, 1e-5, 0.0, 36.0, 0.0, -1e-5],
+            Crs::from_epsg(4326),
+        )
+        .unwrap();
+        let r = resample_window(
+            &src,
+            1,
+            &target,
+            Window::full(&target),
+            Resampling::Bilinear,
+        );
+        if cfg!(not(feature = "gdal")) {
+            let e = r.unwrap_err().to_string();
+            assert!(
+                e.contains("plane.tif") && e.contains("EPSG:32633") && e.contains("EPSG:4326"),
+                "{e}"
+            );
+            assert!(e.contains("--features gdal"), "{e}");
+        }
+    }
+
+    #[test]
+    fn missing_band_refused() {
+        let src = plane_source(&utm_grid(4, 4, 500_000.0, 4_000_004.0, 1.0));
+        let g = src.grid().clone();
+        let e = resample_window(&src, 2, &g, Window::full(&g), Resampling::Nearest).unwrap_err();
+        assert!(e.to_string().contains("band 2"));
+    }
+
+    #[test]
+    fn target_grid_defaults_to_dsm() {
+        let dsm = utm_grid(100, 80, 500_000.0, 4_000_080.0, 0.05);
+        assert_eq!(target_grid(&dsm, &[], None, ExtentRule::Dsm).unwrap(), dsm);
+    }
+
+    #[test]
+    fn target_grid_new_resolution_snaps_inward() {
+        // 100 x 80 cells of 0.05 m = 5 m x 4 m; 0.3 m cells: floor(5/0.3) = 16, floor(4/0.3) = 13.
+        let dsm = utm_grid(100, 80, 500_000.0, 4_000_080.0, 0.05);
+        let g = target_grid(&dsm, &[], Some(0.3), ExtentRule::Dsm).unwrap();
+        assert_eq!((g.width, g.height), (16, 13));
+        assert_eq!(g.transform, [500_000.0, 0.3, 0.0, 4_000_080.0, 0.0, -0.3]);
+    }
+
+    #[test]
+    fn target_grid_intersection_anchored_on_dsm_origin() {
+        let dsm = utm_grid(100, 100, 1000.0, 2000.0, 1.0); // x 1000..1100, y 1900..2000
+        let ortho = utm_grid(200, 200, 1040.3, 1980.4, 0.5); // x 1040.3..1140.3, y 1880.4..1980.4
+        let g = target_grid(&dsm, &[&ortho], Some(2.0), ExtentRule::Intersection).unwrap();
+        // Edges on the lattice 1000 + 2i, 2000 − 2j inside [1040.3, 1100] x [1900, 1980.4]:
+        // x 1042..1100 (29 cells), y 1900..1980 (40 cells). Worked by hand.
+        assert_eq!(g.transform, [1042.0, 2.0, 0.0, 1980.0, 0.0, -2.0]);
+        assert_eq!((g.width, g.height), (29, 40));
+        let g1 = target_grid(&dsm, &[&ortho], None, ExtentRule::Intersection).unwrap();
+        assert_eq!(g1.transform[0], 1041.0);
+        assert_eq!((g1.width, g1.height), (59, 80));
+    }
+
+    #[test]
+    fn target_grid_errors() {
+        let dsm = utm_grid(10, 10, 0.0, 10.0, 1.0);
+        let far = utm_grid(10, 10, 500.0, 500.0, 1.0);
+        let e = target_grid_named(
+            (Path::new("dsm.tif"), &dsm),
+            &[(Path::new("ortho.tif"), &far)],
+            None,
+            ExtentRule::Dsm,
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(
+            e.starts_with("ortho.tif") && e.contains("dsm.tif") && e.contains("does not overlap"),
+            "{e}"
+        );
+        assert!(target_grid(&dsm, &[], Some(0.0), ExtentRule::Dsm).is_err());
+        let e = target_grid(&dsm, &[], Some(50.0), ExtentRule::Dsm)
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("no whole cell"), "{e}");
+        let geo = Grid::new(
+            10,
+            10,
+            [15.0, 1e-5, 0.0, 36.0, 0.0, -1e-5],
+            Crs::from_epsg(4326),
+        )
+        .unwrap();
+        let e = target_grid(&dsm, &[&geo], None, ExtentRule::Intersection)
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("EPSG:4326") && e.contains("reproject"), "{e}");
+        let nocrs = Grid::new(10, 10, [0.0, 1.0, 0.0, 10.0, 0.0, -1.0], Crs::none()).unwrap();
+        assert!(target_grid(&nocrs, &[], Some(2.0), ExtentRule::Dsm).is_err());
+    }
+
+    #[test]
+    fn target_grid_geographic_resolution_at_centre_latitude() {
+        // 1000 x 1000 cells of 1e-6° whose centre latitude is 36.6°: 0.5 m cells become
+        // 0.5/89475.76° wide and 0.5/110970.16° tall (METHODS.md worked metres per degree).
+        let d = 1e-6;
+        let dsm = Grid::new(
+            1000,
+            1000,
+            [15.0, d, 0.0, 36.6 + 500.0 * d, 0.0, -d],
+            Crs::from_epsg(4326),
+        )
+        .unwrap();
+        let g = target_grid(&dsm, &[], Some(0.5), ExtentRule::Dsm).unwrap();
+        let (m_lat, m_lon) = metres_per_degree(36.6);
+        assert!((g.transform[1] - 0.5 / m_lon).abs() < 1e-13);
+        assert!((g.transform[5] + 0.5 / m_lat).abs() < 1e-13);
+        assert!((m_lon - 89_475.76).abs() < 0.01);
+        // 1e-3° of longitude is 89.47576 m: 178 whole cells of 0.5 m.
+        assert_eq!(g.width, 178);
+    }
+
+    #[test]
+    fn parse_methods() {
+        assert_eq!(Resampling::parse("Cubic").unwrap(), Resampling::Cubic);
+        let e = Resampling::parse("lanczos").unwrap_err().to_string();
+        assert!(e.contains("`lanczos`") && e.contains("average"), "{e}");
+        for m in [
+            Resampling::Nearest,
+            Resampling::Bilinear,
+            Resampling::Cubic,
+            Resampling::Average,
+        ] {
+            assert_eq!(Resampling::parse(m.name()).unwrap(), m);
+        }
+    }
 }

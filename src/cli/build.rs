@@ -5,7 +5,9 @@ use std::path::PathBuf;
 
 use terrastack::align::Resampling;
 use terrastack::stack::output::parse_memory;
-use terrastack::stack::{self, BuildOptions, BuildReport, Progress, Recipe, RecipeFile, RecipeFlags};
+use terrastack::stack::{
+    self, BuildOptions, BuildReport, Progress, Recipe, RecipeFile, RecipeFlags,
+};
 use terrastack::Result;
 
 #[derive(clap::Args)]
@@ -130,7 +132,11 @@ pub fn run(args: Args) -> Result<()> {
     options.force = args.force;
     options.threads = args.threads;
     options.memory_bytes = parse_memory(&args.memory)?;
-    options.progress = if args.quiet { Progress::Quiet } else { Progress::Auto };
+    options.progress = if args.quiet {
+        Progress::Quiet
+    } else {
+        Progress::Auto
+    };
     let report = stack::build(recipe, &options)?;
     if !args.quiet {
         print_summary(&report);
@@ -154,7 +160,10 @@ pub fn print_summary(report: &BuildReport) {
     println!("metadata: {}", report.dir.join("stack.json").display());
     println!("preview: {}", report.dir.join("preview.png").display());
     println!();
-    println!("{:>4}  {:<30} {:<10} {:>12} {:>12} {:>12} {:>7}", "band", "name", "units", "min", "mean", "max", "valid");
+    println!(
+        "{:>4}  {:<30} {:<10} {:>12} {:>12} {:>12} {:>7}",
+        "band", "name", "units", "min", "mean", "max", "valid"
+    );
     for b in &m.bands {
         let f = |v: Option<f64>| v.map(|x| format!("{x:.4}")).unwrap_or_else(|| "-".into());
         println!(

@@ -5,6 +5,9 @@ use clap::{Parser, Subcommand};
 
 use terrastack::Result;
 
+pub mod build;
+mod demo;
+mod features;
 mod info;
 mod verify;
 
@@ -19,8 +22,14 @@ struct Cli {
 
 #[derive(Subcommand)]
 enum Command {
+    /// Build one flight's stack: DSM (and orthomosaic) → stack.tif, stack.json, preview.png.
+    Build(Box<build::Args>),
+    /// Build the stacks of the bundled demo site (invented data in sample-dsm/).
+    Demo(demo::Args),
     /// Describe a raster or a stack folder: size, bands, transform, CRS, cell size, nodata.
     Info(info::Args),
+    /// List every feature: the word to ask for it, units, method, formula, reference.
+    Features(features::Args),
     /// Check every terrain formula against closed-form surfaces; non-zero exit on failure.
     Verify(verify::Args),
 }
@@ -29,6 +38,9 @@ enum Command {
 pub fn run() -> Result<()> {
     let cli = Cli::parse();
     match cli.command {
+        Command::Build(args) => build::run(*args),
+        Command::Demo(args) => demo::run(args),
+        Command::Features(args) => features::run(args),
         Command::Info(args) => info::run(args),
         Command::Verify(args) => verify::run(args),
     }

@@ -118,7 +118,12 @@ pub fn build(recipe: Recipe, options: &BuildOptions) -> Result<BuildReport> {
     })
 }
 
-fn run(plan: StackPlan, mut out: OutputDir, options: &BuildOptions, started: Instant) -> Result<BuildReport> {
+fn run(
+    plan: StackPlan,
+    mut out: OutputDir,
+    options: &BuildOptions,
+    started: Instant,
+) -> Result<BuildReport> {
     let threads = rayon::current_num_threads();
     let tif_path = out.temp_path("stack.tif");
     let write_options = WriteOptions {
@@ -129,7 +134,8 @@ fn run(plan: StackPlan, mut out: OutputDir, options: &BuildOptions, started: Ins
         },
         ..WriteOptions::default()
     };
-    let mut writer = GeoTiffWriter::create(&tif_path, &plan.target, plan.bands.len(), write_options)?;
+    let mut writer =
+        GeoTiffWriter::create(&tif_path, &plan.target, plan.bands.len(), write_options)?;
     for (i, band) in plan.bands.iter().enumerate() {
         writer.set_band_description(i + 1, &band.name);
     }
@@ -146,7 +152,7 @@ fn run(plan: StackPlan, mut out: OutputDir, options: &BuildOptions, started: Ins
     );
     let sources = hash_sources(&plan)?;
 
-    let bar = progress_bar(options.progress, blocks.len());
+    let mut bar = progress_bar(options.progress, blocks.len());
     let mut stats: Vec<StatsAccumulator> = vec![StatsAccumulator::default(); plan.bands.len()];
     let mut done = 0usize;
     for wave in blocks.chunks(concurrency) {
@@ -221,13 +227,20 @@ fn run(plan: StackPlan, mut out: OutputDir, options: &BuildOptions, started: Ins
 }
 
 /// Block side (a multiple of `tile`) and how many blocks may be in flight at once.
-fn choose_blocks(plan: &StackPlan, options: &BuildOptions, tile: usize, threads: usize) -> Result<(usize, usize)> {
+fn choose_blocks(
+    plan: &StackPlan,
+    options: &BuildOptions,
+    tile: usize,
+    threads: usize,
+) -> Result<(usize, usize)> {
     let budget = options.memory_bytes.saturating_sub(BASE_BYTES);
     let round_up = |n: usize| n.div_ceil(tile).max(1) * tile;
     let mut block = match options.block_size {
         Some(b) => {
             if b == 0 || b % tile != 0 {
-                return Err(Error::usage(format!("block size {b} is not a multiple of the {tile}-cell tile")));
+                return Err(Error::usage(format!(
+                    "block size {b} is not a multiple of the {tile}-cell tile"
+                )));
             }
             b
         }
@@ -262,7 +275,13 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<Vec<Array2<f32>>> {
         let z = if plan.dsm_on_target {
             plan.dsm.read_window(1, padded)?
         } else {
-            align::resample_window(plan.dsm.as_ref(), 1, &plan.target, padded, plan.recipe.resampling)?
+            align::resample_window(
+                plan.dsm.as_ref(),
+                1,
+                &plan.target,
+                padded,
+                plan.recipe.resampling,
+            )?
         };
         let cells = plan.target.cell_sizes(padded.row, padded.height)?;
         terrain_out = terrain::compute(
@@ -293,8 +312,12 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<Vec<Array2<f32>>> {
                 .and_then(|r| r.get(role))
                 .cloned()
                 .expect("mapped roles are read"),
-            Producer::Index(index) => index.compute(reflectance.as_ref().expect("spectral read"))?,
-            Producer::Expression(expr) => expr.eval(reflectance.as_ref().expect("spectral read"))?,
+            Producer::Index(index) => {
+                index.compute(reflectance.as_ref().expect("spectral read"))?
+            }
+            Producer::Expression(expr) => {
+                expr.eval(reflectance.as_ref().expect("spectral read"))?
+            }
         };
         out.push(data);
     }
@@ -335,7 +358,13 @@ fn read_reflectance(plan: &StackPlan, w: Window) -> Result<BandArrays> {
 }
 
 /// Write the tiles of block `w` of band `band` (1-based).
-fn write_tiles(writer: &GeoTiffWriter, band: usize, w: Window, tile: usize, data: &Array2<f32>) -> Result<()> {
+fn write_tiles(
+    writer: &GeoTiffWriter,
+    band: usize,
+    w: Window,
+    tile: usize,
+    data: &Array2<f32>,
+) -> Result<()> {
     let (rows, cols) = data.dim();
     for r0 in (0..rows).step_by(tile) {
         for c0 in (0..cols).step_by(tile) {
@@ -422,7 +451,10 @@ impl Reporter {
     fn advance(&mut self, done: usize, total: usize) {
         match self {
             Reporter::Bar(bar) => bar.set_position(done as u64),
-            Reporter::Lines { started, last_tenth } => {
+            Reporter::Lines {
+                started,
+                last_tenth,
+            } => {
                 let tenth = done * 10 / total.max(1);
                 if tenth > *last_tenth {
                     *last_tenth = tenth;

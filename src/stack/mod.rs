@@ -1,7 +1,12 @@
 //! From a recipe to a finished stack: the resolved recipe, the block plan, the executor,
 //! the sidecar metadata and the preview.
 
+pub mod executor;
 pub mod output;
+pub mod plan;
 pub mod preview;
 pub mod recipe;
 pub mod sidecar;
+
+pub use executor::{build, BuildOptions, BuildReport, Progress};
+pub use recipe::{Recipe, RecipeFile, RecipeFlags};

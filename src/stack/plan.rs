@@ -85,14 +85,21 @@ impl StackPlan {
             )
             .with_fix("export the DSM with its CRS from the photogrammetry software, or assign one (GDAL: -a_srs EPSG:XXXX)"));
         }
-        dsm_grid.cell_size_m(0.0).map_err(|e| e.in_file(&recipe.dsm))?;
+        dsm_grid
+            .cell_size_m(0.0)
+            .map_err(|e| e.in_file(&recipe.dsm))?;
 
         let (spectral_inputs, alpha) = open_spectral(&recipe)?;
         let mut other_grids: Vec<Grid> = Vec::new();
         let mut seen = BTreeSet::new();
         for input in &spectral_inputs {
             if seen.insert(input.band.path.clone()) {
-                check_overlap(&recipe.dsm, &dsm_grid, &input.band.path, input.source.grid())?;
+                check_overlap(
+                    &recipe.dsm,
+                    &dsm_grid,
+                    &input.band.path,
+                    input.source.grid(),
+                )?;
                 other_grids.push(input.source.grid().clone());
             }
         }
@@ -106,7 +113,11 @@ impl StackPlan {
                 if !g.crs.same_as(&dsm_grid.crs) {
                     return Err(Error::file(
                         &recipe.dsm,
-                        format!("the DSM lies in {} but the common grid in {}", dsm_grid.crs.label(), g.crs.label()),
+                        format!(
+                            "the DSM lies in {} but the common grid in {}",
+                            dsm_grid.crs.label(),
+                            g.crs.label()
+                        ),
                     )
                     .with_fix("give every flight of a multi-temporal stack the same CRS"));
                 }
@@ -118,7 +129,10 @@ impl StackPlan {
         target.nodata = Some(f64::NAN);
         let dsm_on_target = dsm_grid.same_geometry(&target, 0.0);
 
-        let mapped: Vec<Role> = spectral_inputs.iter().map(|s| s.band.role.clone()).collect();
+        let mapped: Vec<Role> = spectral_inputs
+            .iter()
+            .map(|s| s.band.role.clone())
+            .collect();
         let shape = if recipe.window == "square" {
             WindowShape::Square
         } else {
@@ -145,7 +159,11 @@ impl StackPlan {
                     }
                 }
             } else if let Ok(index) = spectral::find_index(&w) {
-                if let Some(missing) = index.required_roles().into_iter().find(|r| !mapped.contains(r)) {
+                if let Some(missing) = index
+                    .required_roles()
+                    .into_iter()
+                    .find(|r| !mapped.contains(r))
+                {
                     return Err(Error::usage(format!(
                         "index {} needs the `{missing}` band, which is not mapped",
                         index.name
@@ -157,20 +175,22 @@ impl StackPlan {
                 }
                 bands.push(index_band(index, recipe.resampling));
             } else {
-                let expanded = terrain::expand(std::slice::from_ref(&w), &recipe.scales_m).map_err(|e| {
-                    let names: Vec<&str> = spectral::catalogue().iter().map(|i| i.name).collect();
-                    match e {
-                        Error::Usage { problem, fix } => Error::Usage {
-                            problem,
-                            fix: Some(format!(
-                                "{}; spectral words: reflectance, indices, {}",
-                                fix.unwrap_or_default(),
-                                names.join(", ")
-                            )),
-                        },
-                        other => other,
-                    }
-                })?;
+                let expanded = terrain::expand(std::slice::from_ref(&w), &recipe.scales_m)
+                    .map_err(|e| {
+                        let names: Vec<&str> =
+                            spectral::catalogue().iter().map(|i| i.name).collect();
+                        match e {
+                            Error::Usage { problem, fix } => Error::Usage {
+                                problem,
+                                fix: Some(format!(
+                                    "{}; spectral words: reflectance, indices, {}",
+                                    fix.unwrap_or_default(),
+                                    names.join(", ")
+                                )),
+                            },
+                            other => other,
+                        }
+                    })?;
                 for feature in expanded {
                     let (wx, wy) = feature.window_px(hx, hy);
                     bands.push(BandPlan {
@@ -195,12 +215,22 @@ impl StackPlan {
                 return Err(Error::usage(format!(
                     "expression {name} uses the `{missing}` band, which is not mapped"
                 ))
-                .with_fix(format!("map it with --bands {missing}=N or --band {missing}=FILE")));
+                .with_fix(format!(
+                    "map it with --bands {missing}=N or --band {missing}=FILE"
+                )));
             }
             let mut extra = serde_json::Map::new();
             extra.insert("expression".into(), text.clone().into());
-            extra.insert("resampling".into(), serde_json::to_value(recipe.resampling).unwrap_or_default());
-            let source = expr.roles().iter().map(|r| r.name().to_string()).collect::<Vec<_>>().join(",");
+            extra.insert(
+                "resampling".into(),
+                serde_json::to_value(recipe.resampling).unwrap_or_default(),
+            );
+            let source = expr
+                .roles()
+                .iter()
+                .map(|r| r.name().to_string())
+                .collect::<Vec<_>>()
+                .join(",");
             bands.push(BandPlan {
                 producer: Producer::Expression(expr),
                 name: name.clone(),
@@ -218,8 +248,10 @@ impl StackPlan {
         let mut names = BTreeSet::new();
         bands.retain(|b| names.insert(b.name.clone()));
         if bands.is_empty() {
-            return Err(Error::usage("the recipe produces no band (no spectral band is mapped for the spectral words)")
-                .with_fix("add terrain features, or map orthomosaic bands with --ortho/--bands"));
+            return Err(Error::usage(
+                "the recipe produces no band (no spectral band is mapped for the spectral words)",
+            )
+            .with_fix("add terrain features, or map orthomosaic bands with --ortho/--bands"));
         }
         let halo = terrain_features
             .iter()
@@ -244,7 +276,9 @@ impl StackPlan {
 
     /// Whether any band needs orthomosaic reflectance.
     pub fn needs_spectral(&self) -> bool {
-        self.bands.iter().any(|b| !matches!(b.producer, Producer::Terrain(_)))
+        self.bands
+            .iter()
+            .any(|b| !matches!(b.producer, Producer::Terrain(_)))
     }
 
     /// Bytes one block of `block` x `block` cells needs while it is computed: the DSM
@@ -290,7 +324,9 @@ impl StackPlan {
 }
 
 /// Open the orthomosaic (one file, several roles) and per-band files; check band numbers.
-fn open_spectral(recipe: &Recipe) -> Result<(Vec<SpectralInput>, Option<(Arc<dyn RasterSource>, usize)>)> {
+fn open_spectral(
+    recipe: &Recipe,
+) -> Result<(Vec<SpectralInput>, Option<(Arc<dyn RasterSource>, usize)>)> {
     let mut inputs = Vec::new();
     let mut sources: Vec<BandSource> = Vec::new();
     let mut alpha = None;
@@ -324,10 +360,12 @@ fn open_spectral(recipe: &Recipe) -> Result<(Vec<SpectralInput>, Option<(Arc<dyn
     for spec in &recipe.band_files {
         let (role, path, band) = spectral::parse_band_file(spec)?;
         let role = role.ok_or_else(|| {
-            Error::usage(format!("--band {spec:?} does not name a role")).with_fix("write --band ROLE=FILE[:BAND]")
+            Error::usage(format!("--band {spec:?} does not name a role"))
+                .with_fix("write --band ROLE=FILE[:BAND]")
         })?;
         if sources.iter().any(|s| s.role == role) {
-            return Err(Error::usage(format!("role `{role}` is mapped twice")).with_fix("map each role once"));
+            return Err(Error::usage(format!("role `{role}` is mapped twice"))
+                .with_fix("map each role once"));
         }
         let src = open_once(&path)?;
         spectral::check_band_exists(&path, band, src.band_count(), &role)?;
@@ -372,7 +410,9 @@ fn check_overlap(dsm_path: &Path, dsm: &Grid, path: &Path, grid: &Grid) -> Resul
                 dsm.crs.label()
             ),
         )
-        .with_fix("reproject it onto the DSM's CRS first, or build terrastack with `--features gdal`"));
+        .with_fix(
+            "reproject it onto the DSM's CRS first, or build terrastack with `--features gdal`",
+        ));
         #[cfg(feature = "gdal")]
         return Ok(()); // GDAL's warper aligns it; overlap is checked in the target CRS by warping.
     }
@@ -406,7 +446,12 @@ fn reference_elevation(dsm: &dyn RasterSource) -> Result<f64> {
     let g = dsm.grid();
     let w = 64.min(g.width);
     let h = 64.min(g.height);
-    let win = Window::new(((g.width - w) / 2) as i64, ((g.height - h) / 2) as i64, w, h);
+    let win = Window::new(
+        ((g.width - w) / 2) as i64,
+        ((g.height - h) / 2) as i64,
+        w,
+        h,
+    );
     let data = dsm.read_window(1, win)?;
     let mut valid: Vec<f32> = data.iter().copied().filter(|v| v.is_finite()).collect();
     if valid.is_empty() {
@@ -420,11 +465,17 @@ fn reflectance_band(input: &SpectralInput, resampling: Resampling) -> BandPlan {
     let role = input.band.role.clone();
     let mut extra = serde_json::Map::new();
     extra.insert("role".into(), role.name().into());
-    extra.insert("source_path".into(), input.band.path.to_string_lossy().into_owned().into());
+    extra.insert(
+        "source_path".into(),
+        input.band.path.to_string_lossy().into_owned().into(),
+    );
     extra.insert("source_band".into(), input.band.band.into());
     extra.insert("reflectance_scale".into(), input.band.scale.into());
     extra.insert("reflectance_offset".into(), input.band.offset.into());
-    extra.insert("resampling".into(), serde_json::to_value(resampling).unwrap_or_default());
+    extra.insert(
+        "resampling".into(),
+        serde_json::to_value(resampling).unwrap_or_default(),
+    );
     BandPlan {
         name: format!("reflectance_{}", role.name()),
         producer: Producer::Reflectance(role.clone()),
@@ -440,11 +491,18 @@ fn reflectance_band(input: &SpectralInput, resampling: Resampling) -> BandPlan {
 }
 
 fn index_band(index: &'static SpectralIndex, resampling: Resampling) -> BandPlan {
-    let roles: Vec<String> = index.required_roles().iter().map(|r| r.name().to_string()).collect();
+    let roles: Vec<String> = index
+        .required_roles()
+        .iter()
+        .map(|r| r.name().to_string())
+        .collect();
     let mut extra = serde_json::Map::new();
     extra.insert("formula".into(), index.formula.into());
     extra.insert("reference".into(), index.reference.into());
-    extra.insert("resampling".into(), serde_json::to_value(resampling).unwrap_or_default());
+    extra.insert(
+        "resampling".into(),
+        serde_json::to_value(resampling).unwrap_or_default(),
+    );
     BandPlan {
         producer: Producer::Index(index),
         name: index.name.to_string(),
@@ -454,7 +512,11 @@ fn index_band(index: &'static SpectralIndex, resampling: Resampling) -> BandPlan
         window_px: None,
         units: "unitless".into(),
         source: roles.join(","),
-        ramp: if index.name == "ndwi" { RampKind::Diverging } else { RampKind::Sequential },
+        ramp: if index.name == "ndwi" {
+            RampKind::Diverging
+        } else {
+            RampKind::Sequential
+        },
         extra,
     }
 }
@@ -463,8 +525,15 @@ fn index_band(index: &'static SpectralIndex, resampling: Resampling) -> BandPlan
 fn ramp_for(feature: &str) -> RampKind {
     match feature {
         "aspect" => RampKind::Cyclic,
-        "tpi" | "dev" | "northness" | "eastness" | "profile_curvature" | "plan_curvature"
-        | "tangential_curvature" | "mean_curvature" | "gaussian_curvature" => RampKind::Diverging,
+        "tpi"
+        | "dev"
+        | "northness"
+        | "eastness"
+        | "profile_curvature"
+        | "plan_curvature"
+        | "tangential_curvature"
+        | "mean_curvature"
+        | "gaussian_curvature" => RampKind::Diverging,
         _ => RampKind::Sequential,
     }
 }

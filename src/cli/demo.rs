@@ -1,0 +1,102 @@
+//! `terrastack demo`: builds the stack of every flight of the bundled demo site
+//! (`sample-dsm/`, invented data) and prints where the outputs are and a band table.
+//!
+//! The demo replaces the stacks it built before in its own output folder, so it can be run
+//! again and again.
+
+use std::path::{Path, PathBuf};
+
+use serde_json::Value;
+use terrastack::stack::{self, BuildOptions, Progress, Recipe, RecipeFlags};
+use terrastack::{Error, Result};
+
+use crate::cli::build::print_summary;
+
+#[derive(clap::Args)]
+pub struct Args {
+    /// Where the demo's stacks go (one folder per flight date).
+    #[arg(long, value_name = "DIR", default_value = "terrastack-demo")]
+    pub out: PathBuf,
+    /// The demo site's folder (default: ./sample-dsm, else the one in the source tree).
+    #[arg(long, value_name = "DIR")]
+    pub data: Option<PathBuf>,
+    /// No progress output.
+    #[arg(long, short)]
+    pub quiet: bool,
+}
+
+/// The demo site's folder: the one given, `./sample-dsm`, or the source tree's.
+fn data_dir(given: Option<PathBuf>) -> Result<PathBuf> {
+    if let Some(d) = given {
+        return Ok(d);
+    }
+    let here = PathBuf::from("sample-dsm");
+    if here.join("site.json").exists() {
+        return Ok(here);
+    }
+    let built_in = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-dsm");
+    if built_in.join("site.json").exists() {
+        return Ok(built_in);
+    }
+    Err(
+        Error::usage("cannot find the demo site (sample-dsm/site.json)")
+            .with_fix("run from the terrastack source folder, or pass --data PATH/TO/sample-dsm"),
+    )
+}
+
+pub fn run(args: Args) -> Result<()> {
+    let data = data_dir(args.data)?;
+    let site_path = data.join("site.json");
+    let text = std::fs::read_to_string(&site_path).map_err(|e| Error::io(&site_path, e))?;
+    let site: Value = serde_json::from_str(&text)
+        .map_err(|e| Error::file(&site_path, format!("not a demo site description: {e}")))?;
+    let flights = site["flights"].as_array().ok_or_else(|| {
+        Error::file(&site_path, "has no `flights` list").with_fix("regenerate the demo site")
+    })?;
+    let bands: Vec<String> = site["ortho"]["bands"]
+        .as_array()
+        .map(|b| {
+            b.iter()
+                .filter_map(|v| v.as_str().map(String::from))
+                .collect()
+        })
+        .unwrap_or_default();
+    let band_map = bands
+        .iter()
+        .enumerate()
+        .map(|(i, role)| format!("{role}={}", i + 1))
+        .collect::<Vec<_>>()
+        .join(",");
+    if let Some(name) = site["name"].as_str() {
+        println!(
+            "demo site: {name} (invented data), {} flights",
+            flights.len()
+        );
+    }
+    for flight in flights {
+        let date = flight["date"].as_str().unwrap_or("flight");
+        let dsm = data.join(flight["dsm"].as_str().unwrap_or_default());
+        let ortho = data.join(flight["ortho"].as_str().unwrap_or_default());
+        let flags = RecipeFlags {
+            dsm: Some(dsm),
+            ortho: Some(ortho),
+            bands: Some(band_map.clone()),
+            reflectance_scale: Some("1/10000".into()),
+            ..Default::default()
+        };
+        let recipe = Recipe::resolve(None, &flags)?;
+        let mut options = BuildOptions::new(args.out.join(date));
+        options.force = true;
+        options.date = Some(date.to_string());
+        options.progress = if args.quiet {
+            Progress::Quiet
+        } else {
+            Progress::Auto
+        };
+        println!();
+        println!("flight {date}");
+        let report = stack::build(recipe, &options)?;
+        print_summary(&report);
+    }
+    Ok(())
+}

@@ -1,0 +1,335 @@
+//! GeoKeys: the GeoKeyDirectory and its double/ASCII parameter tags (OGC GeoTIFF 1.1,
+//! OGC 19-008r4, §7.1 and the key tables of §7.4), turned into a [`Crs`] and a raster
+//! space, and built back from them.
+//!
+//! Only what terrastack needs is interpreted: model type, raster type (pixel-is-area or
+//! pixel-is-point), the projected, geodetic and vertical CRS codes, the projected linear
+//! unit and the citations. A user-defined CRS (code 32767) is kept as projected or
+//! geographic with no EPSG code and its linear unit from ProjLinearUnitsGeoKey.
+
+use crate::grid::{Crs, CrsKind, RasterSpace, FOOT_M, US_SURVEY_FOOT_M};
+
+use super::tags::Problem;
+
+// Key identifiers, OGC GeoTIFF 1.1 §7.4 (names as in GeoTIFF 1.0 where they differ).
+pub const GT_MODEL_TYPE: u16 = 1024;
+pub const GT_RASTER_TYPE: u16 = 1025;
+pub const GT_CITATION: u16 = 1026;
+pub const GEOGRAPHIC_TYPE: u16 = 2048;
+pub const GEOG_CITATION: u16 = 2049;
+pub const GEOG_ANGULAR_UNITS: u16 = 2054;
+pub const PROJECTED_CS_TYPE: u16 = 3072;
+pub const PT_CITATION: u16 = 3073;
+pub const PROJ_LINEAR_UNITS: u16 = 3076;
+pub const PROJ_LINEAR_UNIT_SIZE: u16 = 3077;
+pub const VERTICAL_CS_TYPE: u16 = 4096;
+
+/// "User-defined" code (OGC GeoTIFF 1.1 §7.4).
+pub const USER_DEFINED: u16 = 32767;
+
+/// The value of one key.
+#[derive(Clone, Debug, PartialEq)]
+pub enum KeyValue {
+    Short(u16),
+    Doubles(Vec<f64>),
+    Ascii(String),
+}
+
+/// A parsed key directory.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct GeoKeys {
+    pub keys: Vec<(u16, KeyValue)>,
+}
+
+impl GeoKeys {
+    /// Parse the directory (tag 34735) with its double (34736) and ASCII (34737) params.
+    pub fn parse(dir: &[u64], doubles: &[f64], ascii: &str) -> Result<GeoKeys, Problem> {
+        if dir.len() < 4 {
+            return Err("the GeoKeyDirectory tag is shorter than its 4-value header".into());
+        }
+        let n = dir[3] as usize;
+        if dir.len() < 4 + 4 * n {
+            return Err(format!(
+                "the GeoKeyDirectory announces {n} keys but holds only {}",
+                (dir.len() - 4) / 4
+            ));
+        }
+        let mut keys = Vec::with_capacity(n);
+        for k in dir[4..4 + 4 * n].chunks_exact(4) {
+            let (id, location, count, value) = (k[0] as u16, k[1], k[2] as usize, k[3] as usize);
+            let v = match location {
+                0 => KeyValue::Short(value as u16),
+                34736 => {
+                    let end = value.checked_add(count).filter(|e| *e <= doubles.len());
+                    match end {
+                        Some(end) => KeyValue::Doubles(doubles[value..end].to_vec()),
+                        None => {
+                            return Err(format!(
+                                "GeoKey {id} points past the end of GeoDoubleParams"
+                            ))
+                        }
+                    }
+                }
+                34737 => {
+                    let bytes = ascii.as_bytes();
+                    let end = value.checked_add(count).filter(|e| *e <= bytes.len());
+                    match end {
+                        Some(end) => {
+                            let s = String::from_utf8_lossy(&bytes[value..end]);
+                            KeyValue::Ascii(s.trim_end_matches(['|', '\0']).to_string())
+                        }
+                        None => {
+                            return Err(format!(
+                                "GeoKey {id} points past the end of GeoAsciiParams"
+                            ))
+                        }
+                    }
+                }
+                // Keys stored in other tags are not needed by terrastack.
+                _ => continue,
+            };
+            keys.push((id, v));
+        }
+        Ok(GeoKeys { keys })
+    }
+
+    fn short(&self, id: u16) -> Option<u16> {
+        self.keys.iter().find_map(|(k, v)| match v {
+            KeyValue::Short(s) if *k == id => Some(*s),
+            _ => None,
+        })
+    }
+
+    fn double(&self, id: u16) -> Option<f64> {
+        self.keys.iter().find_map(|(k, v)| match v {
+            KeyValue::Doubles(d) if *k == id => d.first().copied(),
+            _ => None,
+        })
+    }
+
+    fn ascii(&self, id: u16) -> Option<String> {
+        self.keys.iter().find_map(|(k, v)| match v {
+            KeyValue::Ascii(s) if *k == id && !s.is_empty() => Some(s.clone()),
+            _ => None,
+        })
+    }
+
+    /// Pixel-is-point when GTRasterTypeGeoKey is 2, otherwise pixel-is-area (the default).
+    pub fn raster_space(&self) -> RasterSpace {
+        if self.short(GT_RASTER_TYPE) == Some(2) {
+            RasterSpace::Point
+        } else {
+            RasterSpace::Area
+        }
+    }
+
+    /// The CRS the keys describe.
+    pub fn crs(&self) -> Crs {
+        let model = self.short(GT_MODEL_TYPE);
+        let projected = self.short(PROJECTED_CS_TYPE);
+        let geographic = self.short(GEOGRAPHIC_TYPE);
+        let mut crs = match (model, projected, geographic) {
+            (Some(1), _, _) | (None, Some(_), _) => {
+                let mut c = match projected {
+                    Some(code) if code != USER_DEFINED && code != 0 => Crs::from_epsg(code as u32),
+                    _ => {
+                        let mut c = Crs::none();
+                        c.kind = CrsKind::Projected;
+                        c
+                    }
+                };
+                if let Some(u) = self.linear_unit_m() {
+                    c.linear_unit_m = Some(u);
+                }
+                if c.name.is_none() {
+                    c.name = self.ascii(PT_CITATION).or_else(|| self.ascii(GT_CITATION));
+                }
+                c
+            }
+            (Some(2), _, _) | (None, None, Some(_)) => match geographic {
+                Some(code) if code != USER_DEFINED && code != 0 => {
+                    let mut c = Crs::from_epsg(code as u32);
+                    c.kind = CrsKind::Geographic;
+                    c
+                }
+                _ => {
+                    let mut c = Crs::none();
+                    c.kind = CrsKind::Geographic;
+                    c.name = self
+                        .ascii(GEOG_CITATION)
+                        .or_else(|| self.ascii(GT_CITATION));
+                    c
+                }
+            },
+            _ => {
+                let mut c = Crs::none();
+                c.name = self.ascii(GT_CITATION);
+                c
+            }
+        };
+        if let Some(v) = self.short(VERTICAL_CS_TYPE) {
+            if v != USER_DEFINED && v != 0 {
+                crs.vertical_epsg = Some(v as u32);
+            }
+        }
+        crs
+    }
+
+    /// Metres per projected unit from ProjLinearUnitsGeoKey (EPSG 9001 metre, 9002 foot,
+    /// 9003 US survey foot, 9036 kilometre) or ProjLinearUnitSizeGeoKey for user units.
+    fn linear_unit_m(&self) -> Option<f64> {
+        match self.short(PROJ_LINEAR_UNITS)? {
+            9001 => Some(1.0),
+            9002 => Some(FOOT_M),
+            9003 => Some(US_SURVEY_FOOT_M),
+            9036 => Some(1000.0),
+            USER_DEFINED => self.double(PROJ_LINEAR_UNIT_SIZE),
+            _ => None,
+        }
+    }
+}
+
+/// Key directory, double params and ASCII params describing `crs` and `space`.
+pub fn build(crs: &Crs, space: RasterSpace) -> (Vec<u16>, Vec<f64>, String) {
+    let mut shorts: Vec<(u16, u16)> = Vec::new();
+    let mut doubles_keys: Vec<(u16, f64)> = Vec::new();
+    let mut ascii_keys: Vec<(u16, String)> = Vec::new();
+    match crs.kind {
+        CrsKind::Projected => shorts.push((GT_MODEL_TYPE, 1)),
+        CrsKind::Geographic => shorts.push((GT_MODEL_TYPE, 2)),
+        CrsKind::Unknown => {}
+    }
+    shorts.push((
+        GT_RASTER_TYPE,
+        match space {
+            RasterSpace::Area => 1,
+            RasterSpace::Point => 2,
+        },
+    ));
+    if let Some(name) = &crs.name {
+        ascii_keys.push((GT_CITATION, name.clone()));
+    }
+    match crs.kind {
+        CrsKind::Projected => {
+            let code = crs
+                .epsg
+                .filter(|c| *c < USER_DEFINED as u32)
+                .map(|c| c as u16)
+                .unwrap_or(USER_DEFINED);
+            shorts.push((PROJECTED_CS_TYPE, code));
+            if let Some(u) = crs.linear_unit_m {
+                let unit = if u == 1.0 {
+                    9001
+                } else if u == FOOT_M {
+                    9002
+                } else if u == US_SURVEY_FOOT_M {
+                    9003
+                } else {
+                    doubles_keys.push((PROJ_LINEAR_UNIT_SIZE, u));
+                    USER_DEFINED
+                };
+                shorts.push((PROJ_LINEAR_UNITS, unit));
+            }
+        }
+        CrsKind::Geographic => {
+            let code = crs
+                .epsg
+                .filter(|c| *c < USER_DEFINED as u32)
+                .map(|c| c as u16)
+                .unwrap_or(USER_DEFINED);
+            shorts.push((GEOGRAPHIC_TYPE, code));
+            shorts.push((GEOG_ANGULAR_UNITS, 9102)); // EPSG 9102: degree
+        }
+        CrsKind::Unknown => {}
+    }
+    if let Some(v) = crs.vertical_epsg.filter(|c| *c < USER_DEFINED as u32) {
+        shorts.push((VERTICAL_CS_TYPE, v as u16));
+    }
+
+    let mut entries: Vec<[u16; 4]> = Vec::new();
+    for (id, v) in shorts {
+        entries.push([id, 0, 1, v]);
+    }
+    let mut doubles = Vec::new();
+    for (id, v) in doubles_keys {
+        entries.push([id, 34736, 1, doubles.len() as u16]);
+        doubles.push(v);
+    }
+    let mut ascii = String::new();
+    for (id, s) in ascii_keys {
+        let clean: String = s.chars().map(|c| if c == '|' { '/' } else { c }).collect();
+        let start = ascii.len();
+        ascii.push_str(&clean);
+        ascii.push('|');
+        entries.push([id, 34737, (ascii.len() - start) as u16, start as u16]);
+    }
+    entries.sort_by_key(|e| e[0]);
+    // Header: KeyDirectoryVersion 1, KeyRevision 1, MinorRevision 0 (GeoTIFF 1.0 key
+    // names, which GDAL and every GeoTIFF 1.1 reader accept), number of keys.
+    let mut dir = vec![1u16, 1, 0, entries.len() as u16];
+    for e in entries {
+        dir.extend_from_slice(&e);
+    }
+    (dir, doubles, ascii)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn round(crs: &Crs, space: RasterSpace) -> GeoKeys {
+        let (dir, doubles, ascii) = build(crs, space);
+        let dir: Vec<u64> = dir.into_iter().map(u64::from).collect();
+        GeoKeys::parse(&dir, &doubles, &ascii).unwrap()
+    }
+
+    #[test]
+    fn utm_round_trip() {
+        let crs = Crs::from_epsg(32633);
+        let k = round(&crs, RasterSpace::Area);
+        assert_eq!(k.crs(), crs);
+        assert_eq!(k.raster_space(), RasterSpace::Area);
+    }
+
+    #[test]
+    fn us_feet_and_point_space() {
+        // EPSG:2227 (NAD83 / California zone 3 (ftUS)) with EPSG 9003, the US survey foot
+        // of 1200/3937 m (EPSG registry).
+        let mut crs = Crs::from_epsg(2227);
+        crs.linear_unit_m = Some(US_SURVEY_FOOT_M);
+        let k = round(&crs, RasterSpace::Point);
+        let back = k.crs();
+        assert_eq!(back.epsg, Some(2227));
+        assert_eq!(back.linear_unit_m, Some(1200.0 / 3937.0));
+        assert_eq!(k.raster_space(), RasterSpace::Point);
+    }
+
+    #[test]
+    fn geographic_with_vertical() {
+        let mut crs = Crs::from_epsg(4326);
+        crs.vertical_epsg = Some(5773); // EGM96 height (EPSG registry)
+        let back = round(&crs, RasterSpace::Area).crs();
+        assert_eq!(back.kind, CrsKind::Geographic);
+        assert_eq!(back.epsg, Some(4326));
+        assert_eq!(back.vertical_epsg, Some(5773));
+    }
+
+    #[test]
+    fn user_defined_unit_size() {
+        let mut crs = Crs::none();
+        crs.kind = CrsKind::Projected;
+        crs.linear_unit_m = Some(0.201168); // a chain-based unit, value from memory
+        crs.name = Some("local grid".into());
+        let back = round(&crs, RasterSpace::Area).crs();
+        assert_eq!(back.epsg, None);
+        assert_eq!(back.linear_unit_m, Some(0.201168));
+        assert_eq!(back.name.as_deref(), Some("local grid"));
+    }
+
+    #[test]
+    fn short_directory_is_a_problem() {
+        assert!(GeoKeys::parse(&[1, 1, 0], &[], "").is_err());
+        assert!(GeoKeys::parse(&[1, 1, 0, 3, 1024, 0, 1, 1], &[], "").is_err());
+        assert!(GeoKeys::parse(&[1, 1, 0, 1, 3077, 34736, 1, 5], &[1.0], "").is_err());
+    }
+}

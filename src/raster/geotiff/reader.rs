@@ -1,0 +1,699 @@
+//! The windowed GeoTIFF reader.
+//!
+//! Opening reads the header and the first image file directory only (later directories
+//! hold overviews or masks). A window read decodes just the strips or tiles it touches;
+//! decoded blocks are kept in a small least-recently-used cache shared by all threads, so
+//! memory depends on the cache size and the window, never on the file. Blocks are read
+//! with positioned reads (no shared file cursor, no lock) and decompressed outside the
+//! cache lock, so many threads can read one file at once.
+
+use std::collections::HashMap;
+use std::fs::File;
+use std::path::{Path, PathBuf};
+use std::sync::{Arc, Mutex};
+
+use ndarray::Array2;
+
+use crate::error::{Error, Result};
+use crate::grid::{Crs, Grid, RasterSpace, Window, MAX_DIMENSION};
+use crate::raster::{check_band, BandInfo, RasterSource, SampleType};
+
+use super::codec::{self, ChunkShape, Codec};
+use super::geokeys::GeoKeys;
+use super::tags::{self, ByteOrder, Ifd};
+use super::{
+    metadata, Compression, Interleave, Layout, MetadataItem, TiffSample, CACHE_BYTES,
+    MAX_BLOCK_BYTES,
+};
+
+/// Hint for corrupt or truncated files.
+const FIX_CORRUPT: &str =
+    "the file is damaged or was not completely written: copy or export it again";
+
+/// Decoded blocks, least recently used evicted first.
+struct BlockCache {
+    blocks: HashMap<usize, (Arc<Vec<u8>>, u64)>,
+    bytes: usize,
+    tick: u64,
+}
+
+impl BlockCache {
+    fn get(&mut self, index: usize) -> Option<Arc<Vec<u8>>> {
+        self.tick += 1;
+        let tick = self.tick;
+        self.blocks.get_mut(&index).map(|(b, t)| {
+            *t = tick;
+            b.clone()
+        })
+    }
+
+    fn put(&mut self, index: usize, block: Arc<Vec<u8>>) {
+        self.tick += 1;
+        let len = block.len();
+        if len > CACHE_BYTES {
+            return;
+        }
+        while self.bytes + len > CACHE_BYTES {
+            let Some((&oldest, _)) = self.blocks.iter().min_by_key(|(_, (_, t))| *t) else {
+                break;
+            };
+            if let Some((b, _)) = self.blocks.remove(&oldest) {
+                self.bytes -= b.len();
+            }
+        }
+        if let Some((old, _)) = self.blocks.insert(index, (block, self.tick)) {
+            self.bytes -= old.len();
+        }
+        self.bytes += len;
+    }
+}
+
+/// Windowed GeoTIFF reader: strips or tiles, chunky or planar, every sample type of
+/// [`SampleType`], no compression, LZW, Deflate, PackBits or ZSTD with predictor 1, 2 or
+/// 3, classic TIFF or BigTIFF in either byte order.
+///
+/// Georeferencing comes from ModelPixelScale + ModelTiepoint or ModelTransformation and
+/// the GeoKeys (OGC GeoTIFF 1.1); a pixel-is-point file's transform is shifted by half a
+/// cell so that [`Grid::transform`] is in the pixel-is-area convention, as GDAL does. A
+/// TIFF without georeferencing tags opens with [`Crs::none`] and the transform
+/// `[0, 1, 0, 0, 0, 1]` (x = column, y = row, GDAL's default), and
+/// [`GeoTiffReader::is_georeferenced`] returns false. Nodata comes from GDAL's
+/// GDAL_NODATA tag (42113) and band descriptions from GDAL_METADATA (42112).
+pub struct GeoTiffReader {
+    path: PathBuf,
+    file: File,
+    file_len: u64,
+    grid: Grid,
+    space: RasterSpace,
+    georeferenced: bool,
+    bands: Vec<BandInfo>,
+    sample_type: SampleType,
+    spp: usize,
+    planar: bool,
+    tiled: bool,
+    block_w: usize,
+    block_h: usize,
+    across: usize,
+    down: usize,
+    offsets: Vec<u64>,
+    counts: Vec<u64>,
+    codec: Codec,
+    predictor: u16,
+    order: ByteOrder,
+    big: bool,
+    metadata: Vec<MetadataItem>,
+    cache: Mutex<BlockCache>,
+}
+
+fn sample_type_of(bits: u64, format: u64) -> Option<SampleType> {
+    match (format, bits) {
+        (1, 8) => Some(SampleType::U8),
+        (1, 16) => Some(SampleType::U16),
+        (2, 16) => Some(SampleType::I16),
+        (1, 32) => Some(SampleType::U32),
+        (2, 32) => Some(SampleType::I32),
+        (3, 32) => Some(SampleType::F32),
+        (3, 64) => Some(SampleType::F64),
+        _ => None,
+    }
+}
+
+fn format_name(format: u64) -> &'static str {
+    match format {
+        1 => "unsigned integer",
+        2 => "signed integer",
+        3 => "floating point",
+        _ => "undefined",
+    }
+}
+
+/// Parse GDAL's nodata text ("-9999", "nan", "-3.4028234663852886e+38").
+pub(crate) fn parse_nodata(text: &str) -> Option<f64> {
+    let t = text.trim().trim_end_matches('\0').trim();
+    if t.is_empty() {
+        return None;
+    }
+    t.parse::<f64>()
+        .ok()
+        .or_else(|| match t.to_ascii_lowercase().as_str() {
+            "nan" | "-nan" | "+nan" => Some(f64::NAN),
+            "inf" | "+inf" | "infinity" => Some(f64::INFINITY),
+            "-inf" | "-infinity" => Some(f64::NEG_INFINITY),
+            _ => None,
+        })
+}
+
+impl GeoTiffReader {
+    /// Open `path` and read its directory and georeferencing. Fails with a message naming
+    /// the file and a fix for: a missing file, a non-TIFF, a truncated or corrupt
+    /// directory, sample types or compressions terrastack does not read, absurd sizes,
+    /// rotated or GCP-based georeferencing.
+    pub fn open(path: &Path) -> Result<GeoTiffReader> {
+        let file = File::open(path).map_err(|e| Error::io(path, e))?;
+        let file_len = file.metadata().map_err(|e| Error::io(path, e))?.len();
+        let mut head = vec![0u8; file_len.min(16) as usize];
+        tags::read_exact_at(&file, &mut head, 0).map_err(|e| Error::io(path, e))?;
+        let bad = |p: String| Error::file(path, p).with_fix(FIX_CORRUPT);
+        let header = tags::parse_header(&head).map_err(|p| {
+            Error::file(path, p).with_fix(
+                "give a GeoTIFF file (.tif); convert other formats with GDAL, or build terrastack with `--features gdal`",
+            )
+        })?;
+        let ifd = tags::read_first_ifd(&file, file_len, &header).map_err(bad)?;
+        Self::from_ifd(path, file, file_len, header, ifd)
+    }
+
+    fn from_ifd(
+        path: &Path,
+        file: File,
+        file_len: u64,
+        header: tags::Header,
+        ifd: Ifd,
+    ) -> Result<GeoTiffReader> {
+        let bad = |p: String| Error::file(path, p).with_fix(FIX_CORRUPT);
+        let unsupported = |p: String| {
+            Error::file(path, p).with_fix(
+                "convert it with GDAL to a supported layout, e.g. `gdal_translate -ot Float32 -co COMPRESS=DEFLATE IN OUT.tif`",
+            )
+        };
+        let need = |tag: u16, what: &str| -> Result<u64> {
+            ifd.uint(tag)
+                .map_err(bad)?
+                .ok_or_else(|| bad(format!("the TIFF directory has no {what} (tag {tag})")))
+        };
+        let width = need(tags::IMAGE_WIDTH, "image width")?;
+        let height = need(tags::IMAGE_LENGTH, "image height")?;
+        if width == 0
+            || height == 0
+            || width > MAX_DIMENSION as u64
+            || height > MAX_DIMENSION as u64
+        {
+            return Err(bad(format!(
+                "the image size {width} x {height} is outside 1..={MAX_DIMENSION} cells per side"
+            )));
+        }
+        let (width, height) = (width as usize, height as usize);
+        let spp = ifd.uint(tags::SAMPLES_PER_PIXEL).map_err(bad)?.unwrap_or(1);
+        if spp == 0 || spp > 65_535 {
+            return Err(bad(format!("the file declares {spp} samples per pixel")));
+        }
+        let spp = spp as usize;
+        let bits = ifd
+            .uints(tags::BITS_PER_SAMPLE)
+            .map_err(bad)?
+            .unwrap_or(vec![1]);
+        let formats = ifd
+            .uints(tags::SAMPLE_FORMAT)
+            .map_err(bad)?
+            .unwrap_or(vec![1]);
+        if bits.iter().any(|b| *b != bits[0]) || formats.iter().any(|f| *f != formats[0]) {
+            return Err(unsupported(
+                "its bands have different sample types; terrastack reads files whose bands share one type".into(),
+            ));
+        }
+        let sample_type = sample_type_of(bits[0], formats[0]).ok_or_else(|| {
+            unsupported(format!(
+                "its samples are {}-bit {}, which terrastack does not read (it reads uint8, uint16, int16, uint32, int32, float32 and float64)",
+                bits[0],
+                format_name(formats[0])
+            ))
+        })?;
+        let compression_code = ifd.uint(tags::COMPRESSION).map_err(bad)?.unwrap_or(1);
+        let codec = Codec::from_tag(compression_code).ok_or_else(|| {
+            unsupported(format!(
+                "its compression ({}) is not one terrastack reads (none, LZW, Deflate, PackBits, ZSTD)",
+                codec::compression_name(compression_code)
+            ))
+        })?;
+        let predictor = ifd.uint(tags::PREDICTOR).map_err(bad)?.unwrap_or(1);
+        let is_float = matches!(sample_type, SampleType::F32 | SampleType::F64);
+        match (predictor, is_float) {
+            (1, _) | (2, false) | (3, true) => {}
+            _ => {
+                return Err(unsupported(format!(
+                    "predictor {predictor} cannot apply to {} samples",
+                    sample_type.name()
+                )))
+            }
+        }
+        let planar = match ifd
+            .uint(tags::PLANAR_CONFIGURATION)
+            .map_err(bad)?
+            .unwrap_or(1)
+        {
+            1 => false,
+            2 => true,
+            p => return Err(bad(format!("unknown PlanarConfiguration {p}"))),
+        };
+        let planar = planar && spp > 1;
+
+        let tiled = ifd.get(tags::TILE_WIDTH).is_some();
+        let (block_w, block_h, offsets, counts) = if tiled {
+            let tw = need(tags::TILE_WIDTH, "tile width")?;
+            let th = need(tags::TILE_LENGTH, "tile height")?;
+            if tw == 0 || th == 0 || tw > MAX_DIMENSION as u64 || th > MAX_DIMENSION as u64 {
+                return Err(bad(format!("the tile size {tw} x {th} is not usable")));
+            }
+            (
+                tw as usize,
+                th as usize,
+                ifd.uints(tags::TILE_OFFSETS).map_err(bad)?,
+                ifd.uints(tags::TILE_BYTE_COUNTS).map_err(bad)?,
+            )
+        } else {
+            let rps = ifd
+                .uint(tags::ROWS_PER_STRIP)
+                .map_err(bad)?
+                .unwrap_or(height as u64)
+                .clamp(1, height as u64);
+            (
+                width,
+                rps as usize,
+                ifd.uints(tags::STRIP_OFFSETS).map_err(bad)?,
+                ifd.uints(tags::STRIP_BYTE_COUNTS).map_err(bad)?,
+            )
+        };
+        let block_samples = if planar { 1 } else { spp };
+        let block_bytes = (block_w as u128)
+            * (block_h as u128)
+            * (block_samples as u128)
+            * (sample_type.size() as u128);
+        if block_bytes > MAX_BLOCK_BYTES as u128 {
+            return Err(unsupported(format!(
+                "one of its {} holds {block_bytes} bytes once decoded, more than terrastack's limit of {MAX_BLOCK_BYTES}",
+                if tiled { "tiles" } else { "strips" }
+            ))
+            .with_fix("rewrite it tiled, e.g. `gdal_translate -co TILED=YES IN OUT.tif`"));
+        }
+        let across = width.div_ceil(block_w);
+        let down = height.div_ceil(block_h);
+        let n_blocks = across * down * if planar { spp } else { 1 };
+        let what = if tiled { "tile" } else { "strip" };
+        let offsets =
+            offsets.ok_or_else(|| bad(format!("the TIFF directory has no {what} offsets")))?;
+        let counts = match counts {
+            Some(c) => c,
+            // Uncompressed files may omit byte counts: every block is full size.
+            None if codec == Codec::None => vec![block_bytes as u64; offsets.len()],
+            None => return Err(bad(format!("the TIFF directory has no {what} byte counts"))),
+        };
+        if offsets.len() < n_blocks || counts.len() < n_blocks {
+            return Err(bad(format!(
+                "the file lists {} {what} offsets and {} byte counts where {n_blocks} are needed",
+                offsets.len(),
+                counts.len()
+            )));
+        }
+
+        // Georeferencing.
+        let geokeys = match ifd.uints(tags::GEO_KEY_DIRECTORY).map_err(bad)? {
+            Some(dir) => {
+                let doubles = ifd
+                    .doubles(tags::GEO_DOUBLE_PARAMS)
+                    .map_err(bad)?
+                    .unwrap_or_default();
+                let ascii = ifd
+                    .get(tags::GEO_ASCII_PARAMS)
+                    .map(|e| String::from_utf8_lossy(&e.data).into_owned())
+                    .unwrap_or_default();
+                Some(GeoKeys::parse(&dir, &doubles, &ascii).map_err(bad)?)
+            }
+            None => None,
+        };
+        let space = geokeys
+            .as_ref()
+            .map(|k| k.raster_space())
+            .unwrap_or_default();
+        let crs = geokeys.as_ref().map(|k| k.crs()).unwrap_or_else(Crs::none);
+        let scale = ifd.doubles(tags::MODEL_PIXEL_SCALE).map_err(bad)?;
+        let tiepoints = ifd.doubles(tags::MODEL_TIEPOINT).map_err(bad)?;
+        let matrix = ifd.doubles(tags::MODEL_TRANSFORMATION).map_err(bad)?;
+        let no_gcps = || {
+            Error::file(
+                path,
+                "it is georeferenced by ground control points, not by a transform",
+            )
+            .with_fix("warp it to a north-up grid first, e.g. `gdalwarp IN OUT.tif`")
+        };
+        let mut transform = match (&matrix, &tiepoints, &scale) {
+            (Some(m), _, _) if m.len() >= 16 => Some([m[3], m[0], m[1], m[7], m[4], m[5]]),
+            (_, Some(tp), Some(s)) if tp.len() == 6 && s.len() >= 2 => {
+                // GDAL's arithmetic (GTiff driver): origin = tiepoint − I·scale.
+                let t1 = s[0];
+                let t5 = -s[1];
+                Some([tp[3] - tp[0] * t1, t1, 0.0, tp[4] - tp[1] * t5, 0.0, t5])
+            }
+            (_, Some(tp), _) if tp.len() >= 6 => return Err(no_gcps()),
+            _ => None,
+        };
+        let georeferenced = transform.is_some();
+        if let (Some(t), RasterSpace::Point) = (transform.as_mut(), space) {
+            // Pixel-is-point: the tiepoint is a cell centre (OGC GeoTIFF 1.1 §B.2);
+            // shift to the corner as GDAL does.
+            t[0] -= t[1] * 0.5 + t[2] * 0.5;
+            t[3] -= t[4] * 0.5 + t[5] * 0.5;
+        }
+        let transform = transform.unwrap_or([0.0, 1.0, 0.0, 0.0, 0.0, 1.0]);
+        let nodata = ifd.ascii(tags::GDAL_NODATA).and_then(|t| parse_nodata(&t));
+        let grid = Grid::new(width, height, transform, crs)
+            .map_err(|e| e.in_file(path))?
+            .with_nodata(nodata);
+
+        let metadata = ifd
+            .ascii(tags::GDAL_METADATA)
+            .map(|xml| metadata::parse(&xml))
+            .unwrap_or_default();
+        let bands = (0..spp)
+            .map(|i| BandInfo {
+                description: metadata
+                    .iter()
+                    .find(|m| m.band == Some(i + 1) && m.role.as_deref() == Some("description"))
+                    .map(|m| m.value.clone()),
+                sample_type,
+                nodata,
+            })
+            .collect();
+
+        Ok(GeoTiffReader {
+            path: path.to_path_buf(),
+            file,
+            file_len,
+            grid,
+            space,
+            georeferenced,
+            bands,
+            sample_type,
+            spp,
+            planar,
+            tiled,
+            block_w,
+            block_h,
+            across,
+            down,
+            offsets,
+            counts,
+            codec,
+            predictor: predictor as u16,
+            order: header.order,
+            big: header.big,
+            metadata,
+            cache: Mutex::new(BlockCache {
+                blocks: HashMap::new(),
+                bytes: 0,
+                tick: 0,
+            }),
+        })
+    }
+
+    /// True when the file carries a transform (ModelPixelScale + ModelTiepoint or
+    /// ModelTransformation); false for a plain TIFF, whose grid is then `[0, 1, 0, 0, 0, 1]`.
+    pub fn is_georeferenced(&self) -> bool {
+        self.georeferenced
+    }
+
+    /// The stored sample type (all bands share it).
+    pub fn sample_type(&self) -> SampleType {
+        self.sample_type
+    }
+
+    /// Tiles or strips, with their size.
+    pub fn layout(&self) -> Layout {
+        if self.tiled {
+            Layout::Tiled { size: self.block_w }
+        } else {
+            Layout::Strips {
+                rows_per_strip: self.block_h,
+            }
+        }
+    }
+
+    /// Block size in cells (width, height): the tile, or (image width, rows per strip).
+    pub fn block_size(&self) -> (usize, usize) {
+        (self.block_w, self.block_h)
+    }
+
+    /// Band-sequential (planar) or pixel-interleaved storage.
+    pub fn interleave(&self) -> Interleave {
+        if self.planar || self.spp == 1 {
+            Interleave::Band
+        } else {
+            Interleave::Pixel
+        }
+    }
+
+    /// Compression of the stored blocks.
+    pub fn compression(&self) -> Compression {
+        match self.codec {
+            Codec::None => Compression::None,
+            Codec::Lzw => Compression::Lzw,
+            Codec::Deflate => Compression::Deflate,
+            Codec::PackBits => Compression::PackBits,
+            Codec::Zstd => Compression::Zstd,
+        }
+    }
+
+    /// TIFF predictor (1 none, 2 horizontal, 3 floating point).
+    pub fn predictor(&self) -> u16 {
+        self.predictor
+    }
+
+    /// True for BigTIFF, false for classic TIFF.
+    pub fn is_bigtiff(&self) -> bool {
+        self.big
+    }
+
+    /// True when the file is big-endian ("MM").
+    pub fn is_big_endian(&self) -> bool {
+        self.order == ByteOrder::Big
+    }
+
+    /// GDAL metadata items of the file (tag 42112), dataset- and band-level.
+    pub fn metadata(&self) -> &[MetadataItem] {
+        &self.metadata
+    }
+
+    /// Number of rows in block row `block_row` (strips at the bottom may be shorter).
+    fn block_rows(&self, block_row: usize) -> usize {
+        if self.tiled {
+            self.block_h
+        } else {
+            self.block_h
+                .min(self.grid.height - block_row * self.block_h)
+        }
+    }
+
+    /// Decoded samples (machine byte order) of block `index`.
+    fn block(&self, index: usize) -> Result<Arc<Vec<u8>>> {
+        if let Some(b) = self.cache.lock().map_err(|_| self.poisoned())?.get(index) {
+            return Ok(b);
+        }
+        let per_plane = self.across * self.down;
+        let block_row = (index % per_plane) / self.across;
+        let shape = ChunkShape {
+            rows: self.block_rows(block_row),
+            row_samples: self.block_w * if self.planar { 1 } else { self.spp },
+            stride: if self.planar { 1 } else { self.spp },
+            sample_size: self.sample_type.size(),
+        };
+        let expected = shape.bytes();
+        let (offset, count) = (self.offsets[index], self.counts[index]);
+        let what = if self.tiled { "tile" } else { "strip" };
+        let data = if offset == 0 && count == 0 {
+            // A sparse block (GDAL's SPARSE_OK): reads as nodata, or 0 without nodata.
+            let fill = self.grid.nodata.unwrap_or(0.0);
+            super::fill_bytes_native(self.sample_type, fill, expected / shape.sample_size)
+        } else {
+            let end = offset.checked_add(count).filter(|e| *e <= self.file_len);
+            if end.is_none() {
+                return Err(Error::file(
+                    &self.path,
+                    format!(
+                        "{what} {index} lies past the end of the file (bytes {offset}..{}, file is {} bytes): the file is truncated",
+                        offset.saturating_add(count),
+                        self.file_len
+                    ),
+                )
+                .with_fix(FIX_CORRUPT));
+            }
+            let read_len = if self.codec == Codec::None {
+                count.min(expected as u64)
+            } else {
+                count
+            };
+            let mut raw = vec![0u8; read_len as usize];
+            tags::read_exact_at(&self.file, &mut raw, offset)
+                .map_err(|e| Error::io(&self.path, e))?;
+            let mut data = codec::decompress(self.codec, &raw, expected).map_err(|p| {
+                Error::file(&self.path, format!("{what} {index}: {p}")).with_fix(FIX_CORRUPT)
+            })?;
+            codec::decode_samples(&mut data, shape, self.order, self.predictor);
+            data
+        };
+        let data = Arc::new(data);
+        self.cache
+            .lock()
+            .map_err(|_| self.poisoned())?
+            .put(index, data.clone());
+        Ok(data)
+    }
+
+    fn poisoned(&self) -> Error {
+        Error::file(
+            &self.path,
+            "an earlier read of this file failed in another thread",
+        )
+    }
+
+    /// Copy the part of `window` inside the raster from band `band` into `out` (shaped
+    /// like the window), converting each sample with `conv`.
+    fn copy_window<T: TiffSample, O>(
+        &self,
+        band: usize,
+        window: Window,
+        out: &mut Array2<O>,
+        conv: impl Fn(T) -> O,
+    ) -> Result<()> {
+        let Some(inter) = window.intersect(&Window::full(&self.grid)) else {
+            return Ok(());
+        };
+        let ss = self.sample_type.size();
+        let (step, sub) = if self.planar {
+            (1, 0)
+        } else {
+            (self.spp, band - 1)
+        };
+        let plane = if self.planar {
+            (band - 1) * self.across * self.down
+        } else {
+            0
+        };
+        let (r0, r1) = (inter.row as usize, inter.row as usize + inter.height);
+        let (c0, c1) = (inter.col as usize, inter.col as usize + inter.width);
+        for br in r0 / self.block_h..=(r1 - 1) / self.block_h {
+            for bc in c0 / self.block_w..=(c1 - 1) / self.block_w {
+                let block = self.block(plane + br * self.across + bc)?;
+                let (by, bx) = (br * self.block_h, bc * self.block_w);
+                let rows = r0.max(by)..r1.min(by + self.block_h);
+                let cols = c0.max(bx)..c1.min(bx + self.block_w);
+                for r in rows {
+                    let orow = (r as i64 - window.row) as usize;
+                    let base = (r - by) * self.block_w;
+                    for c in cols.clone() {
+                        let i = ((base + c - bx) * step + sub) * ss;
+                        let v = T::from_ne(&block[i..i + ss]);
+                        out[[orow, (c as i64 - window.col) as usize]] = conv(v);
+                    }
+                }
+            }
+        }
+        Ok(())
+    }
+
+    fn read_f32<T: TiffSample>(&self, band: usize, window: Window) -> Result<Array2<f32>> {
+        let mut out = Array2::from_elem((window.height, window.width), f32::NAN);
+        // The nodata value as the stored type sees it; a value the type cannot hold
+        // matches nothing.
+        let nodata = self.grid.nodata.and_then(T::nodata_match);
+        match nodata {
+            Some(nd) => self.copy_window::<T, f32>(band, window, &mut out, |v| {
+                if v.to_f64() == nd {
+                    f32::NAN
+                } else {
+                    v.to_f32()
+                }
+            })?,
+            None => self.copy_window::<T, f32>(band, window, &mut out, |v| v.to_f32())?,
+        }
+        Ok(out)
+    }
+
+    /// Band `band` (1-based) over `window` exactly as stored, for bit-exact round trips.
+    /// `T` must be the file's sample type and the window must lie inside the raster;
+    /// nodata values are returned as stored.
+    pub fn read_window_as<T: TiffSample>(&self, band: usize, window: Window) -> Result<Array2<T>> {
+        check_band(self, band)?;
+        if T::TYPE != self.sample_type {
+            return Err(Error::file(
+                &self.path,
+                format!(
+                    "its samples are {}, not {}",
+                    self.sample_type.name(),
+                    T::TYPE.name()
+                ),
+            )
+            .with_fix("read it as the sample type `terrastack info` reports"));
+        }
+        if window.col < 0
+            || window.row < 0
+            || window.col as usize + window.width > self.grid.width
+            || window.row as usize + window.height > self.grid.height
+        {
+            return Err(Error::usage(format!(
+                "window {window:?} reaches outside the {} x {} raster",
+                self.grid.width, self.grid.height
+            ))
+            .in_file(&self.path));
+        }
+        let mut out = Array2::from_elem((window.height, window.width), T::zero());
+        self.copy_window::<T, T>(band, window, &mut out, |v| v)?;
+        Ok(out)
+    }
+}
+
+impl RasterSource for GeoTiffReader {
+    fn path(&self) -> &Path {
+        &self.path
+    }
+
+    fn grid(&self) -> &Grid {
+        &self.grid
+    }
+
+    fn raster_space(&self) -> RasterSpace {
+        self.space
+    }
+
+    fn band_count(&self) -> usize {
+        self.spp
+    }
+
+    /// Metadata of band `band` (1-based). Panics on a band number outside
+    /// `1..=band_count()`; check it with [`check_band`] first.
+    fn band_info(&self, band: usize) -> BandInfo {
+        self.bands[band - 1].clone()
+    }
+
+    fn read_window(&self, band: usize, window: Window) -> Result<Array2<f32>> {
+        check_band(self, band)?;
+        match self.sample_type {
+            SampleType::U8 => self.read_f32::<u8>(band, window),
+            SampleType::U16 => self.read_f32::<u16>(band, window),
+            SampleType::I16 => self.read_f32::<i16>(band, window),
+            SampleType::U32 => self.read_f32::<u32>(band, window),
+            SampleType::I32 => self.read_f32::<i32>(band, window),
+            SampleType::F32 => self.read_f32::<f32>(band, window),
+            SampleType::F64 => self.read_f32::<f64>(band, window),
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn nodata_text_forms() {
+        // Forms GDAL writes into GDAL_NODATA (GDAL GTiff driver documentation).
+        assert_eq!(parse_nodata("-9999"), Some(-9999.0));
+        assert_eq!(parse_nodata(" 0 \0"), Some(0.0));
+        assert!(parse_nodata("nan").unwrap().is_nan());
+        assert!(parse_nodata("NaN").unwrap().is_nan());
+        assert_eq!(parse_nodata("-inf"), Some(f64::NEG_INFINITY));
+        assert_eq!(
+            parse_nodata("-3.4028234663852886e+38"),
+            Some(f32::MIN as f64)
+        );
+        assert_eq!(parse_nodata(""), None);
+        assert_eq!(parse_nodata("none"), None);
+    }
+}

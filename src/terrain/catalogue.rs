@@ -1,0 +1,96 @@
+//! The catalogue of terrain features: word, units, method, formula and reference, for the
+//! `features` command and the stack's documentation.
+//!
+//! Citations are given from memory (METHODS.md notes the same); check volume and page
+//! numbers before quoting them.
+
+use serde::Serialize;
+
+/// One documented terrain feature.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct FeatureDoc {
+    /// The feature word accepted by `--features` (with its method suffix, if any).
+    pub word: &'static str,
+    /// The DESIGN.md `feature` value.
+    pub feature: &'static str,
+    pub units: &'static str,
+    pub method: &'static str,
+    pub formula: &'static str,
+    pub reference: &'static str,
+}
+
+const fn doc(
+    word: &'static str,
+    feature: &'static str,
+    units: &'static str,
+    method: &'static str,
+    formula: &'static str,
+    reference: &'static str,
+) -> FeatureDoc {
+    FeatureDoc {
+        word,
+        feature,
+        units,
+        method,
+        formula,
+        reference,
+    }
+}
+
+const HORN: &str = "Horn 1981, Proc. IEEE 69(1) (from memory)";
+const ZT: &str = "Zevenbergen & Thorne 1987, Earth Surf. Process. Landforms 12 (from memory)";
+const EY: &str = "Evans 1979; Young 1978; see Florinsky 2016 (from memory)";
+const WOOD: &str = "Wood 1996, PhD thesis, University of Leicester (from memory)";
+const CURV: &str = "Florinsky 2016, Digital Terrain Analysis in Soil Science and Geology, 2nd ed.; Minár et al. 2020, Earth-Science Reviews 211, 103414 (from memory)";
+
+/// Every terrain feature terrastack computes, one entry per word and method.
+pub fn catalogue() -> Vec<FeatureDoc> {
+    let mut v = vec![
+        doc("elevation", "elevation", "metres", "none", "z × z_factor", "common practice"),
+        doc("slope", "slope", "degrees", "horn", "atan(√(p² + q²)); p = ((z3+2z6+z9) − (z1+2z4+z7))/(8hx), q = ((z1+2z2+z3) − (z7+2z8+z9))/(8hy)", HORN),
+        doc("slope:zt", "slope", "degrees", "zevenbergen_thorne", "atan(√(p² + q²)); p = (z6 − z4)/(2hx), q = (z2 − z8)/(2hy)", ZT),
+        doc("slope:ey", "slope", "degrees", "evans_young", "atan(√(p² + q²)); p = (z3+z6+z9−z1−z4−z7)/(6hx), q = (z1+z2+z3−z7−z8−z9)/(6hy)", EY),
+        doc("slope:quadratic", "slope", "degrees", "quadratic", "atan(√(p² + q²)) from the least-squares quadratic over (2k+1)² cells, k = ⌊r/h⌋", WOOD),
+        doc("aspect", "aspect", "degrees", "horn", "atan2(−p, −q) mod 360, clockwise from north, downslope; NaN where flat", HORN),
+        doc("northness", "northness", "unitless", "horn", "cos(aspect) = −q/√(p² + q²); 0 where flat", HORN),
+        doc("eastness", "eastness", "unitless", "horn", "sin(aspect) = −p/√(p² + q²); 0 where flat", HORN),
+        doc("profile_curvature", "profile_curvature", "1/m", "evans_young", "kn = −(p²r + 2pqs + q²t)/(g·w^1.5), g = p² + q², w = 1 + g; NaN where g = 0; convex positive", CURV),
+        doc("plan_curvature", "plan_curvature", "1/m", "evans_young", "kc = −(q²r − 2pqs + p²t)/g^1.5; NaN where g = 0; convex positive", CURV),
+        doc("tangential_curvature", "tangential_curvature", "1/m", "evans_young", "kt = −(q²r − 2pqs + p²t)/(g·w^0.5); NaN where g = 0; convex positive", CURV),
+        doc("mean_curvature", "mean_curvature", "1/m", "evans_young", "H = −((1 + q²)r − 2pqs + (1 + p²)t)/(2w^1.5); convex positive", CURV),
+        doc("gaussian_curvature", "gaussian_curvature", "1/m2", "evans_young", "K = (rt − s²)/w²", CURV),
+        doc("tpi", "tpi", "metres", "disc", "z − mean(window)", "Weiss 2001; Guisan et al. 1999, Plant Ecology 143 (from memory)"),
+        doc("dev", "dev", "unitless", "disc", "(z − mean)/std over the window; 0 where the window is flat", "Gallant & Wilson 2000; De Reu et al. 2013, Geomorphology 186 (from memory)"),
+        doc("roughness", "roughness", "metres", "disc", "population std of z over the window", "common practice"),
+        doc("roughness_detrended", "roughness", "metres", "detrended_disc", "population std of residuals from the least-squares plane over the window", "common practice"),
+        doc("tri", "tri", "metres", "riley", "√(Σ over 8 neighbours (zᵢ − z5)²)", "Riley, DeGloria & Elliot 1999, Intermountain Journal of Sciences 5 (from memory)"),
+        doc("vrm", "vrm", "unitless", "disc", "1 − |Σ n|/N, n = (−p, −q, 1)/√(1 + p² + q²) (Horn p, q)", "Sappington, Longshore & Thompson 2007, J. Wildlife Management 71(5) (from memory)"),
+        doc("relative_elevation", "relative_elevation", "metres", "disc", "z − min(window)", "common practice; running extrema after van Herk 1992, Gil & Werman 1993 (from memory)"),
+        doc("local_relief", "local_relief", "metres", "disc", "max(window) − min(window)", "common practice; running extrema after van Herk 1992, Gil & Werman 1993 (from memory)"),
+    ];
+    v.push(doc("curvature:zt", "profile_curvature", "1/m", "zevenbergen_thorne", "all five curvatures with r = (z4 − 2z5 + z6)/hx², t = (z2 − 2z5 + z8)/hy², s = (z3 + z7 − z1 − z9)/(4hx·hy)", ZT));
+    v.push(doc("curvature:quadratic", "profile_curvature", "1/m", "quadratic", "all five curvatures from the least-squares quadratic over (2k+1)² cells: r = 2a, t = 2b, s = c", WOOD));
+    v
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::terrain::{expand, FEATURE_WORDS};
+
+    #[test]
+    fn every_catalogue_word_parses_and_every_word_is_documented() {
+        for d in catalogue() {
+            let f = expand(&[d.word.to_string()], &[1.0]).unwrap();
+            assert_eq!(f[0].feature_key(), d.feature, "{}", d.word);
+            assert_eq!(f[0].units(), d.units, "{}", d.word);
+        }
+        let cat = catalogue();
+        for (w, _) in FEATURE_WORDS {
+            if *w == "curvature" {
+                continue;
+            }
+            assert!(cat.iter().any(|d| d.word == *w), "{w} undocumented");
+        }
+    }
+}

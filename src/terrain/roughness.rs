@@ -1,0 +1,228 @@
+//! Roughness: standard deviation of elevation, detrended standard deviation, and TRI.
+//!
+//! - roughness = population standard deviation of the valid elevations in the window,
+//!   metres: √(n·Σz² − (Σz)²)/n from exact integer sums (see [`super::window_sums`]).
+//! - roughness_detrended = population standard deviation of the residuals from the
+//!   least-squares plane z = a + b·dx + c·dy fitted to the window's valid cells, metres
+//!   (common practice for separating roughness from slope). The residual variance does not
+//!   depend on the scale of the plane's coordinates, so the fit uses cell offsets. With
+//!   A = n·Σdx² − (Σdx)², B = n·Σdxdy − ΣdxΣdy, C = n·Σdy² − (Σdy)², U = n·Σdx·z − ΣdxΣz,
+//!   V = n·Σdy·z − ΣdyΣz, W = n·Σz² − (Σz)² (all exact integers):
+//!   n²·variance = W − (C·U² − 2B·U·V + A·V²)/(A·C − B²). NaN when the valid cells are
+//!   collinear (A·C = B²).
+//! - TRI (Riley, DeGloria & Elliot 1999, Intermountain Journal of Sciences 5, from memory)
+//!   = √(Σ over the 8 neighbours of (zᵢ − z5)²), metres, on the 3x3 window; all nine cells
+//!   must be valid.
+//!
+//! Windowed results are NaN with fewer than `min_valid_fraction` × window cells valid.
+
+use ndarray::{Array2, Zip};
+
+use super::position::{enough, variance_numerator};
+use super::window_sums::{CellSums, Z_QUANTUM_M};
+
+/// Standard deviation of elevation in the window, metres.
+pub fn std_dev(cells: u64, s: &CellSums, min_valid_fraction: f64) -> f64 {
+    if !enough(s.n, cells, min_valid_fraction) {
+        return f64::NAN;
+    }
+    variance_numerator(s.n, s.s[0], s.s2).sqrt() / s.n as f64 * Z_QUANTUM_M
+}
+
+fn exact_or_f64(a: i128, b: i128, c: i128, d: i128) -> f64 {
+    // a·b − c·d exactly when it fits, else in f64.
+    match (a.checked_mul(b), c.checked_mul(d)) {
+        (Some(x), Some(y)) => match x.checked_sub(y) {
+            Some(v) => v as f64,
+            None => x as f64 - y as f64,
+        },
+        _ => a as f64 * b as f64 - c as f64 * d as f64,
+    }
+}
+
+/// Standard deviation of residuals from the window's least-squares plane, metres.
+pub fn detrended_std(cells: u64, s: &CellSums, min_valid_fraction: f64) -> f64 {
+    if !enough(s.n, cells, min_valid_fraction) {
+        return f64::NAN;
+    }
+    let Some(p) = s.plane.as_ref() else {
+        return f64::NAN;
+    };
+    let n = i128::from(s.n);
+    let sz = s.s[0];
+    let a = exact_or_f64(n, p.sxx, p.sx, p.sx);
+    let b = exact_or_f64(n, p.sxy, p.sx, p.sy);
+    let c = exact_or_f64(n, p.syy, p.sy, p.sy);
+    let u = exact_or_f64(n, p.sxz, p.sx, sz);
+    let v = exact_or_f64(n, p.syz, p.sy, sz);
+    let w = variance_numerator(s.n, sz, s.s2);
+    let det = a * c - b * b;
+    if det <= 0.0 {
+        return f64::NAN;
+    }
+    let fitted = (c * u * u - 2.0 * b * u * v + a * v * v) / det;
+    let var_n2 = (w - fitted).max(0.0);
+    var_n2.sqrt() / s.n as f64 * Z_QUANTUM_M
+}
+
+/// TRI (metres) for the interior of `zs` (elevations in metres, NaN = nodata).
+pub fn tri(zs: &Array2<f64>, halo: usize, out_r: usize, out_c: usize) -> Array2<f32> {
+    let (nr, nc) = zs.dim();
+    let mut out = Array2::<f32>::from_elem((out_r, out_c), f32::NAN);
+    Zip::indexed(&mut out).par_for_each(|(i, j), o| {
+        let (r, c) = (halo + i, halo + j);
+        if r == 0 || c == 0 || r + 1 >= nr || c + 1 >= nc {
+            return;
+        }
+        let z5 = zs[[r, c]];
+        let mut acc = 0.0;
+        for dr in 0..3 {
+            for dc in 0..3 {
+                let v = zs[[r + dr - 1, c + dc - 1]];
+                if !v.is_finite() {
+                    return;
+                }
+                acc += (v - z5) * (v - z5);
+            }
+        }
+        if z5.is_finite() {
+            *o = acc.sqrt() as f32;
+        }
+    });
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use crate::grid::CellSizes;
+    use crate::terrain::test_support::{random_dem, sample, SplitMix};
+    use crate::terrain::{compute, radius_cells, TerrainFeature, TerrainParams, WindowShape};
+    use approx::assert_relative_eq;
+    use ndarray::Array2;
+
+    #[test]
+    fn tri_worked_value() {
+        // Hand computation from Riley et al.'s formula: centre 5 among 1..9 gives
+        // Σ(zᵢ − 5)² = 16 + 9 + 4 + 1 + 1 + 4 + 9 + 16 = 60, TRI = √60.
+        let z = Array2::from_shape_fn((3, 3), |(i, j)| (i * 3 + j + 1) as f32);
+        let out = compute(
+            &[TerrainFeature::Tri],
+            z.view(),
+            &CellSizes::uniform(1.0, 1.0, 3),
+            1,
+            0.0,
+            &TerrainParams::default(),
+        );
+        assert_relative_eq!(out[0][[0, 0]] as f64, 60f64.sqrt(), epsilon = 1e-6);
+    }
+
+    #[test]
+    fn plane_detrended_roughness_is_zero_plain_is_not() {
+        // A plane has zero residuals from its own fitted plane (closed form), at any shape;
+        // its plain standard deviation over a square of offsets ±1 cell at slope 1 m/m and
+        // h = 1 m is √(6/9) m (closed form: dx ∈ {−1, 0, 1} each thrice, variance 6/9).
+        for shape in [WindowShape::Disc, WindowShape::Square] {
+            let z = sample(15, 15, 1.0, 1.0, |x, y| x + 0.0 * y + 30.0);
+            let p = TerrainParams {
+                shape,
+                ..TerrainParams::default()
+            };
+            let feats = [
+                TerrainFeature::RoughnessDetrended { radius_m: 3.0 },
+                TerrainFeature::Roughness { radius_m: 1.0 },
+            ];
+            let out = compute(
+                &feats,
+                z.view(),
+                &CellSizes::uniform(1.0, 1.0, 15),
+                3,
+                25.0,
+                &p,
+            );
+            for v in out[0].iter() {
+                assert!(v.abs() < 1e-6, "{v}");
+            }
+            if shape == WindowShape::Square {
+                assert_relative_eq!(out[1][[4, 4]] as f64, (6.0f64 / 9.0).sqrt(), epsilon = 1e-6);
+            }
+        }
+    }
+
+    #[test]
+    fn detrended_matches_least_squares_reference() {
+        // Against a naive least-squares plane fit (normal equations solved directly in
+        // f64 by Cramer's rule) over random DEMs with holes.
+        let mut rng = SplitMix(9);
+        for _ in 0..6 {
+            let dem = random_dem(&mut rng, 14, 14, 0.15);
+            let r = 1.5 + 2.0 * rng.unit();
+            let p = TerrainParams {
+                min_valid_fraction: 0.5,
+                ..TerrainParams::default()
+            };
+            let out = compute(
+                &[TerrainFeature::RoughnessDetrended { radius_m: r }],
+                dem.view(),
+                &CellSizes::uniform(1.0, 1.0, 14),
+                0,
+                100.0,
+                &p,
+            );
+            let k = radius_cells(r, 1.0) as i64;
+            for i in 0..14i64 {
+                for j in 0..14i64 {
+                    let mut pts = Vec::new();
+                    let mut total = 0;
+                    for dy in -k..=k {
+                        for dx in -k..=k {
+                            if ((dx * dx + dy * dy) as f64).sqrt() > r {
+                                continue;
+                            }
+                            total += 1;
+                            let (a, b) = (i + dy, j + dx);
+                            if a >= 0 && b >= 0 && a < 14 && b < 14 {
+                                let v = dem[[a as usize, b as usize]] as f64;
+                                if v.is_finite() {
+                                    pts.push((dx as f64, dy as f64, v));
+                                }
+                            }
+                        }
+                    }
+                    let got = out[0][[i as usize, j as usize]] as f64;
+                    if (pts.len() as f64) < 0.5 * total as f64 {
+                        assert!(got.is_nan());
+                        continue;
+                    }
+                    let n = pts.len() as f64;
+                    let m = |f: &dyn Fn(&(f64, f64, f64)) -> f64| pts.iter().map(f).sum::<f64>();
+                    let (sx, sy, sz) = (m(&|p| p.0), m(&|p| p.1), m(&|p| p.2));
+                    let (sxx, syy, sxy) = (m(&|p| p.0 * p.0), m(&|p| p.1 * p.1), m(&|p| p.0 * p.1));
+                    let (sxz, syz) = (m(&|p| p.0 * p.2), m(&|p| p.1 * p.2));
+                    let mat = [[n, sx, sy], [sx, sxx, sxy], [sy, sxy, syy]];
+                    let rhs = [sz, sxz, syz];
+                    let det3 = |a: [[f64; 3]; 3]| {
+                        a[0][0] * (a[1][1] * a[2][2] - a[1][2] * a[2][1])
+                            - a[0][1] * (a[1][0] * a[2][2] - a[1][2] * a[2][0])
+                            + a[0][2] * (a[1][0] * a[2][1] - a[1][1] * a[2][0])
+                    };
+                    let d = det3(mat);
+                    let coef: Vec<f64> = (0..3)
+                        .map(|c| {
+                            let mut a = mat;
+                            for r in 0..3 {
+                                a[r][c] = rhs[r];
+                            }
+                            det3(a) / d
+                        })
+                        .collect();
+                    let var = pts
+                        .iter()
+                        .map(|p| (p.2 - coef[0] - coef[1] * p.0 - coef[2] * p.1).powi(2))
+                        .sum::<f64>()
+                        / n;
+                    assert_relative_eq!(got, var.sqrt(), epsilon = 1e-4, max_relative = 1e-4);
+                }
+            }
+        }
+    }
+}

@@ -1,0 +1,147 @@
+//! Slope, aspect, northness and eastness from first derivatives p = ∂z/∂x, q = ∂z/∂y.
+//!
+//! - slope = atan(√(p² + q²)), degrees, 0 on a flat cell (the gradient-magnitude form of
+//!   Horn 1981 and Zevenbergen & Thorne 1987; formulas as in METHODS.md).
+//! - aspect = the downslope direction, degrees clockwise from north in [0, 360):
+//!   atan2(−p, −q) mod 360. NaN on a flat cell (p = q = 0).
+//! - northness = cos(aspect), eastness = sin(aspect), both 0 on a flat cell.
+//!
+//! x points east and y north; a plane rising to the north-east faces (drains) south-west.
+//! Pointwise, O(1) per cell; NaN derivatives give NaN.
+
+use super::derivatives::Pqrst;
+
+/// Slope angle in degrees, atan(√(p² + q²)).
+pub fn slope_deg(d: &Pqrst) -> f64 {
+    d.p.hypot(d.q).atan().to_degrees()
+}
+
+/// Aspect in degrees clockwise from north, the direction of steepest descent; NaN when
+/// the cell is flat (p = q = 0) or the derivatives are missing.
+pub fn aspect_deg(d: &Pqrst) -> f64 {
+    if d.p == 0.0 && d.q == 0.0 {
+        return f64::NAN;
+    }
+    let a = (-d.p).atan2(-d.q).to_degrees();
+    if a < 0.0 {
+        a + 360.0
+    } else if a >= 360.0 {
+        a - 360.0
+    } else {
+        a
+    }
+}
+
+/// cos(aspect) = −q/√(p² + q²): +1 facing north, −1 facing south, 0 when flat.
+pub fn northness(d: &Pqrst) -> f64 {
+    let g = d.p.hypot(d.q);
+    if g == 0.0 {
+        0.0
+    } else {
+        -d.q / g
+    }
+}
+
+/// sin(aspect) = −p/√(p² + q²): +1 facing east, −1 facing west, 0 when flat.
+pub fn eastness(d: &Pqrst) -> f64 {
+    let g = d.p.hypot(d.q);
+    if g == 0.0 {
+        0.0
+    } else {
+        -d.p / g
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::grid::CellSizes;
+    use crate::terrain::test_support::sample;
+    use crate::terrain::{compute, SlopeMethod, TerrainFeature, TerrainParams};
+    use approx::assert_relative_eq;
+
+    fn pq(p: f64, q: f64) -> Pqrst {
+        Pqrst {
+            p,
+            q,
+            r: 0.0,
+            s: 0.0,
+            t: 0.0,
+        }
+    }
+
+    #[test]
+    fn worked_plane() {
+        // METHODS.md worked value: z = 0.3x + 0.4y has slope atan(0.5) = 26.5651° and
+        // aspect 216.8699° (downhill to the south-west).
+        let d = pq(0.3, 0.4);
+        assert_relative_eq!(slope_deg(&d), 26.5651, epsilon = 1e-4);
+        assert_relative_eq!(aspect_deg(&d), 216.8699, epsilon = 1e-4);
+        assert_relative_eq!(
+            northness(&d),
+            (216.8699f64).to_radians().cos(),
+            epsilon = 1e-6
+        );
+        assert_relative_eq!(
+            eastness(&d),
+            (216.8699f64).to_radians().sin(),
+            epsilon = 1e-6
+        );
+    }
+
+    #[test]
+    fn cardinal_directions() {
+        // Closed form: rising to the east (p > 0) drains west, 270°; rising to the north
+        // drains south, 180°; falling to the north drains north, 0°; falling east, 90°.
+        assert_relative_eq!(aspect_deg(&pq(1.0, 0.0)), 270.0, epsilon = 1e-12);
+        assert_relative_eq!(aspect_deg(&pq(0.0, 1.0)), 180.0, epsilon = 1e-12);
+        assert_relative_eq!(aspect_deg(&pq(0.0, -1.0)), 0.0, epsilon = 1e-12);
+        assert_relative_eq!(aspect_deg(&pq(-1.0, 0.0)), 90.0, epsilon = 1e-12);
+        assert_relative_eq!(slope_deg(&pq(1.0, 0.0)), 45.0, epsilon = 1e-12);
+    }
+
+    #[test]
+    fn flat_rule() {
+        let d = pq(0.0, 0.0);
+        assert_eq!(slope_deg(&d), 0.0);
+        assert!(aspect_deg(&d).is_nan());
+        assert_eq!(northness(&d), 0.0);
+        assert_eq!(eastness(&d), 0.0);
+    }
+
+    #[test]
+    fn worked_plane_through_compute_on_a_raster() {
+        // The same worked plane sampled on a raster with unequal cell sizes.
+        let z = sample(7, 7, 0.5, 2.0, |x, y| 0.3 * x + 0.4 * y + 50.0);
+        for m in [
+            SlopeMethod::Horn,
+            SlopeMethod::ZevenbergenThorne,
+            SlopeMethod::EvansYoung,
+        ] {
+            let f = [
+                TerrainFeature::Slope {
+                    method: m,
+                    scale_m: None,
+                },
+                TerrainFeature::Aspect {
+                    method: m,
+                    scale_m: None,
+                },
+            ];
+            let out = compute(
+                &f,
+                z.view(),
+                &CellSizes::uniform(0.5, 2.0, 7),
+                1,
+                0.0,
+                &TerrainParams::default(),
+            );
+            for v in out[0].iter() {
+                assert_relative_eq!(*v as f64, 26.5651, epsilon = 2e-3);
+            }
+            for v in out[1].iter() {
+                assert_relative_eq!(*v as f64, 216.8699, epsilon = 2e-3);
+            }
+        }
+    }
+}
