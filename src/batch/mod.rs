@@ -35,7 +35,8 @@ use std::time::Instant;
 
 use crate::error::{Error, Result};
 use crate::grid::Grid;
-use crate::stack::recipe::Recipe;
+use crate::raster;
+use crate::stack::{self, BuildOptions, Progress, Recipe};
 
 use ledger::{sha256_file, sha256_hex, InputHash, LedgerRecord, ShiftRecord, LEDGER_FORMAT};
 use manifest::{Flight, Manifest, ShiftLayer};
@@ -112,6 +113,47 @@ pub trait FlightWork: Sync {
         layer: ShiftLayer,
         grid: &Grid,
     ) -> Result<(f64, f64, f64)>;
+}
+
+/// [`FlightWork`] done by the stack executor ([`crate::stack::build`]) and the raster
+/// readers.
+#[derive(Clone, Copy, Debug, Default)]
+pub struct StackWork;
+
+impl FlightWork for StackWork {
+    fn build(&self, r: BuildRequest) -> Result<usize> {
+        let mut options = BuildOptions::new(&r.out);
+        options.force = true;
+        options.threads = Some(r.threads);
+        options.memory_bytes = r.memory_bytes;
+        options.progress = Progress::Quiet;
+        options.grid = Some(r.grid);
+        options.date = Some(r.date);
+        Ok(stack::build(r.recipe, &options)?.metadata.bands.len())
+    }
+
+    fn grid_of(&self, path: &Path) -> Result<Grid> {
+        Ok(raster::open(path)?.grid().clone())
+    }
+
+    fn shift(&self, reference: &Flight, flight: &Flight, layer: ShiftLayer, grid: &Grid) -> Result<(f64, f64, f64)> {
+        let pick = |f: &Flight| -> Result<(PathBuf, usize)> {
+            match layer {
+                ShiftLayer::Dsm => Ok((f.recipe.dsm.clone(), 1)),
+                ShiftLayer::Nir => f.nir_band().ok_or_else(|| {
+                    Error::usage(format!("flight {:?} maps no nir band, so shifts cannot be estimated on it", f.id))
+                        .with_fix("map a nir band for every flight, or set batch.shift_layer = \"dsm\"")
+                }),
+            }
+        };
+        let (rp, rb) = pick(reference)?;
+        let (mp, mb) = pick(flight)?;
+        let r = raster::open(&rp)?;
+        let m = raster::open(&mp)?;
+        raster::check_band(r.as_ref(), rb)?;
+        raster::check_band(m.as_ref(), mb)?;
+        shift::estimate_ground_shift(r.as_ref(), rb, m.as_ref(), mb, grid)
+    }
 }
 
 /// Run the batch: the shard's flights, then (unsharded runs) the multi-temporal stack.

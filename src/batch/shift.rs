@@ -33,10 +33,11 @@
 
 use std::path::Path;
 
-use ndarray::{Array2, ArrayView2};
+use ndarray::ArrayView2;
 use rustfft::num_complex::Complex;
 use rustfft::FftPlanner;
 
+use crate::align::{resample_window, Resampling};
 use crate::error::{Error, Result};
 use crate::grid::{Grid, Window};
 use crate::raster::RasterSource;
@@ -263,41 +264,6 @@ fn fft2(data: &mut [Complex<f64>], rows: usize, cols: usize, inverse: bool) {
     }
 }
 
-/// Band `band` of `source` sampled by nearest neighbour at the cell centres of `window`
-/// of `grid` (cells outside the source are NaN).
-pub fn sample_nearest(
-    source: &dyn RasterSource,
-    band: usize,
-    grid: &Grid,
-    window: Window,
-) -> Result<Array2<f32>> {
-    let sg = source.grid();
-    let mut cols = Vec::with_capacity(window.width);
-    let mut rows = Vec::with_capacity(window.height);
-    for c in 0..window.width {
-        let (x, _) = grid.cell_centre((window.col + c as i64) as f64, 0.0);
-        cols.push(sg.to_cell(x, sg.transform[3]).0.floor() as i64);
-    }
-    for r in 0..window.height {
-        let (_, y) = grid.cell_centre(0.0, (window.row + r as i64) as f64);
-        rows.push(sg.to_cell(sg.transform[0], y).1.floor() as i64);
-    }
-    let (c0, c1) = (
-        *cols.iter().min().expect("width ≥ 1"),
-        *cols.iter().max().expect("width ≥ 1"),
-    );
-    let (r0, r1) = (
-        *rows.iter().min().expect("height ≥ 1"),
-        *rows.iter().max().expect("height ≥ 1"),
-    );
-    let src_window = Window::new(c0, r0, (c1 - c0 + 1) as usize, (r1 - r0 + 1) as usize);
-    let data = source.read_window(band, src_window)?;
-    Ok(Array2::from_shape_fn(
-        (window.height, window.width),
-        |(r, c)| data[[(rows[r] - r0) as usize, (cols[c] - c0) as usize]],
-    ))
-}
-
 /// The central window of `grid`, at most [`MAX_WINDOW`] cells a side, on which shifts
 /// are estimated.
 pub fn central_window(grid: &Grid) -> Window {
@@ -312,8 +278,8 @@ pub fn central_window(grid: &Grid) -> Window {
 }
 
 /// Ground offset (east, north, in CRS units) of band `moving_band` of `moving` against
-/// band `reference_band` of `reference`, both sampled on the central window of the common
-/// `grid`, and the correlation peak height. Errors name the moving file.
+/// band `reference_band` of `reference`, both resampled bilinearly onto the central window
+/// of the common `grid`, and the correlation peak height. Errors name the moving file.
 pub fn estimate_ground_shift(
     reference: &dyn RasterSource,
     reference_band: usize,
@@ -322,8 +288,8 @@ pub fn estimate_ground_shift(
     grid: &Grid,
 ) -> Result<(f64, f64, f64)> {
     let window = central_window(grid);
-    let a = sample_nearest(reference, reference_band, grid, window)?;
-    let b = sample_nearest(moving, moving_band, grid, window)?;
+    let a = resample_window(reference, reference_band, grid, window, Resampling::Bilinear)?;
+    let b = resample_window(moving, moving_band, grid, window, Resampling::Bilinear)?;
     let shift = phase_correlation(a.view(), b.view()).map_err(|e| in_file(e, moving.path()))?;
     Ok((
         shift.dcol * grid.res_x(),
