@@ -136,13 +136,22 @@ impl FlightWork for StackWork {
         Ok(raster::open(path)?.grid().clone())
     }
 
-    fn shift(&self, reference: &Flight, flight: &Flight, layer: ShiftLayer, grid: &Grid) -> Result<(f64, f64, f64)> {
+    fn shift(
+        &self,
+        reference: &Flight,
+        flight: &Flight,
+        layer: ShiftLayer,
+        grid: &Grid,
+    ) -> Result<(f64, f64, f64)> {
         let pick = |f: &Flight| -> Result<(PathBuf, usize)> {
             match layer {
                 ShiftLayer::Dsm => Ok((f.recipe.dsm.clone(), 1)),
                 ShiftLayer::Nir => f.nir_band().ok_or_else(|| {
-                    Error::usage(format!("flight {:?} maps no nir band, so shifts cannot be estimated on it", f.id))
-                        .with_fix("map a nir band for every flight, or set batch.shift_layer = \"dsm\"")
+                    Error::usage(format!(
+                        "flight {:?} maps no nir band, so shifts cannot be estimated on it",
+                        f.id
+                    ))
+                    .with_fix("map a nir band for every flight, or set batch.shift_layer = \"dsm\"")
                 }),
             }
         };
@@ -174,10 +183,18 @@ pub fn run(
 
     // The common grid depends on every flight, not only this shard's, so that all shards
     // agree on it.
+    // A flight whose DSM cannot be read fails alone and is left out of the intersection;
+    // the reference flight's DSM must be readable.
     let ref_grid = work.grid_of(&reference.recipe.dsm)?;
     let mut grids = Vec::with_capacity(manifest.flights.len());
+    let mut unreadable: HashMap<String, String> = HashMap::new();
     for f in &manifest.flights {
-        grids.push((f.recipe.dsm.clone(), work.grid_of(&f.recipe.dsm)?));
+        match work.grid_of(&f.recipe.dsm) {
+            Ok(g) => grids.push((f.recipe.dsm.clone(), g)),
+            Err(e) => {
+                unreadable.insert(f.id.clone(), e.to_string());
+            }
+        }
     }
     let grid = manifest::common_grid(&manifest.grid, &ref_grid, &grids)
         .map_err(|e| e.in_file(&manifest.path))?;
@@ -220,8 +237,12 @@ pub fn run(
                 let i = next.fetch_add(1, Ordering::SeqCst);
                 let Some(flight) = flights.get(i) else { break };
                 let started = Instant::now();
-                let outcome =
-                    std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| ctx.flight(flight)));
+                let outcome = match unreadable.get(&flight.id) {
+                    Some(e) => Ok(ctx.failed(flight, e.clone())),
+                    None => std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
+                        ctx.flight(flight)
+                    })),
+                };
                 let mut rep = match outcome {
                     Ok(r) => r,
                     Err(panic) => {
@@ -461,6 +482,7 @@ impl Context<'_> {
                     id: f.id.clone(),
                     date: f.date.clone(),
                     dir: self.dir(f),
+                    source_path: format!("../{FLIGHTS_DIR}/{}/stack.tif", f.id),
                 })
                 .collect();
             // Every flight of the manifest must be finished (an earlier shard may have

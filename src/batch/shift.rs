@@ -288,7 +288,13 @@ pub fn estimate_ground_shift(
     grid: &Grid,
 ) -> Result<(f64, f64, f64)> {
     let window = central_window(grid);
-    let a = resample_window(reference, reference_band, grid, window, Resampling::Bilinear)?;
+    let a = resample_window(
+        reference,
+        reference_band,
+        grid,
+        window,
+        Resampling::Bilinear,
+    )?;
     let b = resample_window(moving, moving_band, grid, window, Resampling::Bilinear)?;
     let shift = phase_correlation(a.view(), b.view()).map_err(|e| in_file(e, moving.path()))?;
     Ok((

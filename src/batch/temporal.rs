@@ -157,6 +157,9 @@ pub struct DatedStack {
     pub date: String,
     /// The flight's stack folder.
     pub dir: PathBuf,
+    /// How `stack.json` of the multi-temporal stack names this flight's `stack.tif`
+    /// (relative to the multi-temporal stack's folder, so that the output root can move).
+    pub source_path: String,
 }
 
 /// A band of the multi-temporal stack and where its values come from.
@@ -348,7 +351,7 @@ pub fn write_temporal(
             let tif = f.dir.join("stack.tif");
             Ok(SourceMetadata {
                 role: format!("stack:{}", f.id),
-                path: tif.to_string_lossy().into_owned(),
+                path: f.source_path.clone(),
                 sha256: sha256_file(&tif)?,
             })
         })

@@ -62,7 +62,13 @@ pub fn run(args: Args) -> Result<()> {
     let report = batch::run(&manifest, &options, &StackWork)?;
     if !args.quiet {
         print!("{}", report.table());
-        println!("report: {}", report.out.join(batch::report::BatchReport::file_name(shard)).display());
+        println!(
+            "report: {}",
+            report
+                .out
+                .join(batch::report::BatchReport::file_name(shard))
+                .display()
+        );
     }
     let failed = report.failed();
     let temporal_failed = report.temporal.as_ref().and_then(|t| t.error.clone());
@@ -75,8 +81,11 @@ pub fn run(args: Args) -> Result<()> {
         .with_fix("read each flight's error in the table above or in the report, correct it and rerun; finished flights are skipped"));
     }
     if let Some(e) = temporal_failed {
-        return Err(Error::file(&args.manifest, format!("the multi-temporal stack failed: {e}"))
-            .with_fix("correct the problem and rerun; finished flights are skipped"));
+        return Err(Error::file(
+            &args.manifest,
+            format!("the multi-temporal stack failed: {e}"),
+        )
+        .with_fix("correct the problem and rerun; finished flights are skipped"));
     }
     Ok(())
 }
