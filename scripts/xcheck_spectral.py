@@ -158,6 +158,24 @@ def gen_resample(root):
     write_f32(os.path.join(out, "source.f32"), z)
     src_transform = Affine(d, 0.0, west, 0.0, -d, north)
     crs = CRS.from_epsg(4326)
+    # The same DEM as a tiled GeoTIFF written by GDAL, read by terrastack's own reader.
+    with rasterio.open(
+        os.path.join(out, "source.tif"),
+        "w",
+        driver="GTiff",
+        width=w,
+        height=h,
+        count=1,
+        dtype="float32",
+        crs=crs,
+        transform=src_transform,
+        nodata=np.nan,
+        tiled=True,
+        blockxsize=128,
+        blockysize=128,
+        compress="deflate",
+    ) as ds:
+        ds.write(z, 1)
 
     # Target grids: cell size as a multiple of the source's, origin offset in source cells
     # (offsets chosen so no target centre falls exactly on a source cell edge).
@@ -211,6 +229,7 @@ def gen_resample(root):
     return {
         "source": {
             "file": "source.f32",
+            "geotiff": "source.tif",
             "width": w,
             "height": h,
             "transform": [src_transform.c, src_transform.a, 0.0, src_transform.f, 0.0, src_transform.e],

@@ -832,6 +832,37 @@ mod tests {
     }
 
     #[test]
+    fn values_do_not_depend_on_the_thread_count() {
+        let src_grid = utm_grid(80, 70, 500_000.0, 4_000_070.0, 1.0);
+        let data = Array2::from_shape_fn((70, 80), |(r, c)| ((r * 17 + c * 29) % 23) as f32 * 1.7);
+        let src = MemoryRaster::new("t.tif", src_grid, vec![data]).unwrap();
+        let target = utm_grid(60, 50, 500_002.2, 4_000_067.6, 1.3);
+        let one = rayon::ThreadPoolBuilder::new()
+            .num_threads(1)
+            .build()
+            .unwrap();
+        let three = rayon::ThreadPoolBuilder::new()
+            .num_threads(3)
+            .build()
+            .unwrap();
+        for m in [
+            Resampling::Nearest,
+            Resampling::Bilinear,
+            Resampling::Cubic,
+            Resampling::Average,
+        ] {
+            let run = || resample_window(&src, 1, &target, Window::full(&target), m).unwrap();
+            let (a, b) = (one.install(run), three.install(run));
+            assert!(
+                a.iter()
+                    .zip(b.iter())
+                    .all(|(x, y)| x.to_bits() == y.to_bits()),
+                "{m:?}"
+            );
+        }
+    }
+
+    #[test]
     fn other_crs_refused_without_gdal() {
         let src = plane_source(&utm_grid(4, 4, 500_000.0, 4_000_004.0, 1.0));
         let target = Grid::new(

@@ -408,7 +408,7 @@ mod tests {
         // degree of latitude is a(1−e²)·π/180 = 110574.28 m (closed form, M at φ = 0).
         let (lat, lon) = metres_per_degree(0.0);
         assert_relative_eq!(lon, WGS84_A * std::f64::consts::PI / 180.0, epsilon = 1e-6);
-        assert_relative_eq!(lat, 110_574.2727, epsilon = 0.01);
+        assert_relative_eq!(lat, 110_574.272_7, epsilon = 0.01);
         let (_, lon90) = metres_per_degree(90.0);
         assert!(lon90.abs() < 1e-6);
     }

@@ -597,6 +597,15 @@ fn unary(func: Func, x: f64) -> f64 {
 impl Expression {
     /// Parse and compile `text` as the layer called `name` (letters, digits and `_`,
     /// starting with a letter). Syntax errors give the column and a caret under the text.
+    ///
+    /// ```
+    /// use terrastack::spectral::Expression;
+    /// let e = Expression::parse("ndvi_gate", "if nir > 0.3 then (nir - red) / (nir + red) else 0")?;
+    /// assert_eq!(e.roles().len(), 2);
+    /// // nir = 0.4, red = 0.05: 0.35 / 0.45 = 7/9 (by hand).
+    /// assert!((e.eval_cell(&[0.4, 0.05]) - 7.0 / 9.0).abs() < 1e-12);
+    /// # Ok::<(), terrastack::Error>(())
+    /// ```
     pub fn parse(name: &str, text: &str) -> Result<Expression> {
         let valid_name = name.chars().next().is_some_and(|c| c.is_ascii_alphabetic())
             && name.chars().all(|c| c.is_ascii_alphanumeric() || c == '_');

@@ -10,7 +10,9 @@
 //! Determinism: a cell's value depends only on the inputs and its position (the kernels
 //! and resampling promise it), and statistics are merged in a fixed order, so two builds
 //! with different thread counts, memory budgets or block sizes write bit-identical
-//! bands.
+//! bands and statistics. Tiles are compressed in parallel but appended in block order,
+//! so with the same block size (it depends on the largest window, and on the budget only
+//! when the budget is too small for it) the file's bytes are identical too.
 
 use std::fs::File;
 use std::io::{IsTerminal, Read};
@@ -25,7 +27,7 @@ use sha2::{Digest, Sha256};
 use crate::align::{self, Resampling};
 use crate::error::{Error, Result};
 use crate::grid::{Grid, Window};
-use crate::raster::geotiff::{Compression, GeoTiffWriter, WriteOptions};
+use crate::raster::geotiff::{Compression, EncodedBlock, GeoTiffWriter, WriteOptions};
 use crate::spectral::{self, BandArrays, MaskOptions};
 use crate::stack::output::OutputDir;
 use crate::stack::plan::{Producer, StackPlan};
@@ -156,21 +158,27 @@ fn run(
     let mut stats: Vec<StatsAccumulator> = vec![StatsAccumulator::default(); plan.bands.len()];
     let mut done = 0usize;
     for wave in blocks.chunks(concurrency) {
-        let results: Vec<Result<Vec<StatsAccumulator>>> = wave
+        let results: Vec<Result<(Vec<StatsAccumulator>, Vec<EncodedBlock>)>> = wave
             .par_iter()
             .map(|w| {
                 let bands = compute_block(&plan, *w)?;
                 let mut block_stats = Vec::with_capacity(bands.len());
+                let mut tiles = Vec::new();
                 for (i, data) in bands.iter().enumerate() {
-                    write_tiles(&writer, i + 1, *w, tile, data)?;
+                    encode_tiles(&writer, i + 1, *w, tile, data, &mut tiles)?;
                     preview.record(i, *w, data.view());
                     block_stats.push(StatsAccumulator::from_values(data.iter()));
                 }
-                Ok(block_stats)
+                Ok((block_stats, tiles))
             })
             .collect();
+        // Append in block order: the file's bytes do not depend on which thread finished first.
         for r in results {
-            for (acc, part) in stats.iter_mut().zip(r?.iter()) {
+            let (block_stats, tiles) = r?;
+            for encoded in tiles {
+                writer.write_encoded(encoded)?;
+            }
+            for (acc, part) in stats.iter_mut().zip(block_stats.iter()) {
                 acc.merge(part);
             }
         }
@@ -357,13 +365,14 @@ fn read_reflectance(plan: &StackPlan, w: Window) -> Result<BandArrays> {
     )
 }
 
-/// Write the tiles of block `w` of band `band` (1-based).
-fn write_tiles(
+/// Encode the tiles of block `w` of band `band` (1-based), in tile order.
+fn encode_tiles(
     writer: &GeoTiffWriter,
     band: usize,
     w: Window,
     tile: usize,
     data: &Array2<f32>,
+    out: &mut Vec<EncodedBlock>,
 ) -> Result<()> {
     let (rows, cols) = data.dim();
     for r0 in (0..rows).step_by(tile) {
@@ -371,7 +380,7 @@ fn write_tiles(
             let view = data.slice(s![r0..(r0 + tile).min(rows), c0..(c0 + tile).min(cols)]);
             let tile_col = (w.col as usize + c0) / tile;
             let tile_row = (w.row as usize + r0) / tile;
-            writer.write_block(band, tile_col, tile_row, view)?;
+            out.push(writer.encode_block(band, tile_col, tile_row, view)?);
         }
     }
     Ok(())

@@ -52,6 +52,9 @@ pub struct SpectralInput {
     pub band: BandSource,
 }
 
+/// An orthomosaic's alpha (coverage) band: its source and 1-based band number.
+pub type AlphaBand = (Arc<dyn RasterSource>, usize);
+
 /// Everything needed to compute the stack block by block.
 pub struct StackPlan {
     pub recipe: Recipe,
@@ -62,7 +65,7 @@ pub struct StackPlan {
     pub dsm_on_target: bool,
     pub spectral: Vec<SpectralInput>,
     /// Alpha (coverage) band of the orthomosaic, 0 = outside the flown area.
-    pub alpha: Option<(Arc<dyn RasterSource>, usize)>,
+    pub alpha: Option<AlphaBand>,
     pub terrain: Vec<TerrainFeature>,
     pub terrain_params: TerrainParams,
     pub bands: Vec<BandPlan>,
@@ -326,7 +329,7 @@ impl StackPlan {
 /// Open the orthomosaic (one file, several roles) and per-band files; check band numbers.
 fn open_spectral(
     recipe: &Recipe,
-) -> Result<(Vec<SpectralInput>, Option<(Arc<dyn RasterSource>, usize)>)> {
+) -> Result<(Vec<SpectralInput>, Option<AlphaBand>)> {
     let mut inputs = Vec::new();
     let mut sources: Vec<BandSource> = Vec::new();
     let mut alpha = None;

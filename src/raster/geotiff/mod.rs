@@ -24,7 +24,7 @@ mod writer;
 
 pub use metadata::MetadataItem;
 pub use reader::GeoTiffReader;
-pub use writer::GeoTiffWriter;
+pub use writer::{EncodedBlock, GeoTiffWriter};
 
 /// Decoded bytes the reader keeps per open file (least recently used blocks go first).
 pub const CACHE_BYTES: usize = 128 << 20;

@@ -199,6 +199,13 @@ impl Plan {
     }
 }
 
+/// A block converted, predicted and compressed by [`GeoTiffWriter::encode_block`], not yet
+/// in the file.
+pub struct EncodedBlock {
+    index: usize,
+    packed: Vec<u8>,
+}
+
 /// Streaming GeoTIFF writer: blocks (tiles or strips) of each band are written as they
 /// are produced, from several threads at once; the directory is written by `finish`.
 ///
@@ -343,12 +350,7 @@ impl GeoTiffWriter {
         let p = &self.plan;
         let ss = T::TYPE.size();
         if p.planar || p.bands == 1 {
-            let shape = p.shape(br);
-            let mut buf = T::fill_le(fill, shape.bytes() / ss);
-            for ((r, c), v) in data.indexed_iter() {
-                let i = (r * p.block_w + c) * ss;
-                T::from_f32(*v, fill).put_le(&mut buf[i..i + ss]);
-            }
+            let buf = self.planar_raw::<T>(br, data);
             let index = (band - 1) * p.per_plane() * usize::from(p.planar) + br * p.across + bc;
             return self.store(index, br, buf);
         }
@@ -397,15 +399,80 @@ impl GeoTiffWriter {
             .map_err(|_| Error::file(&self.path, "a block write failed in another thread"))
     }
 
-    /// Predict, compress and append block `index` (block row `br`) whose little-endian
-    /// samples are `raw`, padded to the full block.
-    pub(super) fn store(&self, index: usize, br: usize, mut raw: Vec<u8>) -> Result<()> {
+    /// Little-endian samples of one band's block in a band-sequential (or one-band) file,
+    /// padded to the full block with the nodata fill.
+    fn planar_raw<T: TiffSample>(&self, br: usize, data: ArrayView2<f32>) -> Vec<u8> {
+        let p = &self.plan;
+        let fill = T::from_f64_saturating(self.grid.nodata.unwrap_or(0.0));
+        let ss = T::TYPE.size();
+        let shape = p.shape(br);
+        let mut buf = T::fill_le(fill, shape.bytes() / ss);
+        for ((r, c), v) in data.indexed_iter() {
+            let i = (r * p.block_w + c) * ss;
+            T::from_f32(*v, fill).put_le(&mut buf[i..i + ss]);
+        }
+        buf
+    }
+
+    /// Convert, predict and compress block (`block_col`, `block_row`) of band `band`
+    /// (1-based) of a band-sequential file without writing it: the costly part of
+    /// [`write_block`](Self::write_block), safe to run on many threads. Hand the result to
+    /// [`write_encoded`](Self::write_encoded); appending encoded blocks in a fixed order
+    /// gives a file whose bytes do not depend on thread timing.
+    pub fn encode_block(
+        &self,
+        band: usize,
+        block_col: usize,
+        block_row: usize,
+        data: ArrayView2<f32>,
+    ) -> Result<EncodedBlock> {
+        self.check_block(band, block_col, block_row, data.dim())?;
+        let p = &self.plan;
+        if !(p.planar || p.bands == 1) {
+            return Err(Error::usage(
+                "blocks can be encoded ahead of writing only in band-sequential files",
+            )
+            .in_file(&self.path));
+        }
+        let raw = match p.sample_type {
+            SampleType::U8 => self.planar_raw::<u8>(block_row, data),
+            SampleType::U16 => self.planar_raw::<u16>(block_row, data),
+            SampleType::I16 => self.planar_raw::<i16>(block_row, data),
+            SampleType::U32 => self.planar_raw::<u32>(block_row, data),
+            SampleType::I32 => self.planar_raw::<i32>(block_row, data),
+            SampleType::F32 => self.planar_raw::<f32>(block_row, data),
+            SampleType::F64 => self.planar_raw::<f64>(block_row, data),
+        };
+        let index =
+            (band - 1) * p.per_plane() * usize::from(p.planar) + block_row * p.across + block_col;
+        Ok(EncodedBlock {
+            index,
+            packed: self.pack(block_row, raw)?,
+        })
+    }
+
+    /// Append a block made by [`encode_block`](Self::encode_block). Thread-safe.
+    pub fn write_encoded(&self, block: EncodedBlock) -> Result<()> {
+        self.append(block.index, block.packed)
+    }
+
+    /// Predict and compress the little-endian samples `raw` of a block of block row `br`.
+    fn pack(&self, br: usize, mut raw: Vec<u8>) -> Result<Vec<u8>> {
         let shape = self.plan.shape(br);
         codec::encode_samples(&mut raw, shape, self.plan.predictor);
         let row_bytes = shape.row_samples * shape.sample_size;
-        let packed = codec::compress(self.plan.codec, &raw, row_bytes)
-            .map_err(|p| Error::file(&self.path, p))?;
-        drop(raw);
+        codec::compress(self.plan.codec, &raw, row_bytes).map_err(|p| Error::file(&self.path, p))
+    }
+
+    /// Predict, compress and append block `index` (block row `br`) whose little-endian
+    /// samples are `raw`, padded to the full block.
+    pub(super) fn store(&self, index: usize, br: usize, raw: Vec<u8>) -> Result<()> {
+        let packed = self.pack(br, raw)?;
+        self.append(index, packed)
+    }
+
+    /// Append the compressed block `index` at the end of the file and record where it is.
+    fn append(&self, index: usize, packed: Vec<u8>) -> Result<()> {
         let offset = {
             let mut st = self.lock()?;
             if st.written[index] {

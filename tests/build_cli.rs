@@ -1,0 +1,224 @@
+//! `terrastack build` end to end, through the binary and the library: determinism,
+//! `--force`, interrupted builds, bad input.
+
+mod util;
+
+use std::fs;
+use std::process::{Command, Stdio};
+use std::time::{Duration, Instant};
+
+use terrastack::raster::{self, RasterSource};
+use terrastack::stack::{self, BuildOptions, Progress, Recipe, RecipeFlags};
+use terrastack::Window;
+use util::*;
+
+fn flags(dsm: &str) -> RecipeFlags {
+    RecipeFlags {
+        dsm: Some(dsm.into()),
+        features: Some(vec!["slope".into(), "curvature".into(), "tpi".into(), "roughness".into(), "relative_elevation".into(), "vrm".into()]),
+        scales_m: Some(vec![2.0, 12.0]),
+        ..Default::default()
+    }
+}
+
+fn read_all(path: &std::path::Path) -> Vec<Vec<u32>> {
+    let src = raster::open(path).unwrap();
+    let w = Window::full(src.grid());
+    (1..=src.band_count())
+        .map(|b| src.read_window(b, w).unwrap().iter().map(|v| v.to_bits()).collect())
+        .collect()
+}
+
+#[test]
+fn results_do_not_depend_on_threads_block_size_or_budget() {
+    let tmp = tempdir();
+    let grid = utm_grid(1300, 1100, 0.25);
+    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
+    let dsm = p(tmp.path(), "dsm.tif");
+    let build = |name: &str, threads: usize, block: Option<usize>, memory: u64| {
+        let mut o = BuildOptions::new(tmp.path().join(name));
+        o.threads = Some(threads);
+        o.block_size = block;
+        o.memory_bytes = memory;
+        o.progress = Progress::Quiet;
+        stack::build(Recipe::resolve(None, &flags(&dsm)).unwrap(), &o).unwrap()
+    };
+    let a = build("a", 1, Some(512), 2 << 30);
+    let b = build("b", 2, Some(512), 512 << 20);
+    let c = build("c", 2, Some(1024), 2 << 30);
+    assert_eq!(a.block_size, 512);
+    // Same block size, other threads and budget: the very same file.
+    let fa = fs::read(tmp.path().join("a/stack.tif")).unwrap();
+    let fb = fs::read(tmp.path().join("b/stack.tif")).unwrap();
+    assert!(fa == fb, "stack.tif differs between 1 and 2 threads");
+    // Other block size: the same bits in every band, the same statistics.
+    assert_eq!(read_all(&tmp.path().join("a/stack.tif")), read_all(&tmp.path().join("c/stack.tif")));
+    for (x, y) in a.metadata.bands.iter().zip(c.metadata.bands.iter()) {
+        assert_eq!(x.stats.min, y.stats.min, "{}", x.name);
+        assert_eq!(x.stats.max, y.stats.max, "{}", x.name);
+        assert!((x.stats.mean.unwrap() - y.stats.mean.unwrap()).abs() <= 1e-12 * x.stats.mean.unwrap().abs().max(1.0));
+    }
+}
+
+#[test]
+fn existing_stack_is_kept_without_force() {
+    let tmp = tempdir();
+    let grid = utm_grid(300, 200, 0.5);
+    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
+    let out = p(tmp.path(), "out");
+    let args = ["build", "--dsm", &p(tmp.path(), "dsm.tif"), "--features", "slope", "--out", &out, "--quiet"];
+    assert!(run(&args).status.success());
+    let before = fs::read(tmp.path().join("out/stack.tif")).unwrap();
+    let again = run(&args);
+    assert_eq!(again.status.code(), Some(1));
+    let e = stderr(&again);
+    assert!(e.contains("already holds a stack") && e.contains("--force"), "{e}");
+    assert_eq!(fs::read(tmp.path().join("out/stack.tif")).unwrap(), before);
+    let mut forced = args.to_vec();
+    forced.extend(["--force", "--features", "slope,tpi"]);
+    assert!(run(&forced).status.success(), "{}", stderr(&run(&forced)));
+    let meta: serde_json::Value = serde_json::from_str(&fs::read_to_string(tmp.path().join("out/stack.json")).unwrap()).unwrap();
+    assert_eq!(meta["bands"].as_array().unwrap().len(), 3); // slope, tpi at the default 1 and 5 m
+}
+
+#[test]
+fn killed_build_leaves_nothing_that_looks_finished() {
+    let tmp = tempdir();
+    let grid = utm_grid(3000, 3000, 0.1);
+    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
+    let out = tmp.path().join("out");
+    let mut child = Command::new(env!("CARGO_BIN_EXE_terrastack"))
+        .args(["build", "--dsm", &p(tmp.path(), "dsm.tif"), "--scales", "1,5", "--threads", "1", "--out"])
+        .arg(&out)
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
+    // Wait until the build has started writing, then kill it (SIGKILL).
+    let started = Instant::now();
+    loop {
+        let partial = fs::read_dir(&out)
+            .map(|d| d.flatten().any(|e| e.file_name().to_string_lossy().contains(".partial")))
+            .unwrap_or(false);
+        if partial || started.elapsed() > Duration::from_secs(60) {
+            break;
+        }
+        std::thread::sleep(Duration::from_millis(20));
+    }
+    child.kill().unwrap();
+    child.wait().unwrap();
+    assert!(!out.join("stack.tif").exists(), "a killed build left stack.tif");
+    assert!(!out.join("stack.json").exists(), "a killed build left stack.json");
+    // The next build succeeds and does not need --force.
+    let o = run(&["build", "--dsm", &p(tmp.path(), "dsm.tif"), "--features", "slope", "--out", &out.to_string_lossy(), "--quiet"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+}
+
+#[test]
+fn dsm_without_crs_is_refused_and_nothing_written() {
+    let tmp = tempdir();
+    let mut grid = utm_grid(50, 40, 0.5);
+    grid.crs = terrastack::Crs::none();
+    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
+    let o = run(&["build", "--dsm", &p(tmp.path(), "dsm.tif"), "--out", &p(tmp.path(), "out")]);
+    assert_eq!(o.status.code(), Some(1));
+    let e = stderr(&o);
+    assert!(e.contains("dsm.tif") && e.contains("no coordinate reference system") && e.contains("fix:"), "{e}");
+    assert!(!tmp.path().join("out").exists());
+}
+
+#[test]
+fn ortho_that_does_not_overlap_is_refused() {
+    let tmp = tempdir();
+    let grid = utm_grid(50, 40, 0.5);
+    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
+    let far = terrastack::Grid::new(30, 30, [510_000.0, 0.5, 0.0, 5_000_000.0, 0.0, -0.5], terrastack::Crs::from_epsg(32633)).unwrap();
+    write_ortho(&tmp.path().join("ortho.tif"), &far);
+    let o = run(&[
+        "build", "--dsm", &p(tmp.path(), "dsm.tif"), "--ortho", &p(tmp.path(), "ortho.tif"),
+        "--bands", "blue=1,green=2,red=3,rededge=4,nir=5", "--out", &p(tmp.path(), "out"),
+    ]);
+    assert_eq!(o.status.code(), Some(1));
+    let e = stderr(&o);
+    assert!(e.contains("ortho.tif") && e.contains("does not overlap"), "{e}");
+    assert!(!tmp.path().join("out").exists());
+}
+
+#[test]
+fn band_number_past_the_files_bands_is_refused() {
+    let tmp = tempdir();
+    let grid = utm_grid(50, 40, 0.5);
+    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
+    write_ortho(&tmp.path().join("ortho.tif"), &grid);
+    let o = run(&[
+        "build", "--dsm", &p(tmp.path(), "dsm.tif"), "--ortho", &p(tmp.path(), "ortho.tif"),
+        "--bands", "red=3,nir=7", "--features", "ndvi", "--out", &p(tmp.path(), "out"),
+    ]);
+    assert_ne!(o.status.code(), Some(0));
+    let e = stderr(&o);
+    assert!(e.contains("ortho.tif") && e.contains("band 7") && e.contains("5 band"), "{e}");
+    assert!(!tmp.path().join("out").exists());
+}
+
+#[test]
+fn unwritable_output_folder_is_refused() {
+    let tmp = tempdir();
+    let grid = utm_grid(50, 40, 0.5);
+    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
+    fs::write(tmp.path().join("a-file"), "x").unwrap();
+    // A folder below a regular file cannot be created, even by root.
+    let o = run(&["build", "--dsm", &p(tmp.path(), "dsm.tif"), "--out", &p(tmp.path(), "a-file/out")]);
+    assert_eq!(o.status.code(), Some(1));
+    let e = stderr(&o);
+    assert!(e.contains("a-file/out"), "{e}");
+    assert_eq!(fs::read_to_string(tmp.path().join("a-file")).unwrap(), "x");
+}
+
+#[test]
+fn index_without_its_band_names_the_role() {
+    let tmp = tempdir();
+    let grid = utm_grid(50, 40, 0.5);
+    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
+    write_ortho(&tmp.path().join("ortho.tif"), &grid);
+    let o = run(&[
+        "build", "--dsm", &p(tmp.path(), "dsm.tif"), "--ortho", &p(tmp.path(), "ortho.tif"),
+        "--bands", "red=3,nir=5", "--features", "ndre", "--out", &p(tmp.path(), "out"),
+    ]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("rededge"), "{}", stderr(&o));
+}
+
+#[test]
+fn stack_metadata_matches_the_image() {
+    let tmp = tempdir();
+    let grid = utm_grid(400, 300, 0.2);
+    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
+    let ortho_grid = terrastack::Grid::new(260, 200, [500_000.07, 0.3, 0.0, 5_000_000.0 - 0.05, 0.0, -0.3], terrastack::Crs::from_epsg(32633)).unwrap();
+    write_ortho(&tmp.path().join("ortho.tif"), &ortho_grid);
+    let out = tmp.path().join("out");
+    let o = run(&[
+        "build", "--dsm", &p(tmp.path(), "dsm.tif"), "--ortho", &p(tmp.path(), "ortho.tif"),
+        "--bands", "blue=1,green=2,red=3,rededge=4,nir=5", "--reflectance-scale", "1e-4",
+        "--index", "wet=(green - nir) / (green + nir)", "--out", &out.to_string_lossy(), "--quiet",
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let meta: terrastack::stack::sidecar::StackMetadata =
+        serde_json::from_str(&fs::read_to_string(out.join("stack.json")).unwrap()).unwrap();
+    assert_eq!(meta.format, "terrastack-stack/1");
+    let src = raster::open(&out.join("stack.tif")).unwrap();
+    assert_eq!(src.band_count(), meta.bands.len());
+    assert_eq!(src.grid().transform, meta.grid.transform);
+    assert_eq!(meta.grid.transform, grid.transform);
+    assert_eq!(meta.grid.crs.epsg, Some(32633));
+    for b in &meta.bands {
+        assert_eq!(src.band_info(b.index).description.as_deref(), Some(b.name.as_str()));
+    }
+    let names: Vec<&str> = meta.bands.iter().map(|b| b.name.as_str()).collect();
+    assert!(names.contains(&"ndvi") && names.contains(&"wet") && names.contains(&"reflectance_nir"), "{names:?}");
+    let wet = meta.bands.iter().find(|b| b.name == "wet").unwrap();
+    assert_eq!(wet.feature, "expression");
+    assert_eq!(meta.sources.len(), 2);
+    assert_eq!(meta.sources[0].sha256, terrastack::stack::executor::sha256_file(&tmp.path().join("dsm.tif")).unwrap());
+    assert!(out.join("preview.png").exists());
+    assert_eq!(meta.parameters["resampling"], "bilinear");
+}
