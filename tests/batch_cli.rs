@@ -444,3 +444,46 @@ fn bad_manifest_is_a_clear_error() {
     assert!(!out.status.success());
     assert!(String::from_utf8_lossy(&out.stderr).contains("none.toml"));
 }
+
+#[test]
+fn demo_shifts_are_recovered_within_a_quarter_cell() {
+    use terrastack::batch::manifest::{common_grid, Manifest};
+    use terrastack::batch::{FlightWork, StackWork};
+    let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-dsm");
+    let site: Value =
+        serde_json::from_str(&std::fs::read_to_string(demo.join("site.json")).unwrap()).unwrap();
+    let manifest = Manifest::load(&demo.join("flights.toml")).unwrap();
+    let work = StackWork;
+    let reference = manifest.reference_flight();
+    let ref_grid = work.grid_of(&reference.recipe.dsm).unwrap();
+    let grids: Vec<_> = manifest
+        .flights
+        .iter()
+        .map(|f| (f.recipe.dsm.clone(), work.grid_of(&f.recipe.dsm).unwrap()))
+        .collect();
+    let grid = common_grid(&manifest.grid, &ref_grid, &grids).unwrap();
+    let cell = grid.res_x();
+    for entry in site["flights"].as_array().unwrap() {
+        let date = entry["date"].as_str().unwrap();
+        let flight = manifest.flights.iter().find(|f| f.date == date).unwrap();
+        if flight.id == reference.id {
+            continue;
+        }
+        let (dx, dy, peak) = work
+            .shift(reference, flight, manifest.shift_layer, &grid)
+            .unwrap();
+        // Known shifts written by the demo generator (sample-dsm/site.json, `shift_m`,
+        // relative to the reference flight, same sign convention).
+        let want_dx = entry["shift_m"][0].as_f64().unwrap();
+        let want_dy = entry["shift_m"][1].as_f64().unwrap();
+        assert!(
+            (dx - want_dx).abs() < 0.25 * cell,
+            "{date}: dx {dx} vs {want_dx}"
+        );
+        assert!(
+            (dy - want_dy).abs() < 0.25 * cell,
+            "{date}: dy {dy} vs {want_dy}"
+        );
+        assert!(peak > 0.05, "{date}: weak correlation peak {peak}");
+    }
+}

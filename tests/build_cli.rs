@@ -15,7 +15,14 @@ use util::*;
 fn flags(dsm: &str) -> RecipeFlags {
     RecipeFlags {
         dsm: Some(dsm.into()),
-        features: Some(vec!["slope".into(), "curvature".into(), "tpi".into(), "roughness".into(), "relative_elevation".into(), "vrm".into()]),
+        features: Some(vec![
+            "slope".into(),
+            "curvature".into(),
+            "tpi".into(),
+            "roughness".into(),
+            "relative_elevation".into(),
+            "vrm".into(),
+        ]),
         scales_m: Some(vec![2.0, 12.0]),
         ..Default::default()
     }
@@ -25,7 +32,13 @@ fn read_all(path: &std::path::Path) -> Vec<Vec<u32>> {
     let src = raster::open(path).unwrap();
     let w = Window::full(src.grid());
     (1..=src.band_count())
-        .map(|b| src.read_window(b, w).unwrap().iter().map(|v| v.to_bits()).collect())
+        .map(|b| {
+            src.read_window(b, w)
+                .unwrap()
+                .iter()
+                .map(|v| v.to_bits())
+                .collect()
+        })
         .collect()
 }
 
@@ -52,11 +65,17 @@ fn results_do_not_depend_on_threads_block_size_or_budget() {
     let fb = fs::read(tmp.path().join("b/stack.tif")).unwrap();
     assert!(fa == fb, "stack.tif differs between 1 and 2 threads");
     // Other block size: the same bits in every band, the same statistics.
-    assert_eq!(read_all(&tmp.path().join("a/stack.tif")), read_all(&tmp.path().join("c/stack.tif")));
+    assert_eq!(
+        read_all(&tmp.path().join("a/stack.tif")),
+        read_all(&tmp.path().join("c/stack.tif"))
+    );
     for (x, y) in a.metadata.bands.iter().zip(c.metadata.bands.iter()) {
         assert_eq!(x.stats.min, y.stats.min, "{}", x.name);
         assert_eq!(x.stats.max, y.stats.max, "{}", x.name);
-        assert!((x.stats.mean.unwrap() - y.stats.mean.unwrap()).abs() <= 1e-12 * x.stats.mean.unwrap().abs().max(1.0));
+        assert!(
+            (x.stats.mean.unwrap() - y.stats.mean.unwrap()).abs()
+                <= 1e-12 * x.stats.mean.unwrap().abs().max(1.0)
+        );
     }
 }
 
@@ -66,18 +85,32 @@ fn existing_stack_is_kept_without_force() {
     let grid = utm_grid(300, 200, 0.5);
     write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
     let out = p(tmp.path(), "out");
-    let args = ["build", "--dsm", &p(tmp.path(), "dsm.tif"), "--features", "slope", "--out", &out, "--quiet"];
+    let args = [
+        "build",
+        "--dsm",
+        &p(tmp.path(), "dsm.tif"),
+        "--features",
+        "slope",
+        "--out",
+        &out,
+        "--quiet",
+    ];
     assert!(run(&args).status.success());
     let before = fs::read(tmp.path().join("out/stack.tif")).unwrap();
     let again = run(&args);
     assert_eq!(again.status.code(), Some(1));
     let e = stderr(&again);
-    assert!(e.contains("already holds a stack") && e.contains("--force"), "{e}");
+    assert!(
+        e.contains("already holds a stack") && e.contains("--force"),
+        "{e}"
+    );
     assert_eq!(fs::read(tmp.path().join("out/stack.tif")).unwrap(), before);
     let mut forced = args.to_vec();
     forced.extend(["--force", "--features", "slope,tpi"]);
     assert!(run(&forced).status.success(), "{}", stderr(&run(&forced)));
-    let meta: serde_json::Value = serde_json::from_str(&fs::read_to_string(tmp.path().join("out/stack.json")).unwrap()).unwrap();
+    let meta: serde_json::Value =
+        serde_json::from_str(&fs::read_to_string(tmp.path().join("out/stack.json")).unwrap())
+            .unwrap();
     assert_eq!(meta["bands"].as_array().unwrap().len(), 3); // slope, tpi at the default 1 and 5 m
 }
 
@@ -88,7 +121,16 @@ fn killed_build_leaves_nothing_that_looks_finished() {
     write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
     let out = tmp.path().join("out");
     let mut child = Command::new(env!("CARGO_BIN_EXE_terrastack"))
-        .args(["build", "--dsm", &p(tmp.path(), "dsm.tif"), "--scales", "1,5", "--threads", "1", "--out"])
+        .args([
+            "build",
+            "--dsm",
+            &p(tmp.path(), "dsm.tif"),
+            "--scales",
+            "1,5",
+            "--threads",
+            "1",
+            "--out",
+        ])
         .arg(&out)
         .stdout(Stdio::null())
         .stderr(Stdio::null())
@@ -98,7 +140,10 @@ fn killed_build_leaves_nothing_that_looks_finished() {
     let started = Instant::now();
     loop {
         let partial = fs::read_dir(&out)
-            .map(|d| d.flatten().any(|e| e.file_name().to_string_lossy().contains(".partial")))
+            .map(|d| {
+                d.flatten()
+                    .any(|e| e.file_name().to_string_lossy().contains(".partial"))
+            })
             .unwrap_or(false);
         if partial || started.elapsed() > Duration::from_secs(60) {
             break;
@@ -107,10 +152,25 @@ fn killed_build_leaves_nothing_that_looks_finished() {
     }
     child.kill().unwrap();
     child.wait().unwrap();
-    assert!(!out.join("stack.tif").exists(), "a killed build left stack.tif");
-    assert!(!out.join("stack.json").exists(), "a killed build left stack.json");
+    assert!(
+        !out.join("stack.tif").exists(),
+        "a killed build left stack.tif"
+    );
+    assert!(
+        !out.join("stack.json").exists(),
+        "a killed build left stack.json"
+    );
     // The next build succeeds and does not need --force.
-    let o = run(&["build", "--dsm", &p(tmp.path(), "dsm.tif"), "--features", "slope", "--out", &out.to_string_lossy(), "--quiet"]);
+    let o = run(&[
+        "build",
+        "--dsm",
+        &p(tmp.path(), "dsm.tif"),
+        "--features",
+        "slope",
+        "--out",
+        &out.to_string_lossy(),
+        "--quiet",
+    ]);
     assert!(o.status.success(), "{}", stderr(&o));
 }
 
@@ -120,10 +180,19 @@ fn dsm_without_crs_is_refused_and_nothing_written() {
     let mut grid = utm_grid(50, 40, 0.5);
     grid.crs = terrastack::Crs::none();
     write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
-    let o = run(&["build", "--dsm", &p(tmp.path(), "dsm.tif"), "--out", &p(tmp.path(), "out")]);
+    let o = run(&[
+        "build",
+        "--dsm",
+        &p(tmp.path(), "dsm.tif"),
+        "--out",
+        &p(tmp.path(), "out"),
+    ]);
     assert_eq!(o.status.code(), Some(1));
     let e = stderr(&o);
-    assert!(e.contains("dsm.tif") && e.contains("no coordinate reference system") && e.contains("fix:"), "{e}");
+    assert!(
+        e.contains("dsm.tif") && e.contains("no coordinate reference system") && e.contains("fix:"),
+        "{e}"
+    );
     assert!(!tmp.path().join("out").exists());
 }
 
@@ -132,15 +201,31 @@ fn ortho_that_does_not_overlap_is_refused() {
     let tmp = tempdir();
     let grid = utm_grid(50, 40, 0.5);
     write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
-    let far = terrastack::Grid::new(30, 30, [510_000.0, 0.5, 0.0, 5_000_000.0, 0.0, -0.5], terrastack::Crs::from_epsg(32633)).unwrap();
+    let far = terrastack::Grid::new(
+        30,
+        30,
+        [510_000.0, 0.5, 0.0, 5_000_000.0, 0.0, -0.5],
+        terrastack::Crs::from_epsg(32633),
+    )
+    .unwrap();
     write_ortho(&tmp.path().join("ortho.tif"), &far);
     let o = run(&[
-        "build", "--dsm", &p(tmp.path(), "dsm.tif"), "--ortho", &p(tmp.path(), "ortho.tif"),
-        "--bands", "blue=1,green=2,red=3,rededge=4,nir=5", "--out", &p(tmp.path(), "out"),
+        "build",
+        "--dsm",
+        &p(tmp.path(), "dsm.tif"),
+        "--ortho",
+        &p(tmp.path(), "ortho.tif"),
+        "--bands",
+        "blue=1,green=2,red=3,rededge=4,nir=5",
+        "--out",
+        &p(tmp.path(), "out"),
     ]);
     assert_eq!(o.status.code(), Some(1));
     let e = stderr(&o);
-    assert!(e.contains("ortho.tif") && e.contains("does not overlap"), "{e}");
+    assert!(
+        e.contains("ortho.tif") && e.contains("does not overlap"),
+        "{e}"
+    );
     assert!(!tmp.path().join("out").exists());
 }
 
@@ -151,12 +236,24 @@ fn band_number_past_the_files_bands_is_refused() {
     write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
     write_ortho(&tmp.path().join("ortho.tif"), &grid);
     let o = run(&[
-        "build", "--dsm", &p(tmp.path(), "dsm.tif"), "--ortho", &p(tmp.path(), "ortho.tif"),
-        "--bands", "red=3,nir=7", "--features", "ndvi", "--out", &p(tmp.path(), "out"),
+        "build",
+        "--dsm",
+        &p(tmp.path(), "dsm.tif"),
+        "--ortho",
+        &p(tmp.path(), "ortho.tif"),
+        "--bands",
+        "red=3,nir=7",
+        "--features",
+        "ndvi",
+        "--out",
+        &p(tmp.path(), "out"),
     ]);
     assert_ne!(o.status.code(), Some(0));
     let e = stderr(&o);
-    assert!(e.contains("ortho.tif") && e.contains("band 7") && e.contains("5 band"), "{e}");
+    assert!(
+        e.contains("ortho.tif") && e.contains("band 7") && e.contains("5 band"),
+        "{e}"
+    );
     assert!(!tmp.path().join("out").exists());
 }
 
@@ -167,7 +264,13 @@ fn unwritable_output_folder_is_refused() {
     write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
     fs::write(tmp.path().join("a-file"), "x").unwrap();
     // A folder below a regular file cannot be created, even by root.
-    let o = run(&["build", "--dsm", &p(tmp.path(), "dsm.tif"), "--out", &p(tmp.path(), "a-file/out")]);
+    let o = run(&[
+        "build",
+        "--dsm",
+        &p(tmp.path(), "dsm.tif"),
+        "--out",
+        &p(tmp.path(), "a-file/out"),
+    ]);
     assert_eq!(o.status.code(), Some(1));
     let e = stderr(&o);
     assert!(e.contains("a-file/out"), "{e}");
@@ -181,8 +284,17 @@ fn index_without_its_band_names_the_role() {
     write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
     write_ortho(&tmp.path().join("ortho.tif"), &grid);
     let o = run(&[
-        "build", "--dsm", &p(tmp.path(), "dsm.tif"), "--ortho", &p(tmp.path(), "ortho.tif"),
-        "--bands", "red=3,nir=5", "--features", "ndre", "--out", &p(tmp.path(), "out"),
+        "build",
+        "--dsm",
+        &p(tmp.path(), "dsm.tif"),
+        "--ortho",
+        &p(tmp.path(), "ortho.tif"),
+        "--bands",
+        "red=3,nir=5",
+        "--features",
+        "ndre",
+        "--out",
+        &p(tmp.path(), "out"),
     ]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("rededge"), "{}", stderr(&o));
@@ -193,13 +305,30 @@ fn stack_metadata_matches_the_image() {
     let tmp = tempdir();
     let grid = utm_grid(400, 300, 0.2);
     write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
-    let ortho_grid = terrastack::Grid::new(260, 200, [500_000.07, 0.3, 0.0, 5_000_000.0 - 0.05, 0.0, -0.3], terrastack::Crs::from_epsg(32633)).unwrap();
+    let ortho_grid = terrastack::Grid::new(
+        260,
+        200,
+        [500_000.07, 0.3, 0.0, 5_000_000.0 - 0.05, 0.0, -0.3],
+        terrastack::Crs::from_epsg(32633),
+    )
+    .unwrap();
     write_ortho(&tmp.path().join("ortho.tif"), &ortho_grid);
     let out = tmp.path().join("out");
     let o = run(&[
-        "build", "--dsm", &p(tmp.path(), "dsm.tif"), "--ortho", &p(tmp.path(), "ortho.tif"),
-        "--bands", "blue=1,green=2,red=3,rededge=4,nir=5", "--reflectance-scale", "1e-4",
-        "--index", "wet=(green - nir) / (green + nir)", "--out", &out.to_string_lossy(), "--quiet",
+        "build",
+        "--dsm",
+        &p(tmp.path(), "dsm.tif"),
+        "--ortho",
+        &p(tmp.path(), "ortho.tif"),
+        "--bands",
+        "blue=1,green=2,red=3,rededge=4,nir=5",
+        "--reflectance-scale",
+        "1e-4",
+        "--index",
+        "wet=(green - nir) / (green + nir)",
+        "--out",
+        &out.to_string_lossy(),
+        "--quiet",
     ]);
     assert!(o.status.success(), "{}", stderr(&o));
     let meta: terrastack::stack::sidecar::StackMetadata =
@@ -211,14 +340,23 @@ fn stack_metadata_matches_the_image() {
     assert_eq!(meta.grid.transform, grid.transform);
     assert_eq!(meta.grid.crs.epsg, Some(32633));
     for b in &meta.bands {
-        assert_eq!(src.band_info(b.index).description.as_deref(), Some(b.name.as_str()));
+        assert_eq!(
+            src.band_info(b.index).description.as_deref(),
+            Some(b.name.as_str())
+        );
     }
     let names: Vec<&str> = meta.bands.iter().map(|b| b.name.as_str()).collect();
-    assert!(names.contains(&"ndvi") && names.contains(&"wet") && names.contains(&"reflectance_nir"), "{names:?}");
+    assert!(
+        names.contains(&"ndvi") && names.contains(&"wet") && names.contains(&"reflectance_nir"),
+        "{names:?}"
+    );
     let wet = meta.bands.iter().find(|b| b.name == "wet").unwrap();
     assert_eq!(wet.feature, "expression");
     assert_eq!(meta.sources.len(), 2);
-    assert_eq!(meta.sources[0].sha256, terrastack::stack::executor::sha256_file(&tmp.path().join("dsm.tif")).unwrap());
+    assert_eq!(
+        meta.sources[0].sha256,
+        terrastack::stack::executor::sha256_file(&tmp.path().join("dsm.tif")).unwrap()
+    );
     assert!(out.join("preview.png").exists());
     assert_eq!(meta.parameters["resampling"], "bilinear");
 }

@@ -327,9 +327,7 @@ impl StackPlan {
 }
 
 /// Open the orthomosaic (one file, several roles) and per-band files; check band numbers.
-fn open_spectral(
-    recipe: &Recipe,
-) -> Result<(Vec<SpectralInput>, Option<AlphaBand>)> {
+fn open_spectral(recipe: &Recipe) -> Result<(Vec<SpectralInput>, Option<AlphaBand>)> {
     let mut inputs = Vec::new();
     let mut sources: Vec<BandSource> = Vec::new();
     let mut alpha = None;

@@ -25,7 +25,13 @@ pub fn stderr(o: &Output) -> String {
 
 /// A UTM 33N grid with `cell` metre cells, its north-west corner at (500000, 5000000).
 pub fn utm_grid(width: usize, height: usize, cell: f64) -> Grid {
-    Grid::new(width, height, [500_000.0, cell, 0.0, 5_000_000.0, 0.0, -cell], Crs::from_epsg(32633)).unwrap()
+    Grid::new(
+        width,
+        height,
+        [500_000.0, cell, 0.0, 5_000_000.0, 0.0, -cell],
+        Crs::from_epsg(32633),
+    )
+    .unwrap()
 }
 
 /// A test surface: a tilted plane plus two sinusoids and a paraboloid (closed form), in
@@ -35,7 +41,9 @@ pub fn surface(grid: &Grid) -> Array2<f32> {
     Array2::from_shape_fn((grid.height, grid.width), |(r, c)| {
         let x = (c as f64 + 0.5) * h;
         let y = -(r as f64 + 0.5) * h;
-        (200.0 + 0.05 * x - 0.03 * y + 0.8 * (x / 3.0).sin() * (y / 5.0).cos() + (x * x + y * y) / 4000.0) as f32
+        (200.0 + 0.05 * x - 0.03 * y
+            + 0.8 * (x / 3.0).sin() * (y / 5.0).cos()
+            + (x * x + y * y) / 4000.0) as f32
     })
 }
 
@@ -43,7 +51,14 @@ pub fn surface(grid: &Grid) -> Array2<f32> {
 pub fn write_dsm(path: &Path, grid: &Grid, data: &Array2<f32>) {
     let g = grid.clone().with_nodata(Some(-9999.0));
     let d = data.mapv(|v| if v.is_nan() { -9999.0 } else { v });
-    write_geotiff(path, &g, &[d.view()], &["elevation"], &WriteOptions::default()).unwrap();
+    write_geotiff(
+        path,
+        &g,
+        &[d.view()],
+        &["elevation"],
+        &WriteOptions::default(),
+    )
+    .unwrap();
 }
 
 /// Write a 5-band uint16 orthomosaic (reflectance x 10000) of smooth closed-form fields.
@@ -51,7 +66,9 @@ pub fn write_ortho(path: &Path, grid: &Grid) {
     let bands: Vec<Array2<u16>> = (0..5)
         .map(|b| {
             Array2::from_shape_fn((grid.height, grid.width), |(r, c)| {
-                let v = 1500.0 + 600.0 * b as f64 + 400.0 * ((r as f64 * 0.05 + b as f64).sin() + (c as f64 * 0.03).cos());
+                let v = 1500.0
+                    + 600.0 * b as f64
+                    + 400.0 * ((r as f64 * 0.05 + b as f64).sin() + (c as f64 * 0.03).cos());
                 v as u16
             })
         })
@@ -60,7 +77,14 @@ pub fn write_ortho(path: &Path, grid: &Grid) {
     let g = grid.clone().with_nodata(Some(0.0));
     let mut o = WriteOptions::default();
     o.sample_type = terrastack::raster::SampleType::U16;
-    write_geotiff(path, &g, &views, &["blue", "green", "red", "rededge", "nir"], &o).unwrap();
+    write_geotiff(
+        path,
+        &g,
+        &views,
+        &["blue", "green", "red", "rededge", "nir"],
+        &o,
+    )
+    .unwrap();
 }
 
 /// A fresh temporary folder.
