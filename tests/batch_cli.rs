@@ -163,7 +163,8 @@ fn tree(root: &Path) -> BTreeMap<String, Vec<u8>> {
 #[test]
 fn killed_batch_resumes_to_the_same_bytes() {
     let tmp = tempfile::tempdir().unwrap();
-    let manifest = make_site(tmp.path(), 384, "");
+    // 520 cells a side: four 512-cell tiles, so tile order in the files is exercised.
+    let manifest = make_site(tmp.path(), 520, "");
     let clean = tmp.path().join("clean");
     let out = batch(
         &manifest,

@@ -226,6 +226,7 @@ pub fn run(
         work,
         hashes: Mutex::new(HashMap::new()),
         threads: (total_threads / jobs).max(1),
+        total_threads: total_threads.max(1),
         memory_bytes: options.memory_bytes / jobs as u64,
     };
     let next = AtomicUsize::new(0);
@@ -306,6 +307,7 @@ struct Context<'a> {
     /// SHA-256 of every file hashed in this run, so each is read once.
     hashes: Mutex<HashMap<PathBuf, String>>,
     threads: usize,
+    total_threads: usize,
     memory_bytes: u64,
 }
 
@@ -514,7 +516,12 @@ impl Context<'_> {
             }
             let _ = std::fs::remove_file(&ledger_path);
             remove_partials(&dir);
-            let meta = temporal::write_temporal(&flights, self.grid, &dir, true)?;
+            let pool = rayon::ThreadPoolBuilder::new()
+                .num_threads(self.total_threads)
+                .build()
+                .map_err(|e| Error::usage(format!("cannot start the worker threads: {e}")))?;
+            let meta =
+                pool.install(|| temporal::write_temporal(&flights, self.grid, &dir, true))?;
             let rec = serde_json::json!({
                 "format": LEDGER_FORMAT,
                 "inputs_sha256": key_sha,

@@ -18,7 +18,8 @@
 //!
 //! Summaries use the valid (non-NaN) dates of each cell only; a cell with no valid date is
 //! NaN in every summary. Sums run in f64 in date order, so results do not depend on threads
-//! or tiles.
+//! or tiles; tiles are appended to the file in a fixed order, so two runs write the same
+//! bytes.
 
 use std::path::{Path, PathBuf};
 
@@ -27,7 +28,7 @@ use rayon::prelude::*;
 
 use crate::error::{Error, Result};
 use crate::grid::{Grid, Window};
-use crate::raster::geotiff::{GeoTiffWriter, WriteOptions};
+use crate::raster::geotiff::{EncodedBlock, GeoTiffWriter, WriteOptions};
 use crate::raster::{self, RasterSource};
 use crate::stack::output::OutputDir;
 use crate::stack::sidecar::{
@@ -300,44 +301,56 @@ pub fn write_temporal(
             })
         })
         .collect();
-    let per_tile: Vec<Result<Vec<StatsAccumulator>>> = tiles
-        .par_iter()
-        .map(|w| {
-            let mut stats = vec![StatsAccumulator::default(); bands.len()];
-            let (tc, tr) = (w.col as usize / tile, w.row as usize / tile);
-            // Dated bands, read and written one at a time.
-            for (bi, o) in origins.iter().enumerate() {
-                if let Origin::Dated { flight, band } = o {
-                    let data = readers[*flight].read_window(*band, *w)?;
-                    stats[bi] = StatsAccumulator::from_values(data.iter());
-                    writer.write_block(bi + 1, tc, tr, data.view())?;
-                }
-            }
-            // Summaries, one common name at a time.
-            for (ni, (_, idx, which)) in common.iter().enumerate() {
-                let dated: Vec<Array2<f32>> = readers
-                    .iter()
-                    .zip(idx)
-                    .map(|(r, &band)| r.read_window(band, *w))
-                    .collect::<Result<_>>()?;
-                let views: Vec<ArrayView2<f32>> = dated.iter().map(|a| a.view()).collect();
-                let sums = summarise(&views, which);
+    // Tiles are computed and compressed in parallel, a wave at a time, and appended in tile
+    // order, so the file's bytes do not depend on which thread finishes first.
+    let mut totals = vec![StatsAccumulator::default(); bands.len()];
+    let wave = rayon::current_num_threads().max(1);
+    for chunk in tiles.chunks(wave) {
+        let results: Vec<Result<(Vec<StatsAccumulator>, Vec<EncodedBlock>)>> = chunk
+            .par_iter()
+            .map(|w| {
+                let mut stats = vec![StatsAccumulator::default(); bands.len()];
+                let mut encoded: Vec<Option<EncodedBlock>> =
+                    (0..bands.len()).map(|_| None).collect();
+                let (tc, tr) = (w.col as usize / tile, w.row as usize / tile);
+                // Dated bands, read one at a time.
                 for (bi, o) in origins.iter().enumerate() {
-                    if let Origin::Summary { name, which: wi } = o {
-                        if *name == ni {
-                            stats[bi] = StatsAccumulator::from_values(sums[*wi].iter());
-                            writer.write_block(bi + 1, tc, tr, sums[*wi].view())?;
+                    if let Origin::Dated { flight, band } = o {
+                        let data = readers[*flight].read_window(*band, *w)?;
+                        stats[bi] = StatsAccumulator::from_values(data.iter());
+                        encoded[bi] = Some(writer.encode_block(bi + 1, tc, tr, data.view())?);
+                    }
+                }
+                // Summaries, one common name at a time.
+                for (ni, (_, idx, which)) in common.iter().enumerate() {
+                    let dated: Vec<Array2<f32>> = readers
+                        .iter()
+                        .zip(idx)
+                        .map(|(r, &band)| r.read_window(band, *w))
+                        .collect::<Result<_>>()?;
+                    let views: Vec<ArrayView2<f32>> = dated.iter().map(|a| a.view()).collect();
+                    let sums = summarise(&views, which);
+                    for (bi, o) in origins.iter().enumerate() {
+                        if let Origin::Summary { name, which: wi } = o {
+                            if *name == ni {
+                                stats[bi] = StatsAccumulator::from_values(sums[*wi].iter());
+                                encoded[bi] =
+                                    Some(writer.encode_block(bi + 1, tc, tr, sums[*wi].view())?);
+                            }
                         }
                     }
                 }
+                Ok((stats, encoded.into_iter().flatten().collect()))
+            })
+            .collect();
+        for r in results {
+            let (stats, encoded) = r?;
+            for block in encoded {
+                writer.write_encoded(block)?;
             }
-            Ok(stats)
-        })
-        .collect();
-    let mut totals = vec![StatsAccumulator::default(); bands.len()];
-    for part in per_tile {
-        for (t, p) in totals.iter_mut().zip(part?.iter()) {
-            t.merge(p);
+            for (t, p) in totals.iter_mut().zip(stats.iter()) {
+                t.merge(p);
+            }
         }
     }
     writer.finish()?;
