@@ -312,6 +312,7 @@ fn in_file(e: Error, path: &Path) -> Error {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use ndarray::Array2;
 
     /// A textured closed-form surface (micro-relief of many scales, as a DSM of grass and
     /// shrubs has): 200 plane waves with pseudo-random frequencies up to 0.35 cycles per
