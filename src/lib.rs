@@ -15,6 +15,7 @@
 //! - [`demo_site`]: the generator of the invented demo site in `sample-dsm/`.
 
 pub mod align;
+pub mod batch;
 pub mod demo_site;
 pub mod error;
 pub mod grid;

@@ -5,6 +5,7 @@ use clap::{Parser, Subcommand};
 
 use terrastack::Result;
 
+mod batch;
 pub mod build;
 mod demo;
 mod features;
@@ -23,6 +24,8 @@ struct Cli {
 
 #[derive(Subcommand)]
 enum Command {
+    /// Build many flights from a manifest: parallel, resumable, shardable, multi-temporal.
+    Batch(batch::Args),
     /// Build one flight's stack: DSM (and orthomosaic) → stack.tif, stack.json, preview.png.
     Build(Box<build::Args>),
     /// Build the stacks of the bundled demo site (invented data in sample-dsm/).
@@ -41,6 +44,7 @@ enum Command {
 pub fn run() -> Result<()> {
     let cli = Cli::parse();
     match cli.command {
+        Command::Batch(args) => batch::run(args),
         Command::Build(args) => build::run(*args),
         Command::Demo(args) => demo::run(args),
         Command::Features(args) => features::run(args),
