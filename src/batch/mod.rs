@@ -39,9 +39,10 @@ use crate::raster;
 use crate::stack::{self, BuildOptions, Progress, Recipe};
 
 use ledger::{sha256_file, sha256_hex, InputHash, LedgerRecord, ShiftRecord, LEDGER_FORMAT};
-use manifest::{Flight, Manifest, ShiftLayer};
+pub use manifest::Manifest;
+use manifest::{Flight, ShiftLayer};
 use report::{BatchReport, FlightReport, ShiftReport, Status, TemporalReport, REPORT_FORMAT};
-use shard::Shard;
+pub use shard::Shard;
 use temporal::DatedStack;
 
 /// Folder of the flights' stacks inside the output root.
