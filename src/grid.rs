@@ -151,16 +151,30 @@ impl Crs {
         }
     }
 
-    /// Whether two CRSs are the same, as far as can be told without GDAL: equal EPSG
-    /// codes, or equal WKT when neither has a code. With the `gdal` feature,
-    /// `raster::gdal::same_crs` compares through GDAL's spatial-reference API instead.
+    /// Whether two CRSs are the same. Equal EPSG codes decide at once; different codes
+    /// mean different CRSs. Otherwise (a code missing on either side) the `gdal` feature
+    /// compares through GDAL's spatial-reference API (`raster::gdal::same_crs`); without it,
+    /// equal WKT texts are the same and unknown CRSs only equal each other.
     pub fn same_as(&self, other: &Crs) -> bool {
-        match (self.epsg, other.epsg) {
+        if let (Some(a), Some(b)) = (self.epsg, other.epsg) {
+            return a == b;
+        }
+        #[cfg(feature = "gdal")]
+        if self.kind != CrsKind::Unknown && other.kind != CrsKind::Unknown {
+            return crate::raster::gdal::same_crs(self, other);
+        }
+        self.same_as_without_gdal(other)
+    }
+
+    /// [`Crs::same_as`] from what the two values hold alone: equal EPSG codes, else equal
+    /// WKT texts; unknown CRSs only equal each other.
+    pub fn same_as_without_gdal(&self, other: &Crs) -> bool {
+        if let (Some(a), Some(b)) = (self.epsg, other.epsg) {
+            return a == b;
+        }
+        match (&self.wkt, &other.wkt) {
             (Some(a), Some(b)) => a == b,
-            _ => match (&self.wkt, &other.wkt) {
-                (Some(a), Some(b)) => a == b,
-                _ => self.kind == CrsKind::Unknown && other.kind == CrsKind::Unknown,
-            },
+            _ => self.kind == CrsKind::Unknown && other.kind == CrsKind::Unknown,
         }
     }
 }

@@ -20,6 +20,7 @@ pub mod demo_site;
 pub mod error;
 pub mod grid;
 pub mod raster;
+pub mod sample;
 pub mod spectral;
 pub mod stack;
 pub mod terrain;

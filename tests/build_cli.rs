@@ -7,7 +7,7 @@ use std::fs;
 use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
 
-use terrastack::raster::{self, RasterSource};
+use terrastack::raster;
 use terrastack::stack::{self, BuildOptions, Progress, Recipe, RecipeFlags};
 use terrastack::Window;
 use util::*;
@@ -64,6 +64,7 @@ fn results_do_not_depend_on_threads_block_size_or_budget() {
     let fa = fs::read(tmp.path().join("a/stack.tif")).unwrap();
     let fb = fs::read(tmp.path().join("b/stack.tif")).unwrap();
     assert!(fa == fb, "stack.tif differs between 1 and 2 threads");
+    assert_eq!(a.metadata.bands, b.metadata.bands);
     // Other block size: the same bits in every band, the same statistics.
     assert_eq!(
         read_all(&tmp.path().join("a/stack.tif")),

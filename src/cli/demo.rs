@@ -1,12 +1,14 @@
 //! `terrastack demo`: builds the stack of every flight of the bundled demo site
 //! (`sample-dsm/`, invented data) and prints where the outputs are and a band table.
 //!
-//! The demo replaces the stacks it built before in its own output folder, so it can be run
-//! again and again.
+//! It then samples the reference flight's stack at the site's labelled circles into a
+//! training table with five stratified folds (`training.csv`). The demo replaces what it
+//! built before in its own output folder, so it can be run again and again.
 
 use std::path::{Path, PathBuf};
 
 use serde_json::Value;
+use terrastack::sample::{self, SampleOptions};
 use terrastack::stack::{self, BuildOptions, Progress, Recipe, RecipeFlags};
 use terrastack::{Error, Result};
 
@@ -73,6 +75,7 @@ pub fn run(args: Args) -> Result<()> {
             flights.len()
         );
     }
+    let mut reference_stack = None;
     for flight in flights {
         let date = flight["date"].as_str().unwrap_or("flight");
         let dsm = data.join(flight["dsm"].as_str().unwrap_or_default());
@@ -97,6 +100,23 @@ pub fn run(args: Args) -> Result<()> {
         println!("flight {date}");
         let report = stack::build(recipe, &options)?;
         print_summary(&report);
+        if flight["reference"].as_bool() == Some(true) || reference_stack.is_none() {
+            reference_stack = Some(report.dir.clone());
+        }
+    }
+    let samples = data.join(site["samples"]["file"].as_str().unwrap_or("samples.csv"));
+    if let (Some(stack_dir), true) = (reference_stack, samples.exists()) {
+        let table = args.out.join("training.csv");
+        let summary = sample::run(
+            &stack_dir,
+            &samples,
+            &table,
+            true,
+            &SampleOptions::default(),
+        )?;
+        println!();
+        println!("training table from {}:", stack_dir.display());
+        print!("{summary}");
     }
     Ok(())
 }

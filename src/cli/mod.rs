@@ -10,6 +10,7 @@ pub mod build;
 mod demo;
 mod features;
 mod info;
+mod sample;
 mod verify;
 
 /// Turn drone DSMs and multispectral orthomosaics into a co-registered, documented stack
@@ -35,6 +36,8 @@ enum Command {
     Features(features::Args),
     /// Check every terrain formula against closed-form surfaces; non-zero exit on failure.
     Verify(verify::Args),
+    /// Training tables at labelled points, circles and polygons, with cross-validation folds.
+    Sample(sample::Args),
 }
 
 /// Parse the command line and run the command.
@@ -47,5 +50,6 @@ pub fn run() -> Result<()> {
         Command::Features(args) => features::run(args),
         Command::Info(args) => info::run(args),
         Command::Verify(args) => verify::run(args),
+        Command::Sample(args) => sample::run(args),
     }
 }

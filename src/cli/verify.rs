@@ -1,7 +1,19 @@
 //! `terrastack verify`: checks every terrain formula against closed-form surfaces, prints
 //! the error table (or JSON with `--json`) and exits non-zero when a check fails.
 
+use std::io::Write;
+
 use terrastack::{verify, Error, Result};
+
+/// Writes `text` to standard output; a closed pipe (e.g. `| head`) is not an error.
+fn emit(text: &str) -> Result<()> {
+    let mut out = std::io::stdout().lock();
+    match out.write_all(text.as_bytes()).and_then(|_| out.flush()) {
+        Ok(()) => Ok(()),
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
+        Err(e) => Err(Error::io("standard output", e)),
+    }
+}
 
 #[derive(clap::Args)]
 pub struct Args {
@@ -15,9 +27,9 @@ pub fn run(args: Args) -> Result<()> {
     if args.json {
         let text = serde_json::to_string_pretty(&report)
             .map_err(|e| Error::usage(format!("could not encode the report as JSON: {e}")))?;
-        println!("{text}");
+        emit(&format!("{text}\n"))?;
     } else {
-        print!("{}", report.to_table());
+        emit(&report.to_table())?;
     }
     if report.passed() {
         Ok(())

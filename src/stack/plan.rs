@@ -93,24 +93,22 @@ impl StackPlan {
             .map_err(|e| e.in_file(&recipe.dsm))?;
 
         let (spectral_inputs, alpha) = open_spectral(&recipe)?;
-        let mut other_grids: Vec<Grid> = Vec::new();
-        let mut seen = BTreeSet::new();
+        let mut others: Vec<(std::path::PathBuf, Grid)> = Vec::new();
         for input in &spectral_inputs {
-            if seen.insert(input.band.path.clone()) {
+            if !others.iter().any(|(p, _)| p == &input.band.path) {
                 check_overlap(
                     &recipe.dsm,
                     &dsm_grid,
                     &input.band.path,
                     input.source.grid(),
                 )?;
-                other_grids.push(input.source.grid().clone());
+                others.push((input.band.path.clone(), input.source.grid().clone()));
             }
         }
         let extent = match recipe.extent.as_str() {
             "intersection" => ExtentRule::Intersection,
             _ => ExtentRule::Dsm,
         };
-        let refs: Vec<&Grid> = other_grids.iter().collect();
         let mut target = match grid {
             Some(g) => {
                 if !g.crs.same_as(&dsm_grid.crs) {
@@ -126,10 +124,24 @@ impl StackPlan {
                 }
                 g.clone()
             }
-            None => align::target_grid(&dsm_grid, &refs, recipe.resolution_m, extent)
-                .map_err(|e| e.in_file(&recipe.dsm))?,
+            None => {
+                let named: Vec<(&Path, &Grid)> =
+                    others.iter().map(|(p, g)| (p.as_path(), g)).collect();
+                align::target_grid_named(
+                    (&recipe.dsm, &dsm_grid),
+                    &named,
+                    recipe.resolution_m,
+                    extent,
+                )?
+            }
         };
         target.nodata = Some(f64::NAN);
+        #[cfg(feature = "gdal")]
+        {
+            // GDAL knows the WKT of EPSG codes: stack.json then carries both.
+            target.crs =
+                raster::gdal::complete_crs(&target.crs).map_err(|e| e.in_file(&recipe.dsm))?;
+        }
         let dsm_on_target = dsm_grid.same_geometry(&target, 0.0);
 
         let mapped: Vec<Role> = spectral_inputs
@@ -200,7 +212,7 @@ impl StackPlan {
                         producer: Producer::Terrain(terrain_features.len()),
                         name: feature.band_name(),
                         feature: feature.feature_key().to_string(),
-                        method: feature.method(),
+                        method: feature.method_with_shape(shape),
                         scale_m: feature.scale_m(),
                         window_px: feature.scale_m().map(|_| 2 * wx.max(wy) + 1),
                         units: feature.units().to_string(),
@@ -360,10 +372,23 @@ fn open_spectral(recipe: &Recipe) -> Result<(Vec<SpectralInput>, Option<AlphaBan
     }
     for spec in &recipe.band_files {
         let (role, path, band) = spectral::parse_band_file(spec)?;
-        let role = role.ok_or_else(|| {
-            Error::usage(format!("--band {spec:?} does not name a role"))
-                .with_fix("write --band ROLE=FILE[:BAND]")
-        })?;
+        let Some(role) = role else {
+            // `--band alpha=FILE[:BAND]`: a coverage mask from its own file.
+            let src = open_once(&path)?;
+            spectral::check_band_exists(
+                &path,
+                band,
+                src.band_count(),
+                &Role::Extra("alpha".into()),
+            )?;
+            if alpha.is_some() {
+                return Err(
+                    Error::usage("the alpha band is given twice").with_fix("give one alpha band")
+                );
+            }
+            alpha = Some((src, band));
+            continue;
+        };
         if sources.iter().any(|s| s.role == role) {
             return Err(Error::usage(format!("role `{role}` is mapped twice"))
                 .with_fix("map each role once"));
@@ -396,11 +421,7 @@ fn open_spectral(recipe: &Recipe) -> Result<(Vec<SpectralInput>, Option<AlphaBan
 
 /// Refuse an input that does not overlap the DSM, or lies in another CRS without GDAL.
 fn check_overlap(dsm_path: &Path, dsm: &Grid, path: &Path, grid: &Grid) -> Result<()> {
-    #[cfg(feature = "gdal")]
-    let same = raster::gdal::same_crs(&dsm.crs, &grid.crs);
-    #[cfg(not(feature = "gdal"))]
-    let same = dsm.crs.same_as(&grid.crs);
-    if !same {
+    if !dsm.crs.same_as(&grid.crs) {
         #[cfg(not(feature = "gdal"))]
         return Err(Error::file(
             path,

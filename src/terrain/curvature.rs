@@ -22,7 +22,7 @@ pub fn profile(d: &Pqrst) -> f64 {
         return f64::NAN;
     }
     let w = 1.0 + g;
-    -(d.p * d.p * d.r + 2.0 * d.p * d.q * d.s + d.q * d.q * d.t) / (g * w.powf(1.5))
+    -(d.p * d.p * d.r + 2.0 * d.p * d.q * d.s + d.q * d.q * d.t) / (g * w * w.sqrt())
 }
 
 /// Tangential curvature kt (1/m): normal curvature along the contour; NaN where g = 0.
@@ -42,14 +42,14 @@ pub fn plan(d: &Pqrst) -> f64 {
     if g == 0.0 {
         return f64::NAN;
     }
-    -(d.q * d.q * d.r - 2.0 * d.p * d.q * d.s + d.p * d.p * d.t) / g.powf(1.5)
+    -(d.q * d.q * d.r - 2.0 * d.p * d.q * d.s + d.p * d.p * d.t) / (g * g.sqrt())
 }
 
 /// Mean curvature H (1/m), the average of the principal curvatures.
 pub fn mean(d: &Pqrst) -> f64 {
     let w = 1.0 + d.p * d.p + d.q * d.q;
     -((1.0 + d.q * d.q) * d.r - 2.0 * d.p * d.q * d.s + (1.0 + d.p * d.p) * d.t)
-        / (2.0 * w.powf(1.5))
+        / (2.0 * w * w.sqrt())
 }
 
 /// Gaussian curvature K (1/m²), the product of the principal curvatures.

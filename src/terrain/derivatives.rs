@@ -21,10 +21,11 @@
 //! derivative is NaN. Cost: O(1) per cell; rows run in parallel (rayon); each value is a
 //! pointwise function of nine cells, so results do not depend on block or thread count.
 
-use ndarray::{Array2, Zip};
+use ndarray::{Array2, Array3, ArrayView2, Axis, Zip};
 use rayon::prelude::*;
 
 use super::{RowSizes, SlopeMethod};
+use crate::terrain::roughness::tri_3x3;
 
 /// Partial derivatives at one cell (units: p, q unitless; r, s, t in 1/m).
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -218,6 +219,97 @@ pub fn horn_pq_region(
             }
         });
     (p, q)
+}
+
+/// One output of the fused 3x3 pass.
+#[derive(Clone, Copy)]
+pub enum PointJob {
+    /// A pointwise function of the derivatives from one estimator.
+    Derivative(SlopeMethod, fn(&Pqrst) -> f64),
+    /// Riley et al. 1999 TRI.
+    Tri,
+}
+
+/// Evaluates `jobs` for the interior of `z` (elevations × `z_factor`, NaN = nodata) in one
+/// pass: each cell's nine elevations are read once, each needed estimator runs once, and
+/// every requested output is written. Rows run in parallel; each value is a pointwise
+/// function of nine cells and the centre row's cell sizes. O(1) per cell.
+pub fn fused_3x3(
+    z: ArrayView2<f32>,
+    z_factor: f64,
+    sizes: RowSizes,
+    halo: usize,
+    jobs: &[PointJob],
+) -> Vec<Array2<f32>> {
+    let (nr, nc) = z.dim();
+    let out_r = nr - 2 * halo;
+    let out_c = nc - 2 * halo;
+    let k = jobs.len();
+    let mut methods: Vec<SlopeMethod> = jobs
+        .iter()
+        .filter_map(|j| match j {
+            PointJob::Derivative(m, _) => Some(*m),
+            PointJob::Tri => None,
+        })
+        .collect();
+    methods.sort_unstable();
+    methods.dedup();
+    let slot: Vec<usize> = jobs
+        .iter()
+        .map(|j| match j {
+            PointJob::Derivative(m, _) => methods.iter().position(|x| x == m).unwrap_or(0),
+            PointJob::Tri => 0,
+        })
+        .collect();
+    let mut buf = Array3::<f32>::from_elem((out_r, k, out_c), f32::NAN);
+    buf.axis_iter_mut(Axis(0))
+        .into_par_iter()
+        .enumerate()
+        .for_each(|(i, mut orow)| {
+            let row = halo + i;
+            if row == 0 || row + 1 >= nr {
+                return;
+            }
+            let (hx, hy) = (sizes.hx(row), sizes.hy(row));
+            let lines: Vec<Vec<f64>> = (row - 1..=row + 1)
+                .map(|r| z.row(r).iter().map(|&v| v as f64 * z_factor).collect())
+                .collect();
+            let (a, b, c) = (&lines[0], &lines[1], &lines[2]);
+            let mut d = [Pqrst::NAN; 3];
+            for j in 0..out_c {
+                let col = halo + j;
+                if col == 0 || col + 1 >= nc {
+                    continue;
+                }
+                let w = [
+                    a[col - 1],
+                    a[col],
+                    a[col + 1],
+                    b[col - 1],
+                    b[col],
+                    b[col + 1],
+                    c[col - 1],
+                    c[col],
+                    c[col + 1],
+                ];
+                if w.iter().any(|v| v.is_nan()) {
+                    continue;
+                }
+                for (dk, m) in d.iter_mut().zip(methods.iter()) {
+                    *dk = pqrst_3x3(&w, hx, hy, *m).unwrap_or(Pqrst::NAN);
+                }
+                for (f, job) in jobs.iter().enumerate() {
+                    let v = match job {
+                        PointJob::Derivative(_, func) => func(&d[slot[f]]),
+                        PointJob::Tri => tri_3x3(&w),
+                    };
+                    orow[[f, j]] = v as f32;
+                }
+            }
+        });
+    (0..k)
+        .map(|f| buf.index_axis(Axis(1), f).to_owned())
+        .collect()
 }
 
 #[cfg(test)]

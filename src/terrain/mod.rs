@@ -14,6 +14,10 @@
 //! nine cells; window sums use exact integer arithmetic (see [`window_sums`]); running
 //! extrema are exact. Two runs with different blocks or thread counts are bit-identical.
 //!
+//! Cost per output cell: 3x3 features and square windows O(1) whatever the radius; disc
+//! windows O(r/h) (one row segment per window row); the multi-scale quadratic fit O(1).
+//! `z_factor` should be finite and positive (the command line checks it).
+//!
 //! Outputs are analysis aids for mapping and classification, not engineering assessments
 //! of ground stability or access; those defer to local codes and licensed practice.
 
@@ -659,6 +663,9 @@ impl<'a> RowSizes<'a> {
     }
 }
 
+/// A pointwise function of partial derivatives (slope, aspect, a curvature, ...).
+type Pointwise = fn(&derivatives::Pqrst) -> f64;
+
 /// Key of a set of first and second derivatives: the estimator and the fit radius.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
 struct DerivKey {
@@ -694,6 +701,51 @@ pub fn compute(
     }
     let sizes = RowSizes::new(cells);
     let zf = params.z_factor;
+    let pointwise_of = |f: &TerrainFeature| -> Option<(SlopeMethod, Pointwise)> {
+        let (method, scale) = f.derivative_spec()?;
+        if method == SlopeMethod::Quadratic && scale.is_some() {
+            return None;
+        }
+        let method = if method == SlopeMethod::Quadratic {
+            SlopeMethod::EvansYoung
+        } else {
+            method
+        };
+        let func: fn(&derivatives::Pqrst) -> f64 = match f {
+            TerrainFeature::Slope { .. } => slope::slope_deg,
+            TerrainFeature::Aspect { .. } => slope::aspect_deg,
+            TerrainFeature::Northness { .. } => slope::northness,
+            TerrainFeature::Eastness { .. } => slope::eastness,
+            TerrainFeature::ProfileCurvature { .. } => curvature::profile,
+            TerrainFeature::PlanCurvature { .. } => curvature::plan,
+            TerrainFeature::TangentialCurvature { .. } => curvature::tangential,
+            TerrainFeature::MeanCurvature { .. } => curvature::mean,
+            _ => curvature::gaussian,
+        };
+        Some((method, func))
+    };
+    let mut outputs: Vec<Option<Array2<f32>>> = vec![None; features.len()];
+
+    // 3x3 features (derivative estimators and TRI) in one fused pass over the block.
+    let mut jobs: Vec<(usize, derivatives::PointJob)> = Vec::new();
+    for (k, f) in features.iter().enumerate() {
+        if *f == TerrainFeature::Tri {
+            jobs.push((k, derivatives::PointJob::Tri));
+        } else if let Some((m, func)) = pointwise_of(f) {
+            jobs.push((k, derivatives::PointJob::Derivative(m, func)));
+        }
+    }
+    if !jobs.is_empty() {
+        let list: Vec<derivatives::PointJob> = jobs.iter().map(|(_, j)| *j).collect();
+        let res = derivatives::fused_3x3(z, zf, sizes, halo, &list);
+        for ((k, _), a) in jobs.iter().zip(res) {
+            outputs[*k] = Some(a);
+        }
+    }
+    if outputs.iter().all(Option::is_some) {
+        return outputs.into_iter().flatten().collect();
+    }
+
     // Elevations in metres (f64), NaN = nodata.
     let zs: Array2<f64> = z.mapv(|v| v as f64 * zf);
     let interior = |a: &Array2<f64>| -> Array2<f32> {
@@ -704,6 +756,9 @@ pub fn compute(
     // 3x3 and fitted derivatives, one set per (method, scale).
     let mut derivs: BTreeMap<DerivKey, Derivatives> = BTreeMap::new();
     for f in features {
+        if pointwise_of(f).is_some() {
+            continue;
+        }
         if let Some((method, scale)) = f.derivative_spec() {
             let key = DerivKey {
                 method,
@@ -721,7 +776,6 @@ pub fn compute(
         }
     }
 
-    let mut outputs: Vec<Option<Array2<f32>>> = vec![None; features.len()];
     let frac = params.min_valid_fraction;
     let layout_for = |r: f64| Layout::new(params.shape, r, sizes, halo, out_r);
 
@@ -860,7 +914,6 @@ pub fn compute(
         }
         let out: Array2<f32> = match f {
             TerrainFeature::Elevation => interior(&zs),
-            TerrainFeature::Tri => roughness::tri(&zs, halo, out_r, out_c),
             TerrainFeature::Vrm { radius_m } => {
                 let layout = layout_for(*radius_m);
                 vrm::vrm(&zs, sizes, &layout, halo, out_c, frac).mapv(|x| x as f32)
@@ -913,7 +966,7 @@ pub fn compute(
 
 #[cfg(test)]
 pub(crate) mod test_support {
-    //! Shared helpers for the terrain tests: a small deterministic PRNG and surface sampling.
+    //! Shared fixtures for the terrain tests: a small deterministic PRNG and surface sampling.
 
     use ndarray::Array2;
 

@@ -16,8 +16,6 @@
 //!
 //! Windowed results are NaN with fewer than `min_valid_fraction` × window cells valid.
 
-use ndarray::{Array2, Zip};
-
 use super::position::{enough, variance_numerator};
 use super::window_sums::{CellSums, Z_QUANTUM_M};
 
@@ -65,31 +63,10 @@ pub fn detrended_std(cells: u64, s: &CellSums, min_valid_fraction: f64) -> f64 {
     var_n2.sqrt() / s.n as f64 * Z_QUANTUM_M
 }
 
-/// TRI (metres) for the interior of `zs` (elevations in metres, NaN = nodata).
-pub fn tri(zs: &Array2<f64>, halo: usize, out_r: usize, out_c: usize) -> Array2<f32> {
-    let (nr, nc) = zs.dim();
-    let mut out = Array2::<f32>::from_elem((out_r, out_c), f32::NAN);
-    Zip::indexed(&mut out).par_for_each(|(i, j), o| {
-        let (r, c) = (halo + i, halo + j);
-        if r == 0 || c == 0 || r + 1 >= nr || c + 1 >= nc {
-            return;
-        }
-        let z5 = zs[[r, c]];
-        let mut acc = 0.0;
-        for dr in 0..3 {
-            for dc in 0..3 {
-                let v = zs[[r + dr - 1, c + dc - 1]];
-                if !v.is_finite() {
-                    return;
-                }
-                acc += (v - z5) * (v - z5);
-            }
-        }
-        if z5.is_finite() {
-            *o = acc.sqrt() as f32;
-        }
-    });
-    out
+/// TRI (metres) of one 3x3 window `w` (row-major from the north-west, all finite).
+pub fn tri_3x3(w: &[f64; 9]) -> f64 {
+    let z5 = w[4];
+    w.iter().map(|v| (v - z5) * (v - z5)).sum::<f64>().sqrt()
 }
 
 #[cfg(test)]

@@ -15,7 +15,7 @@
 //! fraction, which the callers check). Minimum and maximum are exact, so results do not
 //! depend on the block layout or thread count.
 
-use ndarray::{Array2, Axis, Zip};
+use ndarray::{Array2, Axis};
 use rayon::prelude::*;
 
 use super::window_sums::Layout;
@@ -62,14 +62,14 @@ pub fn running_min(
     while k < len {
         let end = (k + l as usize).min(len);
         let mut run = f64::INFINITY;
-        for kk in k..end {
+        for (kk, gv) in g.iter_mut().enumerate().take(end).skip(k) {
             run = run.min(at(e_lo + kk as i64));
-            g[kk] = run;
+            *gv = run;
         }
         let mut run = f64::INFINITY;
-        for kk in (k..end).rev() {
+        for (kk, hv) in h.iter_mut().enumerate().take(end).skip(k).rev() {
             run = run.min(at(e_lo + kk as i64));
-            h[kk] = run;
+            *hv = run;
         }
         k = end;
     }
@@ -162,25 +162,91 @@ fn window_min(a: &Array2<f64>, layout: &Layout, halo: usize, out_c: usize) -> Ar
                         let hs = hrow.as_slice_mut().expect("standard layout");
                         running_min(line, kx, halo as i64, hs, &mut g, &mut h);
                     });
-                // Vertical pass, column by column.
+                // Vertical pass, row-vectorised over strips of columns.
                 let centre0 = layout.rows[i].centre as i64 - r0;
-                let mut part = out.slice_mut(ndarray::s![i..end, ..]);
-                Zip::from(part.lanes_mut(Axis(0)))
-                    .and(horiz.lanes(Axis(0)))
-                    .par_for_each(|mut ocol, hcol| {
-                        let col: Vec<f64> = hcol.iter().copied().collect();
-                        let (mut g, mut h) = (Vec::new(), Vec::new());
-                        let mut buf = vec![0.0; ocol.len()];
-                        running_min(&col, ky, centre0, &mut buf, &mut g, &mut h);
-                        for (o, b) in ocol.iter_mut().zip(buf) {
-                            *o = b;
-                        }
-                    });
+                let part = out.slice_mut(ndarray::s![i..end, ..]);
+                vertical_min(&horiz, ky, centre0, part);
                 i = end;
             }
         }
     }
     out
+}
+
+/// Column-wise running minimum of `horiz` over rows [c − ky, c + ky] for centres
+/// c = `centre0` + k (rows outside `horiz` count as +∞), written into `out` (one row per
+/// centre). Van Herk/Gil–Werman along the rows, whole rows at a time, strips of columns
+/// in parallel.
+fn vertical_min(
+    horiz: &Array2<f64>,
+    ky: usize,
+    centre0: i64,
+    mut out: ndarray::ArrayViewMut2<f64>,
+) {
+    const STRIP: usize = 256;
+    let n_out = out.nrows();
+    let rows = horiz.nrows() as i64;
+    let l = 2 * ky as i64 + 1;
+    let e_lo = centre0.div_euclid(l) * l;
+    let e_hi = (centre0 + n_out as i64 - 1 + 2 * ky as i64).div_euclid(l) * l + l;
+    let len = (e_hi - e_lo) as usize;
+    out.axis_chunks_iter_mut(Axis(1), STRIP)
+        .into_par_iter()
+        .enumerate()
+        .for_each(|(strip, mut o)| {
+            let c0 = strip * STRIP;
+            let w = o.ncols();
+            let mut g = vec![f64::INFINITY; len * w];
+            let mut h = vec![f64::INFINITY; len * w];
+            let src = |e: i64, dst: &mut [f64]| {
+                let idx = e - ky as i64;
+                if idx >= 0 && idx < rows {
+                    let r = horiz.row(idx as usize);
+                    dst.copy_from_slice(&r.as_slice().expect("standard layout")[c0..c0 + w]);
+                } else {
+                    dst.iter_mut().for_each(|v| *v = f64::INFINITY);
+                }
+            };
+            let mut line = vec![0.0; w];
+            let mut k = 0usize;
+            while k < len {
+                let end = (k + l as usize).min(len);
+                for kk in k..end {
+                    src(e_lo + kk as i64, &mut line);
+                    let (before, cur) = g.split_at_mut(kk * w);
+                    let cur = &mut cur[..w];
+                    if kk == k {
+                        cur.copy_from_slice(&line);
+                    } else {
+                        let prev = &before[(kk - 1) * w..];
+                        for ((c, p), v) in cur.iter_mut().zip(prev.iter()).zip(line.iter()) {
+                            *c = p.min(*v);
+                        }
+                    }
+                }
+                for kk in (k..end).rev() {
+                    src(e_lo + kk as i64, &mut line);
+                    let (cur, after) = h.split_at_mut((kk + 1) * w);
+                    let cur = &mut cur[kk * w..];
+                    if kk + 1 == end {
+                        cur.copy_from_slice(&line);
+                    } else {
+                        for ((c, nx), v) in cur.iter_mut().zip(after[..w].iter()).zip(line.iter()) {
+                            *c = nx.min(*v);
+                        }
+                    }
+                }
+                k = end;
+            }
+            for (kk, mut orow) in o.axis_iter_mut(Axis(0)).enumerate() {
+                let e0 = (centre0 + kk as i64 - e_lo) as usize;
+                let hr = &h[e0 * w..(e0 + 1) * w];
+                let gr = &g[(e0 + 2 * ky) * w..(e0 + 2 * ky + 1) * w];
+                for ((ov, a), b) in orow.iter_mut().zip(hr.iter()).zip(gr.iter()) {
+                    *ov = a.min(*b);
+                }
+            }
+        });
 }
 
 #[cfg(test)]

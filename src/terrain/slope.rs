@@ -13,7 +13,7 @@ use super::derivatives::Pqrst;
 
 /// Slope angle in degrees, atan(√(p² + q²)).
 pub fn slope_deg(d: &Pqrst) -> f64 {
-    d.p.hypot(d.q).atan().to_degrees()
+    (d.p * d.p + d.q * d.q).sqrt().atan().to_degrees()
 }
 
 /// Aspect in degrees clockwise from north, the direction of steepest descent; NaN when
@@ -34,7 +34,7 @@ pub fn aspect_deg(d: &Pqrst) -> f64 {
 
 /// cos(aspect) = −q/√(p² + q²): +1 facing north, −1 facing south, 0 when flat.
 pub fn northness(d: &Pqrst) -> f64 {
-    let g = d.p.hypot(d.q);
+    let g = (d.p * d.p + d.q * d.q).sqrt();
     if g == 0.0 {
         0.0
     } else {
@@ -44,7 +44,7 @@ pub fn northness(d: &Pqrst) -> f64 {
 
 /// sin(aspect) = −p/√(p² + q²): +1 facing east, −1 facing west, 0 when flat.
 pub fn eastness(d: &Pqrst) -> f64 {
-    let g = d.p.hypot(d.q);
+    let g = (d.p * d.p + d.q * d.q).sqrt();
     if g == 0.0 {
         0.0
     } else {

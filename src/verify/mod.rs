@@ -449,8 +449,8 @@ fn tolerance(s: &Surface, q: &Quantity, exact: bool, h: f64, magnitude: f64) -> 
     let noise1 = 8.0 * zmax * 1.2e-7 / h;
     let noise2 = 8.0 * zmax * 1.2e-7 / (h * h);
     match (exact, q.name) {
-        (true, "slope") | (true, "aspect") => noise1.to_degrees() * 20.0 + 1e-4,
-        (true, _) => noise2 * 20.0 + 1e-8,
+        (true, "slope") | (true, "aspect") => noise1.to_degrees() * 4.0 + 1e-4,
+        (true, _) => noise2 * 4.0 + 1e-8,
         (false, "slope") | (false, "aspect") => 0.5,
         // Curvatures: 5 % of the largest exact value over the compared points.
         (false, _) => 0.05 * magnitude,

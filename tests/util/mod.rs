@@ -75,8 +75,10 @@ pub fn write_ortho(path: &Path, grid: &Grid) {
         .collect();
     let views: Vec<_> = bands.iter().map(|b| b.view()).collect();
     let g = grid.clone().with_nodata(Some(0.0));
-    let mut o = WriteOptions::default();
-    o.sample_type = terrastack::raster::SampleType::U16;
+    let o = WriteOptions {
+        sample_type: terrastack::raster::SampleType::U16,
+        ..WriteOptions::default()
+    };
     write_geotiff(
         path,
         &g,

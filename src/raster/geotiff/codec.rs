@@ -77,11 +77,17 @@ pub const ZSTD_LEVEL: i32 = 9;
 /// Decompress one chunk whose decoded size must be `expected` bytes. Longer output is cut
 /// to `expected`; shorter output is a problem (a truncated or corrupt chunk). Output is
 /// never allowed to grow past `expected`, whatever the input claims.
-pub fn decompress(codec: Codec, data: &[u8], expected: usize) -> Result<Vec<u8>, Problem> {
-    // Start small and grow: a corrupt header may promise far more than the data holds.
-    let start = expected.min(data.len().saturating_mul(8).max(1 << 16));
+pub fn decompress(codec: Codec, raw: Vec<u8>, expected: usize) -> Result<Vec<u8>, Problem> {
+    // Start at a plausible size and grow: a corrupt header may promise far more than the
+    // data holds.
+    let data = &raw[..];
+    let start = expected.min(data.len().saturating_mul(64).max(4 << 20));
     let mut out = match codec {
-        Codec::None => data[..data.len().min(expected)].to_vec(),
+        Codec::None => {
+            let mut raw = raw;
+            raw.truncate(expected);
+            raw
+        }
         Codec::Deflate => {
             let mut out = Vec::with_capacity(start);
             flate2::read::ZlibDecoder::new(data)
@@ -198,9 +204,10 @@ fn packbits_encode(data: &[u8], row_bytes: usize) -> Vec<u8> {
 }
 
 /// Compress one chunk; `row_bytes` is the length of one row (PackBits packs rows apart).
-pub fn compress(codec: Codec, data: &[u8], row_bytes: usize) -> Result<Vec<u8>, Problem> {
+pub fn compress(codec: Codec, raw: Vec<u8>, row_bytes: usize) -> Result<Vec<u8>, Problem> {
+    let data = &raw[..];
     match codec {
-        Codec::None => Ok(data.to_vec()),
+        Codec::None => Ok(raw),
         Codec::Deflate => {
             use std::io::Write;
             let mut enc = flate2::write::ZlibEncoder::new(
@@ -274,6 +281,31 @@ macro_rules! hor_diff_le {
     }};
 }
 
+/// Predictor 3 byte planes (most significant first, `planes[k·n + s]`) back into `n`
+/// samples of `N` bytes in the machine's byte order.
+fn unshuffle<const N: usize>(row: &mut [u8], planes: &[u8], n: usize) {
+    for (s, out) in row.chunks_exact_mut(N).enumerate().take(n) {
+        let mut b = [0u8; N];
+        for (k, byte) in b.iter_mut().enumerate() {
+            *byte = planes[k * n + s];
+        }
+        if cfg!(target_endian = "little") {
+            b.reverse();
+        }
+        out.copy_from_slice(&b);
+    }
+}
+
+/// `n` little-endian samples of `N` bytes into predictor 3 byte planes (most
+/// significant first).
+fn shuffle<const N: usize>(row: &[u8], planes: &mut [u8], n: usize) {
+    for (s, sample) in row.chunks_exact(N).enumerate().take(n) {
+        for k in 0..N {
+            planes[k * n + s] = sample[N - 1 - k];
+        }
+    }
+}
+
 /// Turn a decompressed chunk in file byte order `order` into samples in the machine's
 /// byte order, undoing `predictor` (1, 2 or 3).
 pub fn decode_samples(buf: &mut [u8], shape: ChunkShape, order: ByteOrder, predictor: u16) {
@@ -282,19 +314,17 @@ pub fn decode_samples(buf: &mut [u8], shape: ChunkShape, order: ByteOrder, predi
         let n = shape.row_samples;
         let row_bytes = n * ss;
         let mut tmp = vec![0u8; row_bytes];
-        let native_le = ByteOrder::native() == ByteOrder::Little;
         for row in buf.chunks_exact_mut(row_bytes) {
             let stride = shape.stride;
             for i in stride..row_bytes {
                 row[i] = row[i].wrapping_add(row[i - stride]);
             }
             tmp.copy_from_slice(row);
-            for s in 0..n {
-                for k in 0..ss {
-                    // Plane k holds byte k of each sample, most significant first.
-                    let dst = if native_le { ss - 1 - k } else { k };
-                    row[s * ss + dst] = tmp[k * n + s];
-                }
+            match ss {
+                4 => unshuffle::<4>(row, &tmp, n),
+                8 => unshuffle::<8>(row, &tmp, n),
+                2 => unshuffle::<2>(row, &tmp, n),
+                _ => unshuffle::<1>(row, &tmp, n),
             }
         }
         return;
@@ -330,10 +360,11 @@ pub fn encode_samples(buf: &mut [u8], shape: ChunkShape, predictor: u16) {
             let row_bytes = n * ss;
             let mut tmp = vec![0u8; row_bytes];
             for row in buf.chunks_exact_mut(row_bytes) {
-                for s in 0..n {
-                    for k in 0..ss {
-                        tmp[k * n + s] = row[s * ss + ss - 1 - k];
-                    }
+                match ss {
+                    4 => shuffle::<4>(row, &mut tmp, n),
+                    8 => shuffle::<8>(row, &mut tmp, n),
+                    2 => shuffle::<2>(row, &mut tmp, n),
+                    _ => shuffle::<1>(row, &mut tmp, n),
                 }
                 let stride = shape.stride;
                 for i in (stride..row_bytes).rev() {
@@ -379,14 +410,17 @@ mod tests {
             Codec::PackBits,
             Codec::Zstd,
         ] {
-            let c = compress(codec, &data, 100).unwrap();
+            let c = compress(codec, data.clone(), 100).unwrap();
             assert_eq!(
-                decompress(codec, &c, data.len()).unwrap(),
+                decompress(codec, c.clone(), data.len()).unwrap(),
                 data,
                 "{codec:?}"
             );
             // Asking for more than the stream holds is a problem, not a panic.
-            assert!(decompress(codec, &c, data.len() + 1).is_err(), "{codec:?}");
+            assert!(
+                decompress(codec, c.clone(), data.len() + 1).is_err(),
+                "{codec:?}"
+            );
         }
     }
 

@@ -47,7 +47,7 @@ impl GeoKeys {
         if dir.len() < 4 {
             return Err("the GeoKeyDirectory tag is shorter than its 4-value header".into());
         }
-        let n = dir[3] as usize;
+        let n = dir[3].min(u16::MAX as u64) as usize;
         if dir.len() < 4 + 4 * n {
             return Err(format!(
                 "the GeoKeyDirectory announces {n} keys but holds only {}",

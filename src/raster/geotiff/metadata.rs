@@ -1,7 +1,8 @@
 //! GDAL's metadata tag (42112): a small XML document of `<Item>` elements, documented in
 //! GDAL's GTiff driver page. Band descriptions are items named `DESCRIPTION` with
 //! `role="description"` and a 0-based `sample` attribute; items without `sample` belong
-//! to the dataset.
+//! to the dataset. GDAL escapes item text twice (once as a value, once as XML), so text
+//! is escaped twice when written and unescaped twice when read.
 
 /// One metadata item.
 #[derive(Clone, Debug, PartialEq, Eq)]
@@ -105,7 +106,7 @@ pub fn parse(xml: &str) -> Vec<MetadataItem> {
             let Some(close) = rest.find("</Item>") else {
                 break;
             };
-            let v = unescape(&rest[..close]);
+            let v = unescape(&unescape(&rest[..close]));
             rest = &rest[close + 7..];
             v
         };
@@ -136,7 +137,7 @@ pub fn build(descriptions: &[Option<String>]) -> Option<String> {
         if let Some(d) = d {
             xml.push_str(&format!(
                 "  <Item name=\"DESCRIPTION\" sample=\"{i}\" role=\"description\">{}</Item>\n",
-                escape(d)
+                escape(&escape(d))
             ));
         }
     }
@@ -164,6 +165,20 @@ mod tests {
         assert_eq!(items[1].value, "slope_horn");
         assert_eq!(items[2].band, Some(3));
         assert_eq!(items[2].value, "a & b <c>");
+    }
+
+    #[test]
+    fn gdal_double_escaping() {
+        // Bytes GDAL 3.10 wrote (through rasterio) for the description `x <&> "q" y`.
+        let xml = "<GDALMetadata>\n  <Item name=\"DESCRIPTION\" sample=\"0\" role=\"description\">\
+                   x &amp;lt;&amp;amp;&amp;gt; &amp;quot;q&amp;quot; y</Item>\n</GDALMetadata>\n";
+        let items = parse(xml);
+        assert_eq!(items[0].value, "x <&> \"q\" y");
+        let ours = build(&[Some("x <&> \"q\" y".to_string())]).unwrap();
+        assert!(
+            ours.contains("x &amp;lt;&amp;amp;&amp;gt; &amp;quot;q&amp;quot; y"),
+            "{ours}"
+        );
     }
 
     #[test]

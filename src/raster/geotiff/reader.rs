@@ -13,6 +13,7 @@ use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex};
 
 use ndarray::Array2;
+use rayon::prelude::*;
 
 use crate::error::{Error, Result};
 use crate::grid::{Crs, Grid, RasterSpace, Window, MAX_DIMENSION};
@@ -25,6 +26,13 @@ use super::{
     metadata, Compression, Interleave, Layout, MetadataItem, TiffSample, CACHE_BYTES,
     MAX_BLOCK_BYTES,
 };
+
+/// Decoded bytes of the blocks one window read decodes at once, in parallel.
+const PARALLEL_DECODE_BYTES: usize = 64 << 20;
+
+/// Uncompressed single-strip planes larger than this are read in strips of about this
+/// many bytes.
+const VIRTUAL_STRIP_BYTES: usize = 8 << 20;
 
 /// Hint for corrupt or truncated files.
 const FIX_CORRUPT: &str =
@@ -93,6 +101,8 @@ pub struct GeoTiffReader {
     tiled: bool,
     block_w: usize,
     block_h: usize,
+    /// Rows per strip as the file states it (`block_h` may be smaller, see open).
+    file_block_h: usize,
     across: usize,
     down: usize,
     offsets: Vec<u64>,
@@ -225,7 +235,12 @@ impl GeoTiffReader {
                 codec::compression_name(compression_code)
             ))
         })?;
-        let predictor = ifd.uint(tags::PREDICTOR).map_err(bad)?.unwrap_or(1);
+        // libtiff (and so GDAL) applies a predictor only with LZW, Deflate and ZSTD among
+        // the codecs read here; a Predictor tag beside no compression or PackBits is ignored.
+        let predictor = match codec {
+            Codec::None | Codec::PackBits => 1,
+            _ => ifd.uint(tags::PREDICTOR).map_err(bad)?.unwrap_or(1),
+        };
         let is_float = matches!(sample_type, SampleType::F32 | SampleType::F64);
         match (predictor, is_float) {
             (1, _) | (2, false) | (3, true) => {}
@@ -274,29 +289,20 @@ impl GeoTiffReader {
             )
         };
         let block_samples = if planar { 1 } else { spp };
-        let block_bytes = (block_w as u128)
-            * (block_h as u128)
-            * (block_samples as u128)
-            * (sample_type.size() as u128);
-        if block_bytes > MAX_BLOCK_BYTES as u128 {
-            return Err(unsupported(format!(
-                "one of its {} holds {block_bytes} bytes once decoded, more than terrastack's limit of {MAX_BLOCK_BYTES}",
-                if tiled { "tiles" } else { "strips" }
-            ))
-            .with_fix("rewrite it tiled, e.g. `gdal_translate -co TILED=YES IN OUT.tif`"));
-        }
-        let across = width.div_ceil(block_w);
-        let down = height.div_ceil(block_h);
-        let n_blocks = across * down * if planar { spp } else { 1 };
         let what = if tiled { "tile" } else { "strip" };
         let offsets =
             offsets.ok_or_else(|| bad(format!("the TIFF directory has no {what} offsets")))?;
+        let row_bytes = block_w as u128 * block_samples as u128 * sample_type.size() as u128;
         let counts = match counts {
             Some(c) => c,
             // Uncompressed files may omit byte counts: every block is full size.
-            None if codec == Codec::None => vec![block_bytes as u64; offsets.len()],
+            None if codec == Codec::None => {
+                vec![(row_bytes * block_h as u128).min(u64::MAX as u128) as u64; offsets.len()]
+            }
             None => return Err(bad(format!("the TIFF directory has no {what} byte counts"))),
         };
+        let planes = if planar { spp } else { 1 };
+        let n_blocks = width.div_ceil(block_w) * height.div_ceil(block_h) * planes;
         if offsets.len() < n_blocks || counts.len() < n_blocks {
             return Err(bad(format!(
                 "the file lists {} {what} offsets and {} byte counts where {n_blocks} are needed",
@@ -304,6 +310,39 @@ impl GeoTiffReader {
                 counts.len()
             )));
         }
+        let file_block_h = block_h;
+        let (mut block_h, mut offsets, mut counts) = (block_h, offsets, counts);
+        let plane_bytes = row_bytes * height as u128;
+        if !tiled
+            && codec == Codec::None
+            && block_h >= height
+            && plane_bytes > VIRTUAL_STRIP_BYTES as u128
+            && counts[..planes].iter().all(|c| *c as u128 >= plane_bytes)
+        {
+            // One uncompressed strip per band plane: read it as strips of `k` rows, so a
+            // window reads only the rows it needs (GDAL does the same, "strip chopping").
+            let rb = row_bytes as u64;
+            let k = (VIRTUAL_STRIP_BYTES as u64 / rb).max(1) as usize;
+            let down = height.div_ceil(k);
+            let (mut o, mut c) = (Vec::new(), Vec::new());
+            for start in &offsets[..planes] {
+                for j in 0..down {
+                    // Offsets past the end are refused when the strip is read.
+                    o.push(start.saturating_add((j * k) as u64 * rb));
+                    c.push(k.min(height - j * k) as u64 * rb);
+                }
+            }
+            (block_h, offsets, counts) = (k, o, c);
+        }
+        let block_bytes = row_bytes * block_h as u128;
+        if block_bytes > MAX_BLOCK_BYTES as u128 {
+            return Err(unsupported(format!(
+                "one of its {what}s holds {block_bytes} bytes once decoded, more than terrastack's limit of {MAX_BLOCK_BYTES}"
+            ))
+            .with_fix("rewrite it tiled, e.g. `gdal_translate -co TILED=YES IN OUT.tif`"));
+        }
+        let across = width.div_ceil(block_w);
+        let down = height.div_ceil(block_h);
 
         // Georeferencing.
         let geokeys = match ifd.uints(tags::GEO_KEY_DIRECTORY).map_err(bad)? {
@@ -388,6 +427,7 @@ impl GeoTiffReader {
             tiled,
             block_w,
             block_h,
+            file_block_h,
             across,
             down,
             offsets,
@@ -422,14 +462,14 @@ impl GeoTiffReader {
             Layout::Tiled { size: self.block_w }
         } else {
             Layout::Strips {
-                rows_per_strip: self.block_h,
+                rows_per_strip: self.file_block_h,
             }
         }
     }
 
     /// Block size in cells (width, height): the tile, or (image width, rows per strip).
     pub fn block_size(&self) -> (usize, usize) {
-        (self.block_w, self.block_h)
+        (self.block_w, self.file_block_h)
     }
 
     /// Band-sequential (planar) or pixel-interleaved storage.
@@ -523,7 +563,7 @@ impl GeoTiffReader {
             let mut raw = vec![0u8; read_len as usize];
             tags::read_exact_at(&self.file, &mut raw, offset)
                 .map_err(|e| Error::io(&self.path, e))?;
-            let mut data = codec::decompress(self.codec, &raw, expected).map_err(|p| {
+            let mut data = codec::decompress(self.codec, raw, expected).map_err(|p| {
                 Error::file(&self.path, format!("{what} {index}: {p}")).with_fix(FIX_CORRUPT)
             })?;
             codec::decode_samples(&mut data, shape, self.order, self.predictor);
@@ -556,7 +596,8 @@ impl GeoTiffReader {
         let Some(inter) = window.intersect(&Window::full(&self.grid)) else {
             return Ok(());
         };
-        let ss = self.sample_type.size();
+        // A constant per instantiation, so sample loops compile to fixed-width loads.
+        let ss = std::mem::size_of::<T>();
         let (step, sub) = if self.planar {
             (1, 0)
         } else {
@@ -569,19 +610,43 @@ impl GeoTiffReader {
         };
         let (r0, r1) = (inter.row as usize, inter.row as usize + inter.height);
         let (c0, c1) = (inter.col as usize, inter.col as usize + inter.width);
-        for br in r0 / self.block_h..=(r1 - 1) / self.block_h {
-            for bc in c0 / self.block_w..=(c1 - 1) / self.block_w {
-                let block = self.block(plane + br * self.across + bc)?;
+        let touched: Vec<(usize, usize)> = (r0 / self.block_h..=(r1 - 1) / self.block_h)
+            .flat_map(|br| (c0 / self.block_w..=(c1 - 1) / self.block_w).map(move |bc| (br, bc)))
+            .collect();
+        // Blocks are decoded in parallel, a bounded group at a time.
+        let block_bytes = self.block_w * self.block_h * ss * if self.planar { 1 } else { self.spp };
+        let group = (PARALLEL_DECODE_BYTES / block_bytes.max(1)).max(1);
+        for part in touched.chunks(group) {
+            let blocks: Vec<Arc<Vec<u8>>> = if part.len() == 1 {
+                vec![self.block(plane + part[0].0 * self.across + part[0].1)?]
+            } else {
+                part.par_iter()
+                    .map(|(br, bc)| self.block(plane + br * self.across + bc))
+                    .collect::<Result<_>>()?
+            };
+            for (&(br, bc), block) in part.iter().zip(blocks.iter()) {
                 let (by, bx) = (br * self.block_h, bc * self.block_w);
                 let rows = r0.max(by)..r1.min(by + self.block_h);
                 let cols = c0.max(bx)..c1.min(bx + self.block_w);
+                let oc0 = (cols.start as i64 - window.col) as usize;
                 for r in rows {
                     let orow = (r as i64 - window.row) as usize;
-                    let base = (r - by) * self.block_w;
-                    for c in cols.clone() {
-                        let i = ((base + c - bx) * step + sub) * ss;
-                        let v = T::from_ne(&block[i..i + ss]);
-                        out[[orow, (c as i64 - window.col) as usize]] = conv(v);
+                    let mut out_row = out.row_mut(orow);
+                    let dst = &mut out_row
+                        .as_slice_mut()
+                        .expect("a freshly allocated array has contiguous rows")
+                        [oc0..oc0 + cols.len()];
+                    let first = (((r - by) * self.block_w + cols.start - bx) * step + sub) * ss;
+                    let stride = step * ss;
+                    let src = &block[first..first + (cols.len() - 1) * stride + ss];
+                    if step == 1 {
+                        for (d, sample) in dst.iter_mut().zip(src.chunks_exact(ss)) {
+                            *d = conv(T::from_ne(sample));
+                        }
+                    } else {
+                        for (d, sample) in dst.iter_mut().zip(src.chunks(stride)) {
+                            *d = conv(T::from_ne(&sample[..ss]));
+                        }
                     }
                 }
             }

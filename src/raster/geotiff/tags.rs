@@ -262,7 +262,12 @@ pub fn read_first_ifd(file: &File, file_len: u64, header: &Header) -> Result<Ifd
             "the image directory has an implausible {n} entries"
         ));
     }
-    let raw = read_bytes(file, file_len, at + count_size, n * entry_size)?;
+    let raw = read_bytes(
+        file,
+        file_len,
+        at.saturating_add(count_size),
+        n * entry_size,
+    )?;
     let mut entries = Vec::with_capacity(n as usize);
     for e in raw.chunks_exact(entry_size as usize) {
         let tag = order.u16(&e[0..2]);

@@ -69,9 +69,22 @@ impl Plan {
             )));
         }
         let is_float = matches!(o.sample_type, SampleType::F32 | SampleType::F64);
+        // Predictors go with LZW, Deflate and ZSTD only: libtiff-based readers ignore
+        // them beside no compression or PackBits.
+        let predicting = matches!(
+            o.compression,
+            Compression::Lzw | Compression::Deflate | Compression::Zstd
+        );
         let predictor = match o.predictor {
+            Some(p) if p != 1 && !predicting => {
+                return Err(usage(format!(
+                    "predictor {p} cannot be combined with {:?} compression",
+                    o.compression
+                ))
+                .with_fix("use Deflate, LZW or ZSTD with a predictor, or predictor 1"))
+            }
             Some(p) => p,
-            None if o.compression == Compression::None => 1,
+            None if !predicting => 1,
             None if is_float => 3,
             None => 2,
         };
@@ -461,7 +474,7 @@ impl GeoTiffWriter {
         let shape = self.plan.shape(br);
         codec::encode_samples(&mut raw, shape, self.plan.predictor);
         let row_bytes = shape.row_samples * shape.sample_size;
-        codec::compress(self.plan.codec, &raw, row_bytes).map_err(|p| Error::file(&self.path, p))
+        codec::compress(self.plan.codec, raw, row_bytes).map_err(|p| Error::file(&self.path, p))
     }
 
     /// Predict, compress and append block `index` (block row `br`) whose little-endian
@@ -725,9 +738,12 @@ pub(super) fn write_all<T: TiffSample>(
         for (k, b) in band_range.enumerate() {
             let src = &bands[b];
             for r in 0..h {
-                for c in 0..w {
-                    let i = ((r * p.block_w + c) * spp + k) * ss;
-                    src[[y0 + r, x0 + c]].put_le(&mut buf[i..i + ss]);
+                let row = src.row(y0 + r);
+                let first = (r * p.block_w * spp + k) * ss;
+                let dst = &mut buf[first..];
+                for (c, v) in row.iter().skip(x0).take(w).enumerate() {
+                    let i = c * spp * ss;
+                    v.put_le(&mut dst[i..i + ss]);
                 }
             }
         }
