@@ -29,7 +29,7 @@ pub struct Args {
     /// Worker threads in all (default: one per core).
     #[arg(long, value_name = "N")]
     pub threads: Option<usize>,
-    /// Memory budget of the whole batch, e.g. 4G or 1500M (default 2G).
+    /// Memory budget of the whole batch, e.g. 4G or 1500M.
     #[arg(long, value_name = "SIZE", default_value = "2G")]
     pub memory: String,
     /// No progress lines and no table.
