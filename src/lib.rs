@@ -12,6 +12,9 @@
 //! - [`align`]: resampling every input onto the target grid.
 //! - [`stack`]: the recipe, the block plan, the executor and the stack's metadata.
 //! - [`verify`]: closed-form test surfaces and error tables.
+//! - [`sample`]: training tables at labelled samples, with honest folds.
+//! - [`batch`]: many flights: manifest, resume, shards, shifts, multi-temporal stack.
+//! - [`random`]: the small deterministic generator (demo data, fold shuffles, tests).
 //! - [`demo_site`]: the generator of the invented demo site in `sample-dsm/`.
 
 pub mod align;
@@ -19,6 +22,7 @@ pub mod batch;
 pub mod demo_site;
 pub mod error;
 pub mod grid;
+pub mod random;
 pub mod raster;
 pub mod sample;
 pub mod spectral;

@@ -133,25 +133,8 @@ pub fn sha256_hex(bytes: &[u8]) -> String {
         .collect()
 }
 
-/// Hex SHA-256 of a file's bytes, read in 1 MiB pieces.
-pub fn sha256_file(path: &Path) -> Result<String> {
-    use std::io::Read;
-    let mut file = std::fs::File::open(path).map_err(|e| Error::io(path, e))?;
-    let mut hasher = Sha256::new();
-    let mut buf = vec![0u8; 1 << 20];
-    loop {
-        let n = file.read(&mut buf).map_err(|e| Error::io(path, e))?;
-        if n == 0 {
-            break;
-        }
-        hasher.update(&buf[..n]);
-    }
-    Ok(hasher
-        .finalize()
-        .iter()
-        .map(|b| format!("{b:02x}"))
-        .collect())
-}
+/// Hex SHA-256 of a file's bytes (the same digest `stack.json` records for sources).
+pub use crate::stack::executor::sha256_file;
 
 #[cfg(test)]
 mod tests {

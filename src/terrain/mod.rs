@@ -970,21 +970,7 @@ pub(crate) mod test_support {
 
     use ndarray::Array2;
 
-    /// SplitMix64 (Steele, Lea & Flood 2014): deterministic test inputs.
-    pub struct SplitMix(pub u64);
-    impl SplitMix {
-        pub fn next_u64(&mut self) -> u64 {
-            self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-            let mut z = self.0;
-            z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-            z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-            z ^ (z >> 31)
-        }
-        /// Uniform in [0, 1).
-        pub fn unit(&mut self) -> f64 {
-            (self.next_u64() >> 11) as f64 / (1u64 << 53) as f64
-        }
-    }
+    pub use crate::random::SplitMix64;
 
     /// Samples `f(x, y)` (x east, y north, metres) on a grid with `h` spacing, centred on
     /// the origin, as f32.
@@ -1003,13 +989,15 @@ pub(crate) mod test_support {
     }
 
     /// A rough random surface with some nodata holes.
-    pub fn random_dem(rng: &mut SplitMix, rows: usize, cols: usize, hole_p: f64) -> Array2<f32> {
+    pub fn random_dem(rng: &mut SplitMix64, rows: usize, cols: usize, hole_p: f64) -> Array2<f32> {
         Array2::from_shape_fn((rows, cols), |(i, j)| {
-            if rng.unit() < hole_p {
+            if rng.next_f64() < hole_p {
                 f32::NAN
             } else {
-                (100.0 + 3.0 * (i as f64 * 0.3).sin() + 2.0 * (j as f64 * 0.2).cos() + rng.unit())
-                    as f32
+                (100.0
+                    + 3.0 * (i as f64 * 0.3).sin()
+                    + 2.0 * (j as f64 * 0.2).cos()
+                    + rng.next_f64()) as f32
             }
         })
     }
@@ -1202,7 +1190,7 @@ mod tests {
     fn blocks_and_threads_give_identical_bits() {
         // Determinism requirement: the same raster as one block and as several blocks
         // with halos, and on one thread versus several, must agree bit for bit.
-        let mut rng = SplitMix(7);
+        let mut rng = SplitMix64::new(7);
         let dem = random_dem(&mut rng, 37, 41, 0.05);
         // Geographic-like rows: cell widths shrink northward (row 0 is north).
         let cells = CellSizes {

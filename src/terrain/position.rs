@@ -89,7 +89,7 @@ pub fn local_relief(ex: &Extrema, i: usize, j: usize, cells: u64, n: i64, frac: 
 #[cfg(test)]
 mod tests {
     use crate::grid::CellSizes;
-    use crate::terrain::test_support::{random_dem, sample, SplitMix};
+    use crate::terrain::test_support::{random_dem, sample, SplitMix64};
     use crate::terrain::{compute, radius_cells, TerrainFeature, TerrainParams, WindowShape};
     use approx::assert_relative_eq;
     use ndarray::Array2;
@@ -117,11 +117,11 @@ mod tests {
     #[test]
     fn tpi_dev_relief_match_naive_reference() {
         // Fast paths against a naive two-pass reference over random DEMs with holes.
-        let mut rng = SplitMix(11);
+        let mut rng = SplitMix64::new(11);
         for case in 0..12 {
             let dem = random_dem(&mut rng, 16, 18, 0.1);
-            let h = 0.5 + rng.unit();
-            let r = 0.6 + 3.0 * rng.unit();
+            let h = 0.5 + rng.next_f64();
+            let r = 0.6 + 3.0 * rng.next_f64();
             let feats = [
                 TerrainFeature::Tpi { radius_m: r },
                 TerrainFeature::Dev { radius_m: r },

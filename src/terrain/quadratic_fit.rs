@@ -204,7 +204,7 @@ mod tests {
     use super::*;
     use crate::grid::CellSizes;
     use crate::terrain::derivatives::estimate;
-    use crate::terrain::test_support::{random_dem, sample, SplitMix};
+    use crate::terrain::test_support::{random_dem, sample, SplitMix64};
     use crate::terrain::SlopeMethod;
     use approx::assert_relative_eq;
 
@@ -248,7 +248,7 @@ mod tests {
     #[test]
     fn three_by_three_fit_is_evans_young() {
         // METHODS.md: with n = 3 the fit reproduces Evans–Young.
-        let mut rng = SplitMix(21);
+        let mut rng = SplitMix64::new(21);
         let dem = random_dem(&mut rng, 12, 12, 0.0).mapv(|v| v as f64);
         let cells = CellSizes::uniform(1.3, 0.7, 12);
         let sizes = RowSizes::new(&cells);

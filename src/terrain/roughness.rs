@@ -72,7 +72,7 @@ pub fn tri_3x3(w: &[f64; 9]) -> f64 {
 #[cfg(test)]
 mod tests {
     use crate::grid::CellSizes;
-    use crate::terrain::test_support::{random_dem, sample, SplitMix};
+    use crate::terrain::test_support::{random_dem, sample, SplitMix64};
     use crate::terrain::{compute, radius_cells, TerrainFeature, TerrainParams, WindowShape};
     use approx::assert_relative_eq;
     use ndarray::Array2;
@@ -129,10 +129,10 @@ mod tests {
     fn detrended_matches_least_squares_reference() {
         // Against a naive least-squares plane fit (normal equations solved directly in
         // f64 by Cramer's rule) over random DEMs with holes.
-        let mut rng = SplitMix(9);
+        let mut rng = SplitMix64::new(9);
         for _ in 0..6 {
             let dem = random_dem(&mut rng, 14, 14, 0.15);
-            let r = 1.5 + 2.0 * rng.unit();
+            let r = 1.5 + 2.0 * rng.next_f64();
             let p = TerrainParams {
                 min_valid_fraction: 0.5,
                 ..TerrainParams::default()

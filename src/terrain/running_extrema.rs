@@ -253,27 +253,27 @@ fn vertical_min(
 mod tests {
     use super::*;
     use crate::grid::CellSizes;
-    use crate::terrain::test_support::SplitMix;
+    use crate::terrain::test_support::SplitMix64;
     use crate::terrain::RowSizes;
 
     #[test]
     fn running_min_matches_naive() {
         // Van Herk/Gil–Werman against direct minima over many random lines and widths.
-        let mut rng = SplitMix(3);
+        let mut rng = SplitMix64::new(3);
         for _ in 0..200 {
-            let n = 1 + (rng.unit() * 30.0) as usize;
+            let n = 1 + (rng.next_f64() * 30.0) as usize;
             let a: Vec<f64> = (0..n)
                 .map(|_| {
-                    if rng.unit() < 0.2 {
+                    if rng.next_f64() < 0.2 {
                         f64::INFINITY
                     } else {
-                        rng.unit()
+                        rng.next_f64()
                     }
                 })
                 .collect();
-            let w = (rng.unit() * 8.0) as usize;
-            let start = (rng.unit() * 10.0) as i64 - 5;
-            let count = 1 + (rng.unit() * 20.0) as usize;
+            let w = (rng.next_f64() * 8.0) as usize;
+            let start = (rng.next_f64() * 10.0) as i64 - 5;
+            let count = 1 + (rng.next_f64() * 20.0) as usize;
             let mut out = vec![0.0; count];
             running_min(&a, w, start, &mut out, &mut Vec::new(), &mut Vec::new());
             for (k, got) in out.iter().enumerate() {
@@ -289,18 +289,18 @@ mod tests {
 
     #[test]
     fn square_and_disc_extrema_match_naive() {
-        let mut rng = SplitMix(5);
+        let mut rng = SplitMix64::new(5);
         for _ in 0..10 {
             let (nr, nc) = (13, 11);
             let zs = Array2::from_shape_fn((nr, nc), |_| {
-                if rng.unit() < 0.15 {
+                if rng.next_f64() < 0.15 {
                     f64::NAN
                 } else {
-                    rng.unit() * 9.0
+                    rng.next_f64() * 9.0
                 }
             });
             let cells = CellSizes::uniform(1.0, 1.0, nr);
-            let r = 0.5 + rng.unit() * 3.5;
+            let r = 0.5 + rng.next_f64() * 3.5;
             for shape in [WindowShape::Disc, WindowShape::Square] {
                 let layout = Layout::new(shape, r, RowSizes::new(&cells), 2, nr - 4);
                 let ex = Extrema::compute(&zs, &layout, 2, nc - 4);

@@ -540,7 +540,7 @@ impl<'a> WindowSums<'a> {
 mod tests {
     use super::*;
     use crate::grid::CellSizes;
-    use crate::terrain::test_support::SplitMix;
+    use crate::terrain::test_support::SplitMix64;
 
     /// Naive reference: enumerate the window cells by their distance (disc) or box.
     fn naive(
@@ -624,25 +624,25 @@ mod tests {
     fn fast_sums_match_naive_enumeration() {
         // Fast paths against a naive reference over many small random inputs, radii,
         // shapes and unequal, row-varying cell sizes.
-        let mut rng = SplitMix(42);
+        let mut rng = SplitMix64::new(42);
         for case in 0..40 {
-            let nr = 6 + (rng.unit() * 14.0) as usize;
-            let nc = 6 + (rng.unit() * 14.0) as usize;
+            let nr = 6 + (rng.next_f64() * 14.0) as usize;
+            let nc = 6 + (rng.next_f64() * 14.0) as usize;
             let zs = Array2::from_shape_fn((nr, nc), |_| {
-                if rng.unit() < 0.2 {
+                if rng.next_f64() < 0.2 {
                     f64::NAN
                 } else {
-                    rng.unit() * 50.0 - 20.0
+                    rng.next_f64() * 50.0 - 20.0
                 }
             });
             let field = QuantisedField::new(&zs, 3.0);
-            let hx0 = 0.5 + rng.unit();
+            let hx0 = 0.5 + rng.next_f64();
             let cells = CellSizes {
                 hx: (0..nr).map(|i| hx0 * (1.0 + 0.02 * i as f64)).collect(),
-                hy: vec![0.5 + rng.unit(); nr],
+                hy: vec![0.5 + rng.next_f64(); nr],
             };
             let sizes = RowSizes::new(&cells);
-            let r = 0.3 + rng.unit() * 4.0;
+            let r = 0.3 + rng.next_f64() * 4.0;
             let halo = 2.min(nr / 3);
             let out_r = nr - 2 * halo;
             let out_c = nc - 2 * halo;
@@ -668,12 +668,12 @@ mod tests {
     #[test]
     fn interior_fast_path_matches_naive_enumeration() {
         // Windows that stay inside the block take the interior fast path (no moments).
-        let mut rng = SplitMix(77);
+        let mut rng = SplitMix64::new(77);
         let zs = Array2::from_shape_fn((24, 26), |_| {
-            if rng.unit() < 0.1 {
+            if rng.next_f64() < 0.1 {
                 f64::NAN
             } else {
-                rng.unit() * 30.0
+                rng.next_f64() * 30.0
             }
         });
         let field = QuantisedField::new(&zs, 10.0);
