@@ -1,6 +1,6 @@
 //! Whole-build throughput: `stack::build` with the default recipe (every default terrain
 //! feature at radii of 1 m and 5 m, the five reflectances and every index) on a generated
-//! 1024 x 1024 DSM of 0.1 m cells and a 5-band uint16 orthomosaic on a grid shifted by a
+//! 768 x 768 DSM of 0.1 m cells and a 5-band uint16 orthomosaic on a grid shifted by a
 //! fraction of a cell, so the orthomosaic is resampled (bilinear). Reading, kernels,
 //! compression, statistics, preview and sidecar are all inside the timed call.
 //!
@@ -22,7 +22,7 @@ use terrastack::raster::geotiff::{write_geotiff, WriteOptions};
 use terrastack::stack::{self, BuildOptions, Progress, Recipe, RecipeFlags};
 
 /// DSM side in cells.
-const N: usize = 1024;
+const N: usize = 768;
 /// Cell size in metres.
 const CELL: f64 = 0.1;
 const ORIGIN: (f64, f64) = (500_000.0, 5_200_000.0);
@@ -125,7 +125,7 @@ fn bench(c: &mut Criterion) {
         .warm_up_time(Duration::from_secs(1))
         .measurement_time(Duration::from_secs(20))
         .throughput(Throughput::Elements((N * N) as u64));
-    group.bench_function("default_recipe_1024", |b| {
+    group.bench_function("default_recipe_768", |b| {
         b.iter(|| {
             let report = stack::build(recipe.clone(), &options).expect("benchmark build");
             black_box(report.metadata.bands.len())

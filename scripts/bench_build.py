@@ -344,12 +344,30 @@ def python_pipeline(stack_json, dsm_path, ortho_path, out_path):
         blockxsize=512, blockysize=512, compress="deflate", predictor=3,
         interleave="band", BIGTIFF="IF_SAFER",
     )
+    # Intermediates are dropped after the last band that uses them.
+    def keys(b):
+        feat = b["feature"]
+        if feat in ("slope", "northness", "eastness"):
+            return ["horn"]
+        if feat.endswith("curvature"):
+            return ["ey"]
+        if feat in ("tpi", "roughness", "relative_elevation"):
+            return [("win", b.get("scale_m"))]
+        return []
+
+    last_use = {}
+    for i, b in enumerate(meta["bands"]):
+        for k in keys(b):
+            last_use[k] = i
     with rasterio.open(out_path, "w", **out_profile) as dst:
-        for b in meta["bands"]:
+        for i, b in enumerate(meta["bands"]):
             with np.errstate(divide="ignore", invalid="ignore"):
                 data = band(b)
             dst.write(np.asarray(data, dtype=np.float32), b["index"])
             dst.set_band_description(b["index"], b["name"])
+            del data
+            for k in [k for k, last in last_use.items() if last == i]:
+                cache.pop(k, None)
 
 
 INDEX_NAMES = {"ndvi", "gndvi", "ndre", "savi", "osavi", "msavi2", "evi", "evi2", "ndwi",
