@@ -604,6 +604,10 @@ mod tests {
             t.contains("8-bit signed integer") && t.contains("fix:"),
             "{t}"
         );
+        // An empty SampleFormat (found by the fuzz target) means the default, unsigned.
+        let e = with(plain_entries(4, 3, 12), tags::SAMPLE_FORMAT, Short(vec![]));
+        let r = open_bytes(&handmade(e, &[5; 12])).2.unwrap();
+        assert_eq!(r.sample_type(), SampleType::U8);
         // Unsupported compression: JPEG.
         let e = with(plain_entries(4, 3, 12), tags::COMPRESSION, Short(vec![7]));
         let t = err_text(open_bytes(&handmade(e, &[0; 12])).2);

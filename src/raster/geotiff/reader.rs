@@ -211,10 +211,12 @@ impl GeoTiffReader {
         let bits = ifd
             .uints(tags::BITS_PER_SAMPLE)
             .map_err(bad)?
+            .filter(|v| !v.is_empty())
             .unwrap_or(vec![1]);
         let formats = ifd
             .uints(tags::SAMPLE_FORMAT)
             .map_err(bad)?
+            .filter(|v| !v.is_empty())
             .unwrap_or(vec![1]);
         if bits.iter().any(|b| *b != bits[0]) || formats.iter().any(|f| *f != formats[0]) {
             return Err(unsupported(
