@@ -93,7 +93,8 @@ def hole_mask(n, row0, rows):
     return (r - 0.3 * n) ** 2 + (c - 0.6 * n) ** 2 < (n / 20.0) ** 2
 
 
-def write_dsm(path, n):
+def write_dsm(path, n, bigtiff="IF_SAFER"):
+    """The DSM, written window by window so Python itself stays small."""
     import rasterio
     from rasterio.transform import from_origin
     from rasterio.windows import Window
@@ -102,7 +103,7 @@ def write_dsm(path, n):
         driver="GTiff", width=n, height=n, count=1, dtype="float32", crs=CRS,
         transform=from_origin(ORIGIN_X, ORIGIN_Y, CELL_M, CELL_M), nodata=float("nan"),
         tiled=True, blockxsize=512, blockysize=512, compress="deflate", predictor=3,
-        BIGTIFF="IF_SAFER",
+        BIGTIFF=bigtiff,
     )
     with rasterio.open(path, "w", **profile) as dst:
         for row0 in range(0, n, ROWS_PER_WRITE):

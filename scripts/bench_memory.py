@@ -30,13 +30,9 @@ import subprocess
 import sys
 import time
 
-import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
-from bench_build import (  # noqa: E402
-    CELL_M, CRS, ORIGIN_X, ORIGIN_Y, ROWS_PER_WRITE, grid_coords, hole_mask, surface,
-    fmt_bytes,
-)
+from bench_build import fmt_bytes, write_dsm  # noqa: E402
 
 REPO = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 FEATURES = ("elevation,slope,northness,eastness,curvature,tri,"
@@ -50,26 +46,6 @@ def parse_size(text):
         raise SystemExit(f"bench_memory.py: cannot read the size {text!r} (e.g. 2G, 512M)")
     unit = {"": 1, "K": 2**10, "M": 2**20, "G": 2**30, "T": 2**40}[m.group(2).upper()]
     return int(float(m.group(1)) * unit)
-
-
-def write_dsm_streamed(path, n):
-    import rasterio
-    from rasterio.transform import from_origin
-    from rasterio.windows import Window
-
-    profile = dict(
-        driver="GTiff", width=n, height=n, count=1, dtype="float32", crs=CRS,
-        transform=from_origin(ORIGIN_X, ORIGIN_Y, CELL_M, CELL_M), nodata=float("nan"),
-        tiled=True, blockxsize=512, blockysize=512, compress="deflate", predictor=3,
-        BIGTIFF="YES",
-    )
-    with rasterio.open(path, "w", **profile) as dst:
-        for row0 in range(0, n, ROWS_PER_WRITE):
-            rows = min(ROWS_PER_WRITE, n - row0)
-            x, y = grid_coords(n, row0, rows)
-            z = surface(x, y, row0, 1).astype(np.float32)
-            z[hole_mask(n, row0, rows)] = np.nan
-            dst.write(z, 1, window=Window(0, row0, n, rows))
 
 
 def vm_hwm(pid):
@@ -108,7 +84,7 @@ def main():
     dsm = os.path.join(work, "dsm.tif")
     try:
         t0 = time.perf_counter()
-        write_dsm_streamed(dsm, n)
+        write_dsm(dsm, n, bigtiff="YES")
         print(f"DSM: {n} x {n} float32 ({fmt_bytes(os.path.getsize(dsm))} on disk, "
               f"{fmt_bytes(4 * n * n)} in memory), generated in {time.perf_counter() - t0:.0f} s",
               flush=True)

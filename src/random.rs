@@ -87,7 +87,7 @@ mod tests {
     fn reference_sequence_seed_1234567() {
         // Seed 1234567: 6457827717110365317, 3203168211198807973, 9817491932198370423 —
         // the published test vector of the SplitMix64 task on Rosetta Code (from memory),
-        // re-derived with an independent Python transcription of Vigna's splitmix64.c.
+        // re-derived with an independent Python port of Vigna's splitmix64.c.
         let mut r = SplitMix64::new(1_234_567);
         assert_eq!(r.next_u64(), 6_457_827_717_110_365_317);
         assert_eq!(r.next_u64(), 3_203_168_211_198_807_973);

@@ -230,25 +230,35 @@ fn ortho_that_does_not_overlap_is_refused() {
     assert!(!tmp.path().join("out").exists());
 }
 
+/// Build a small DSM plus a 5-band orthomosaic on the same grid with `bands` and
+/// `features`, into `tmp/out`.
+fn build_small_with_ortho(
+    tmp: &std::path::Path,
+    bands: &str,
+    features: &str,
+) -> std::process::Output {
+    let grid = utm_grid(50, 40, 0.5);
+    write_dsm(&tmp.join("dsm.tif"), &grid, &surface(&grid));
+    write_ortho(&tmp.join("ortho.tif"), &grid);
+    run(&[
+        "build",
+        "--dsm",
+        &p(tmp, "dsm.tif"),
+        "--ortho",
+        &p(tmp, "ortho.tif"),
+        "--bands",
+        bands,
+        "--features",
+        features,
+        "--out",
+        &p(tmp, "out"),
+    ])
+}
+
 #[test]
 fn band_number_past_the_files_bands_is_refused() {
     let tmp = tempdir();
-    let grid = utm_grid(50, 40, 0.5);
-    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
-    write_ortho(&tmp.path().join("ortho.tif"), &grid);
-    let o = run(&[
-        "build",
-        "--dsm",
-        &p(tmp.path(), "dsm.tif"),
-        "--ortho",
-        &p(tmp.path(), "ortho.tif"),
-        "--bands",
-        "red=3,nir=7",
-        "--features",
-        "ndvi",
-        "--out",
-        &p(tmp.path(), "out"),
-    ]);
+    let o = build_small_with_ortho(tmp.path(), "red=3,nir=7", "ndvi");
     assert_ne!(o.status.code(), Some(0));
     let e = stderr(&o);
     assert!(
@@ -281,24 +291,10 @@ fn unwritable_output_folder_is_refused() {
 #[test]
 fn index_without_its_band_names_the_role() {
     let tmp = tempdir();
-    let grid = utm_grid(50, 40, 0.5);
-    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
-    write_ortho(&tmp.path().join("ortho.tif"), &grid);
-    let o = run(&[
-        "build",
-        "--dsm",
-        &p(tmp.path(), "dsm.tif"),
-        "--ortho",
-        &p(tmp.path(), "ortho.tif"),
-        "--bands",
-        "red=3,nir=5",
-        "--features",
-        "ndre",
-        "--out",
-        &p(tmp.path(), "out"),
-    ]);
+    let o = build_small_with_ortho(tmp.path(), "red=3,nir=5", "ndre");
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("rededge"), "{}", stderr(&o));
+    assert!(!tmp.path().join("out").exists());
 }
 
 #[test]
