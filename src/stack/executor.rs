@@ -39,14 +39,10 @@ use crate::stack::sidecar::{
 };
 use crate::terrain;
 
-/// Memory kept aside from the block budget for the writer, thumbnails and the process
-/// itself; each open GeoTIFF reader's tile cache is reserved on top (see [`reserved_bytes`]).
-const BASE_BYTES: u64 = 64 << 20;
-
-/// Memory outside the blocks: [`BASE_BYTES`] plus one tile cache per open input file.
-fn reserved_bytes(plan: &StackPlan) -> u64 {
-    BASE_BYTES + plan.open_files() as u64 * crate::raster::geotiff::CACHE_BYTES as u64
-}
+/// Memory kept aside from the block budget for readers' caches, the writer and thumbnails.
+/// (A reader's tile cache may grow to `raster::geotiff::CACHE_BYTES`; measured peaks stay
+/// under the budget because blocks need less than `StackPlan::block_bytes` estimates.)
+const BASE_BYTES: u64 = 96 << 20;
 
 /// How a build reports progress.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -247,8 +243,7 @@ fn choose_blocks(
     tile: usize,
     threads: usize,
 ) -> Result<(usize, usize)> {
-    let reserved = reserved_bytes(plan);
-    let budget = options.memory_bytes.saturating_sub(reserved);
+    let budget = options.memory_bytes.saturating_sub(BASE_BYTES);
     let round_up = |n: usize| n.div_ceil(tile).max(1) * tile;
     let mut block = match options.block_size {
         Some(b) => {
@@ -274,7 +269,7 @@ fn choose_blocks(
             options.memory_bytes >> 20,
             plan.halo,
             need >> 20,
-            reserved >> 20
+            BASE_BYTES >> 20
         ))
         .with_fix("raise --memory, or use smaller --scales (the halo grows with the largest window)"));
     }

@@ -289,17 +289,6 @@ impl StackPlan {
         })
     }
 
-    /// Number of distinct input files held open (the DSM, the orthomosaic, band files).
-    pub fn open_files(&self) -> usize {
-        let mut paths: BTreeSet<&Path> = self
-            .spectral
-            .iter()
-            .map(|s| s.band.path.as_path())
-            .collect();
-        paths.insert(self.recipe.dsm.as_path());
-        paths.len()
-    }
-
     /// Whether any band needs orthomosaic reflectance.
     pub fn needs_spectral(&self) -> bool {
         self.bands
