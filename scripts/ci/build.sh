@@ -5,6 +5,7 @@ set -euo pipefail
 cd "$(dirname "$0")/../.."
 DIR="${XCHECK_ROOT:-$(mktemp -d)}/demo"
 cargo run --release --quiet -- demo --out "$DIR" --quiet
-python3 scripts/check_stack.py "$DIR"/*/
+# The three flights built by `build`, and the same flights built by the batch on the common grid.
+python3 scripts/check_stack.py "$DIR"/[0-9]*/ "$DIR"/batch/flights/*/
 # The demo's training table is classifier-ready: a random forest with the fold column as groups.
 python3 scripts/sample_forest.py "$DIR/training.csv"
