@@ -15,37 +15,42 @@
 
 use super::derivatives::Pqrst;
 
+/// `k`, or NaN where the slope has no direction (g = p² + q² = 0). Written as a select so
+/// row loops stay branch-free (and vectorise).
+#[inline(always)]
+fn undirected_nan(g: f64, k: f64) -> f64 {
+    super::arctan::select(g == 0.0, f64::NAN, k)
+}
+
 /// Profile curvature kn (1/m): normal curvature along the slope line; NaN where g = 0.
+#[inline]
 pub fn profile(d: &Pqrst) -> f64 {
     let g = d.p * d.p + d.q * d.q;
-    if g == 0.0 {
-        return f64::NAN;
-    }
     let w = 1.0 + g;
-    -(d.p * d.p * d.r + 2.0 * d.p * d.q * d.s + d.q * d.q * d.t) / (g * w * w.sqrt())
+    let k = -(d.p * d.p * d.r + 2.0 * d.p * d.q * d.s + d.q * d.q * d.t) / (g * w * w.sqrt());
+    undirected_nan(g, k)
 }
 
 /// Tangential curvature kt (1/m): normal curvature along the contour; NaN where g = 0.
+#[inline]
 pub fn tangential(d: &Pqrst) -> f64 {
     let g = d.p * d.p + d.q * d.q;
-    if g == 0.0 {
-        return f64::NAN;
-    }
     let w = 1.0 + g;
-    -(d.q * d.q * d.r - 2.0 * d.p * d.q * d.s + d.p * d.p * d.t) / (g * w.sqrt())
+    let k = -(d.q * d.q * d.r - 2.0 * d.p * d.q * d.s + d.p * d.p * d.t) / (g * w.sqrt());
+    undirected_nan(g, k)
 }
 
 /// Plan curvature kc (1/m): curvature of the contour line in the horizontal plane; NaN
 /// where g = 0.
+#[inline]
 pub fn plan(d: &Pqrst) -> f64 {
     let g = d.p * d.p + d.q * d.q;
-    if g == 0.0 {
-        return f64::NAN;
-    }
-    -(d.q * d.q * d.r - 2.0 * d.p * d.q * d.s + d.p * d.p * d.t) / (g * g.sqrt())
+    let k = -(d.q * d.q * d.r - 2.0 * d.p * d.q * d.s + d.p * d.p * d.t) / (g * g.sqrt());
+    undirected_nan(g, k)
 }
 
 /// Mean curvature H (1/m), the average of the principal curvatures.
+#[inline]
 pub fn mean(d: &Pqrst) -> f64 {
     let w = 1.0 + d.p * d.p + d.q * d.q;
     -((1.0 + d.q * d.q) * d.r - 2.0 * d.p * d.q * d.s + (1.0 + d.p * d.p) * d.t)
@@ -53,6 +58,7 @@ pub fn mean(d: &Pqrst) -> f64 {
 }
 
 /// Gaussian curvature K (1/m²), the product of the principal curvatures.
+#[inline]
 pub fn gaussian(d: &Pqrst) -> f64 {
     let w = 1.0 + d.p * d.p + d.q * d.q;
     (d.r * d.t - d.s * d.s) / (w * w)

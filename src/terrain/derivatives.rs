@@ -21,10 +21,11 @@
 //! derivative is NaN. Cost: O(1) per cell; rows run in parallel (rayon); each value is a
 //! pointwise function of nine cells, so results do not depend on block or thread count.
 
-use ndarray::{Array2, Array3, ArrayView2, Axis, Zip};
+use ndarray::{Array2, ArrayView2, Zip};
 use rayon::prelude::*;
 
-use super::{RowSizes, SlopeMethod};
+use super::arctan::select;
+use super::{curvature, slope, RowSizes, SlopeMethod};
 use crate::terrain::roughness::tri_3x3;
 
 /// Partial derivatives at one cell (units: p, q unitless; r, s, t in 1/m).
@@ -89,11 +90,33 @@ pub fn pqrst_3x3(w: &[f64; 9], hx: f64, hy: f64, method: SlopeMethod) -> Option<
         return None;
     }
     let [z1, z2, z3, z4, z5, z6, z7, z8, z9] = *w;
+    Some(pqrst_unchecked(
+        z1, z2, z3, z4, z5, z6, z7, z8, z9, hx, hy, method,
+    ))
+}
+
+/// The estimators' formulas, without the validity check.
+#[allow(clippy::too_many_arguments)]
+#[inline(always)]
+fn pqrst_unchecked(
+    z1: f64,
+    z2: f64,
+    z3: f64,
+    z4: f64,
+    z5: f64,
+    z6: f64,
+    z7: f64,
+    z8: f64,
+    z9: f64,
+    hx: f64,
+    hy: f64,
+    method: SlopeMethod,
+) -> Pqrst {
     // Second derivatives of Evans–Young (used by Horn, Evans–Young and the n = 3 fit).
     let ey_r = (z1 + z3 + z4 + z6 + z7 + z9 - 2.0 * (z2 + z5 + z8)) / (3.0 * hx * hx);
     let ey_t = (z1 + z2 + z3 + z7 + z8 + z9 - 2.0 * (z4 + z5 + z6)) / (3.0 * hy * hy);
     let s = (z3 + z7 - z1 - z9) / (4.0 * hx * hy);
-    Some(match method {
+    match method {
         SlopeMethod::Horn => Pqrst {
             p: ((z3 + 2.0 * z6 + z9) - (z1 + 2.0 * z4 + z7)) / (8.0 * hx),
             q: ((z1 + 2.0 * z2 + z3) - (z7 + 2.0 * z8 + z9)) / (8.0 * hy),
@@ -115,7 +138,7 @@ pub fn pqrst_3x3(w: &[f64; 9], hx: f64, hy: f64, method: SlopeMethod) -> Option<
             s,
             t: ey_t,
         },
-    })
+    }
 }
 
 /// Derivatives for rows `rows` and columns `cols` of `zs` (elevations in metres, NaN =
@@ -221,19 +244,268 @@ pub fn horn_pq_region(
     (p, q)
 }
 
+/// A pointwise function of the partial derivatives (METHODS.md formulas, in
+/// [`super::slope`] and [`super::curvature`]).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Pointwise {
+    Slope,
+    Aspect,
+    Northness,
+    Eastness,
+    Profile,
+    Plan,
+    Tangential,
+    Mean,
+    Gaussian,
+}
+
+impl Pointwise {
+    /// The value at one cell.
+    #[inline]
+    pub fn eval(self, d: &Pqrst) -> f64 {
+        match self {
+            Pointwise::Slope => slope::slope_deg(d),
+            Pointwise::Aspect => slope::aspect_deg(d),
+            Pointwise::Northness => slope::northness(d),
+            Pointwise::Eastness => slope::eastness(d),
+            Pointwise::Profile => curvature::profile(d),
+            Pointwise::Plan => curvature::plan(d),
+            Pointwise::Tangential => curvature::tangential(d),
+            Pointwise::Mean => curvature::mean(d),
+            Pointwise::Gaussian => curvature::gaussian(d),
+        }
+    }
+
+    /// Writes the value of every cell of `d` (one chunk of a row) into `out`, one
+    /// specialised loop per function so the compiler can vectorise it.
+    #[inline(always)]
+    fn fill(self, d: &RowDerivs, out: &mut [f32]) {
+        #[inline(always)]
+        fn each(d: &RowDerivs, out: &mut [f32], f: impl Fn(&Pqrst) -> f64) {
+            let n = out.len();
+            let (p, q, r, s, t) = (&d.p[..n], &d.q[..n], &d.r[..n], &d.s[..n], &d.t[..n]);
+            for j in 0..n {
+                let v = Pqrst {
+                    p: p[j],
+                    q: q[j],
+                    r: r[j],
+                    s: s[j],
+                    t: t[j],
+                };
+                out[j] = f(&v) as f32;
+            }
+        }
+        match self {
+            Pointwise::Slope => each(d, out, slope::slope_deg),
+            Pointwise::Aspect => each(d, out, slope::aspect_deg),
+            Pointwise::Northness => each(d, out, slope::northness),
+            Pointwise::Eastness => each(d, out, slope::eastness),
+            Pointwise::Profile => each(d, out, curvature::profile),
+            Pointwise::Plan => each(d, out, curvature::plan),
+            Pointwise::Tangential => each(d, out, curvature::tangential),
+            Pointwise::Mean => each(d, out, curvature::mean),
+            Pointwise::Gaussian => each(d, out, curvature::gaussian),
+        }
+    }
+}
+
 /// One output of the fused 3x3 pass.
-#[derive(Clone, Copy)]
+#[derive(Clone, Copy, Debug)]
 pub enum PointJob {
     /// A pointwise function of the derivatives from one estimator.
-    Derivative(SlopeMethod, fn(&Pqrst) -> f64),
+    Derivative(SlopeMethod, Pointwise),
     /// Riley et al. 1999 TRI.
     Tri,
 }
 
+/// Columns per chunk of the fused pass: the derivative rows of a chunk stay in L1/L2.
+const CHUNK: usize = 256;
+
+/// Derivatives of one chunk of a row, structure of arrays (NaN where any of the nine
+/// cells is missing).
+struct RowDerivs {
+    p: Vec<f64>,
+    q: Vec<f64>,
+    r: Vec<f64>,
+    s: Vec<f64>,
+    t: Vec<f64>,
+}
+
+impl RowDerivs {
+    fn new() -> RowDerivs {
+        RowDerivs {
+            p: vec![0.0; CHUNK],
+            q: vec![0.0; CHUNK],
+            r: vec![0.0; CHUNK],
+            s: vec![0.0; CHUNK],
+            t: vec![0.0; CHUNK],
+        }
+    }
+
+    /// Derivatives by `method` for the n cells whose windows are centred on columns
+    /// c0 + 1 .. c0 + n + 1 of the three rows `a`, `b`, `c` (north to south). The same
+    /// arithmetic as [`pqrst_3x3`], written over slices so it vectorises; the tests check
+    /// the two agree bit for bit.
+    #[inline(always)]
+    fn estimate(&mut self, rows: [&[f64]; 3], n: usize, hx: f64, hy: f64, method: SlopeMethod) {
+        // One specialised loop per estimator (the method is a constant inside each).
+        match method {
+            SlopeMethod::Horn => self.estimate_as(rows, n, hx, hy, SlopeMethod::Horn),
+            SlopeMethod::ZevenbergenThorne => {
+                self.estimate_as(rows, n, hx, hy, SlopeMethod::ZevenbergenThorne)
+            }
+            SlopeMethod::EvansYoung | SlopeMethod::Quadratic => {
+                self.estimate_as(rows, n, hx, hy, SlopeMethod::EvansYoung)
+            }
+        }
+    }
+
+    #[inline(always)]
+    fn estimate_as(&mut self, rows: [&[f64]; 3], n: usize, hx: f64, hy: f64, method: SlopeMethod) {
+        let [a, b, c] = rows;
+        let (a, b, c) = (&a[..n + 2], &b[..n + 2], &c[..n + 2]);
+        let (p, q, r, s, t) = (
+            &mut self.p[..n],
+            &mut self.q[..n],
+            &mut self.r[..n],
+            &mut self.s[..n],
+            &mut self.t[..n],
+        );
+        for j in 0..n {
+            let (z1, z2, z3) = (a[j], a[j + 1], a[j + 2]);
+            let (z4, z5, z6) = (b[j], b[j + 1], b[j + 2]);
+            let (z7, z8, z9) = (c[j], c[j + 1], c[j + 2]);
+            // Not finite when any cell is NaN or infinite (nine f32 values cannot overflow).
+            let all = z1 + z2 + z3 + z4 + z5 + z6 + z7 + z8 + z9;
+            let d = pqrst_unchecked(z1, z2, z3, z4, z5, z6, z7, z8, z9, hx, hy, method);
+            let ok = all.is_finite();
+            p[j] = select(ok, d.p, f64::NAN);
+            q[j] = select(ok, d.q, f64::NAN);
+            r[j] = select(ok, d.r, f64::NAN);
+            s[j] = select(ok, d.s, f64::NAN);
+            t[j] = select(ok, d.t, f64::NAN);
+        }
+    }
+}
+
+/// Riley et al. TRI of the n cells centred on columns c0 + 1 .. c0 + n + 1 of three rows;
+/// NaN where any cell is missing.
+#[inline(always)]
+fn tri_row(rows: [&[f64]; 3], n: usize, out: &mut [f32]) {
+    let [a, b, c] = rows;
+    let (a, b, c) = (&a[..n + 2], &b[..n + 2], &c[..n + 2]);
+    for (j, o) in out[..n].iter_mut().enumerate() {
+        let w = [
+            a[j],
+            a[j + 1],
+            a[j + 2],
+            b[j],
+            b[j + 1],
+            b[j + 2],
+            c[j],
+            c[j + 1],
+            c[j + 2],
+        ];
+        let all: f64 = w.iter().sum();
+        let v = tri_3x3(&w);
+        *o = select(all.is_finite(), v, f64::NAN) as f32;
+    }
+}
+
+/// f32 elevations times the z-factor, as f64.
+fn widen(src: &[f32], z_factor: f64, out: &mut [f64]) {
+    for (d, &v) in out.iter_mut().zip(src) {
+        *d = v as f64 * z_factor;
+    }
+}
+
+/// One output row of the fused pass.
+struct RowTask<'a> {
+    /// Rows above, at and below the centre, × z-factor (metres).
+    lines: [&'a [f64]; 3],
+    hx: f64,
+    hy: f64,
+    halo: usize,
+    /// Output columns whose 3x3 window lies inside the block.
+    cols: std::ops::Range<usize>,
+    methods: &'a [SlopeMethod],
+    jobs: &'a [PointJob],
+}
+
+impl RowTask<'_> {
+    /// Fills `outs` (one row slice per job). `wide` selects the AVX2 build of the same
+    /// code: AVX2 only widens the vectors (no fused multiply-add is enabled, and Rust never
+    /// contracts a·b + c), so both builds give the same bits.
+    fn run(&self, derivs: &mut [RowDerivs], outs: &mut [&mut [f32]], wide: bool) {
+        #[cfg(target_arch = "x86_64")]
+        if wide {
+            // SAFETY: `wide` is true only when the CPU reports AVX2
+            // (`wide_vectors_available`).
+            unsafe { self.run_avx2(derivs, outs) };
+            return;
+        }
+        let _ = wide;
+        self.run_any(derivs, outs);
+    }
+
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx2")]
+    unsafe fn run_avx2(&self, derivs: &mut [RowDerivs], outs: &mut [&mut [f32]]) {
+        self.run_any(derivs, outs);
+    }
+
+    #[inline(always)]
+    fn run_any(&self, derivs: &mut [RowDerivs], outs: &mut [&mut [f32]]) {
+        for o in outs.iter_mut() {
+            o[..self.cols.start].fill(f32::NAN);
+            o[self.cols.end..].fill(f32::NAN);
+        }
+        let mut j0 = self.cols.start;
+        while j0 < self.cols.end {
+            let n = (self.cols.end - j0).min(CHUNK);
+            // Window of output column j starts at input column halo + j − 1.
+            let c0 = self.halo + j0 - 1;
+            let three = [
+                &self.lines[0][c0..],
+                &self.lines[1][c0..],
+                &self.lines[2][c0..],
+            ];
+            for (d, m) in derivs.iter_mut().zip(self.methods.iter()) {
+                d.estimate(three, n, self.hx, self.hy, *m);
+            }
+            for (job, o) in self.jobs.iter().zip(outs.iter_mut()) {
+                let out = &mut o[j0..j0 + n];
+                match job {
+                    PointJob::Derivative(m, f) => {
+                        let k = self.methods.iter().position(|x| x == m).unwrap_or(0);
+                        f.fill(&derivs[k], out);
+                    }
+                    PointJob::Tri => tri_row(three, n, out),
+                }
+            }
+            j0 += n;
+        }
+    }
+}
+
+/// Whether the running CPU has AVX2 (x86-64 only).
+fn wide_vectors_available() -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        std::arch::is_x86_feature_detected!("avx2")
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        false
+    }
+}
+
 /// Evaluates `jobs` for the interior of `z` (elevations × `z_factor`, NaN = nodata) in one
-/// pass: each cell's nine elevations are read once, each needed estimator runs once, and
-/// every requested output is written. Rows run in parallel; each value is a pointwise
-/// function of nine cells and the centre row's cell sizes. O(1) per cell.
+/// pass: each row's three input lines are converted once, each needed estimator runs once
+/// per chunk of columns, and every requested output is written straight into its array.
+/// Rows run in parallel; each value is a pointwise function of nine cells and the centre
+/// row's cell sizes, so results do not depend on blocks or threads. Cells whose window
+/// leaves `z` are NaN. O(1) per cell.
 pub fn fused_3x3(
     z: ArrayView2<f32>,
     z_factor: f64,
@@ -244,7 +516,6 @@ pub fn fused_3x3(
     let (nr, nc) = z.dim();
     let out_r = nr - 2 * halo;
     let out_c = nc - 2 * halo;
-    let k = jobs.len();
     let mut methods: Vec<SlopeMethod> = jobs
         .iter()
         .filter_map(|j| match j {
@@ -254,62 +525,63 @@ pub fn fused_3x3(
         .collect();
     methods.sort_unstable();
     methods.dedup();
-    let slot: Vec<usize> = jobs
+    let mut outs: Vec<Array2<f32>> = jobs
         .iter()
-        .map(|j| match j {
-            PointJob::Derivative(m, _) => methods.iter().position(|x| x == m).unwrap_or(0),
-            PointJob::Tri => 0,
-        })
+        .map(|_| Array2::<f32>::zeros((out_r, out_c)))
         .collect();
-    let mut buf = Array3::<f32>::from_elem((out_r, k, out_c), f32::NAN);
-    buf.axis_iter_mut(Axis(0))
-        .into_par_iter()
-        .enumerate()
-        .for_each(|(i, mut orow)| {
-            let row = halo + i;
-            if row == 0 || row + 1 >= nr {
-                return;
+    let wide = wide_vectors_available();
+    // Output columns whose window lies inside z: col = halo + j with 1 <= col <= nc − 2.
+    let j_lo = 1usize.saturating_sub(halo).min(out_c);
+    let j_hi = (nc.saturating_sub(1).saturating_sub(halo)).clamp(j_lo, out_c);
+    {
+        let mut rows: Vec<Vec<&mut [f32]>> = (0..out_r).map(|_| Vec::new()).collect();
+        for o in outs.iter_mut() {
+            let flat = o.as_slice_mut().expect("fresh arrays are contiguous");
+            for (i, r) in flat.chunks_mut(out_c.max(1)).enumerate().take(out_r) {
+                rows[i].push(r);
             }
-            let (hx, hy) = (sizes.hx(row), sizes.hy(row));
-            let lines: Vec<Vec<f64>> = (row - 1..=row + 1)
-                .map(|r| z.row(r).iter().map(|&v| v as f64 * z_factor).collect())
-                .collect();
-            let (a, b, c) = (&lines[0], &lines[1], &lines[2]);
-            let mut d = [Pqrst::NAN; 3];
-            for j in 0..out_c {
-                let col = halo + j;
-                if col == 0 || col + 1 >= nc {
-                    continue;
-                }
-                let w = [
-                    a[col - 1],
-                    a[col],
-                    a[col + 1],
-                    b[col - 1],
-                    b[col],
-                    b[col + 1],
-                    c[col - 1],
-                    c[col],
-                    c[col + 1],
-                ];
-                if w.iter().any(|v| v.is_nan()) {
-                    continue;
-                }
-                for (dk, m) in d.iter_mut().zip(methods.iter()) {
-                    *dk = pqrst_3x3(&w, hx, hy, *m).unwrap_or(Pqrst::NAN);
-                }
-                for (f, job) in jobs.iter().enumerate() {
-                    let v = match job {
-                        PointJob::Derivative(_, func) => func(&d[slot[f]]),
-                        PointJob::Tri => tri_3x3(&w),
+        }
+        rows.into_par_iter()
+            .enumerate()
+            .with_min_len(4)
+            .for_each_init(
+                || {
+                    let derivs: Vec<RowDerivs> = methods.iter().map(|_| RowDerivs::new()).collect();
+                    (vec![vec![0.0f64; nc]; 3], derivs)
+                },
+                |(lines, derivs), (i, mut orow)| {
+                    let row = halo + i;
+                    if row == 0 || row + 1 >= nr {
+                        for o in orow.iter_mut() {
+                            o.fill(f32::NAN);
+                        }
+                        return;
+                    }
+                    for (line, r) in lines.iter_mut().zip(row - 1..=row + 1) {
+                        let src = z.row(r);
+                        match src.as_slice() {
+                            Some(src) => widen(src, z_factor, line),
+                            None => {
+                                for (d, &v) in line.iter_mut().zip(src.iter()) {
+                                    *d = v as f64 * z_factor;
+                                }
+                            }
+                        }
+                    }
+                    let task = RowTask {
+                        lines: [&lines[0], &lines[1], &lines[2]],
+                        hx: sizes.hx(row),
+                        hy: sizes.hy(row),
+                        halo,
+                        cols: j_lo..j_hi,
+                        methods: &methods,
+                        jobs,
                     };
-                    orow[[f, j]] = v as f32;
-                }
-            }
-        });
-    (0..k)
-        .map(|f| buf.index_axis(Axis(1), f).to_owned())
-        .collect()
+                    task.run(derivs, &mut orow, wide);
+                },
+            );
+    }
+    outs
 }
 
 #[cfg(test)]
@@ -380,6 +652,81 @@ mod tests {
         let mut w = [1.0; 9];
         w[8] = f64::NAN;
         assert!(pqrst_3x3(&w, 1.0, 1.0, SlopeMethod::Horn).is_none());
+    }
+
+    #[test]
+    fn fused_pass_equals_cell_by_cell_evaluation() {
+        // Reference: pqrst_3x3 and the pointwise functions cell by cell (the scalar form of
+        // the METHODS.md formulas); the row loops must give the same bits, NaN included,
+        // on a random surface with holes, infinities, a z-factor and geographic rows.
+        use crate::terrain::test_support::{random_dem, SplitMix64};
+        let mut rng = SplitMix64::new(17);
+        let mut z = random_dem(&mut rng, 37, 300, 0.03);
+        z[[5, 7]] = f32::INFINITY;
+        z[[9, 290]] = f32::NEG_INFINITY;
+        let fns = [
+            Pointwise::Slope,
+            Pointwise::Aspect,
+            Pointwise::Northness,
+            Pointwise::Eastness,
+            Pointwise::Profile,
+            Pointwise::Plan,
+            Pointwise::Tangential,
+            Pointwise::Mean,
+            Pointwise::Gaussian,
+        ];
+        let mut jobs = vec![PointJob::Tri];
+        for m in [
+            SlopeMethod::Horn,
+            SlopeMethod::ZevenbergenThorne,
+            SlopeMethod::EvansYoung,
+        ] {
+            jobs.extend(fns.iter().map(|f| PointJob::Derivative(m, *f)));
+        }
+        let zf = 0.3048;
+        let cells = crate::grid::CellSizes {
+            hx: (0..37).map(|i| 2.0 + 0.01 * i as f64).collect(),
+            hy: vec![2.5; 37],
+        };
+        for halo in [0usize, 1, 3] {
+            let got = fused_3x3(z.view(), zf, RowSizes::new(&cells), halo, &jobs);
+            let (nr, nc) = z.dim();
+            for i in 0..nr - 2 * halo {
+                for j in 0..nc - 2 * halo {
+                    let (row, col) = (i + halo, j + halo);
+                    let w = (row >= 1 && col >= 1 && row + 1 < nr && col + 1 < nc).then(|| {
+                        let mut w = [0.0; 9];
+                        for (k, v) in w.iter_mut().enumerate() {
+                            *v = z[[row + k / 3 - 1, col + k % 3 - 1]] as f64 * zf;
+                        }
+                        w
+                    });
+                    let sizes = RowSizes::new(&cells);
+                    for (job, out) in jobs.iter().zip(got.iter()) {
+                        let want = match (job, w) {
+                            (_, None) => f32::NAN,
+                            (PointJob::Tri, Some(w)) => {
+                                if w.iter().all(|v| v.is_finite()) {
+                                    tri_3x3(&w) as f32
+                                } else {
+                                    f32::NAN
+                                }
+                            }
+                            (PointJob::Derivative(m, f), Some(w)) => {
+                                pqrst_3x3(&w, sizes.hx(row), sizes.hy(row), *m)
+                                    .map_or(f64::NAN, |d| f.eval(&d))
+                                    as f32
+                            }
+                        };
+                        let v = out[[i, j]];
+                        assert!(
+                            v.to_bits() == want.to_bits() || (v.is_nan() && want.is_nan()),
+                            "{job:?} at ({row}, {col}), halo {halo}: {v} != {want}"
+                        );
+                    }
+                }
+            }
+        }
     }
 
     #[test]

@@ -21,6 +21,7 @@
 //! Outputs are analysis aids for mapping and classification, not engineering assessments
 //! of ground stability or access; those defer to local codes and licensed practice.
 
+pub mod arctan;
 pub mod catalogue;
 pub mod curvature;
 pub mod derivatives;
@@ -40,7 +41,7 @@ use crate::error::{Error, Result};
 use crate::grid::CellSizes;
 
 pub use catalogue::{catalogue, FeatureDoc};
-use derivatives::Derivatives;
+use derivatives::{Derivatives, Pointwise};
 use window_sums::{Layout, QuantisedField};
 
 /// How first and second partial derivatives are estimated.
@@ -663,9 +664,6 @@ impl<'a> RowSizes<'a> {
     }
 }
 
-/// A pointwise function of partial derivatives (slope, aspect, a curvature, ...).
-type Pointwise = fn(&derivatives::Pqrst) -> f64;
-
 /// Key of a set of first and second derivatives: the estimator and the fit radius.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
 struct DerivKey {
@@ -711,16 +709,16 @@ pub fn compute(
         } else {
             method
         };
-        let func: fn(&derivatives::Pqrst) -> f64 = match f {
-            TerrainFeature::Slope { .. } => slope::slope_deg,
-            TerrainFeature::Aspect { .. } => slope::aspect_deg,
-            TerrainFeature::Northness { .. } => slope::northness,
-            TerrainFeature::Eastness { .. } => slope::eastness,
-            TerrainFeature::ProfileCurvature { .. } => curvature::profile,
-            TerrainFeature::PlanCurvature { .. } => curvature::plan,
-            TerrainFeature::TangentialCurvature { .. } => curvature::tangential,
-            TerrainFeature::MeanCurvature { .. } => curvature::mean,
-            _ => curvature::gaussian,
+        let func = match f {
+            TerrainFeature::Slope { .. } => Pointwise::Slope,
+            TerrainFeature::Aspect { .. } => Pointwise::Aspect,
+            TerrainFeature::Northness { .. } => Pointwise::Northness,
+            TerrainFeature::Eastness { .. } => Pointwise::Eastness,
+            TerrainFeature::ProfileCurvature { .. } => Pointwise::Profile,
+            TerrainFeature::PlanCurvature { .. } => Pointwise::Plan,
+            TerrainFeature::TangentialCurvature { .. } => Pointwise::Tangential,
+            TerrainFeature::MeanCurvature { .. } => Pointwise::Mean,
+            _ => Pointwise::Gaussian,
         };
         Some((method, func))
     };
@@ -933,16 +931,16 @@ pub fn compute(
                 let d = &derivs[&key];
                 let mut o = Array2::<f32>::zeros((out_r, out_c));
                 let dv = d;
-                let pointwise: fn(&derivatives::Pqrst) -> f64 = match f {
-                    TerrainFeature::Slope { .. } => slope::slope_deg,
-                    TerrainFeature::Aspect { .. } => slope::aspect_deg,
-                    TerrainFeature::Northness { .. } => slope::northness,
-                    TerrainFeature::Eastness { .. } => slope::eastness,
-                    TerrainFeature::ProfileCurvature { .. } => curvature::profile,
-                    TerrainFeature::PlanCurvature { .. } => curvature::plan,
-                    TerrainFeature::TangentialCurvature { .. } => curvature::tangential,
-                    TerrainFeature::MeanCurvature { .. } => curvature::mean,
-                    _ => curvature::gaussian,
+                let pointwise = match f {
+                    TerrainFeature::Slope { .. } => Pointwise::Slope,
+                    TerrainFeature::Aspect { .. } => Pointwise::Aspect,
+                    TerrainFeature::Northness { .. } => Pointwise::Northness,
+                    TerrainFeature::Eastness { .. } => Pointwise::Eastness,
+                    TerrainFeature::ProfileCurvature { .. } => Pointwise::Profile,
+                    TerrainFeature::PlanCurvature { .. } => Pointwise::Plan,
+                    TerrainFeature::TangentialCurvature { .. } => Pointwise::Tangential,
+                    TerrainFeature::MeanCurvature { .. } => Pointwise::Mean,
+                    _ => Pointwise::Gaussian,
                 };
                 Zip::from(&mut o)
                     .and(&dv.p)
@@ -951,7 +949,7 @@ pub fn compute(
                     .and(&dv.s)
                     .and(&dv.t)
                     .par_for_each(|o, &p, &q, &r, &s, &t| {
-                        *o = pointwise(&derivatives::Pqrst { p, q, r, s, t }) as f32;
+                        *o = pointwise.eval(&derivatives::Pqrst { p, q, r, s, t }) as f32;
                     });
                 o
             }

@@ -9,47 +9,37 @@
 //! x points east and y north; a plane rising to the north-east faces (drains) south-west.
 //! Pointwise, O(1) per cell; NaN derivatives give NaN.
 
+use super::arctan::{self, select};
 use super::derivatives::Pqrst;
 
 /// Slope angle in degrees, atan(√(p² + q²)).
+#[inline]
 pub fn slope_deg(d: &Pqrst) -> f64 {
-    (d.p * d.p + d.q * d.q).sqrt().atan().to_degrees()
+    arctan::atan((d.p * d.p + d.q * d.q).sqrt()).to_degrees()
 }
 
 /// Aspect in degrees clockwise from north, the direction of steepest descent; NaN when
 /// the cell is flat (p = q = 0) or the derivatives are missing.
+#[inline]
 pub fn aspect_deg(d: &Pqrst) -> f64 {
-    if d.p == 0.0 && d.q == 0.0 {
-        return f64::NAN;
-    }
-    let a = (-d.p).atan2(-d.q).to_degrees();
-    if a < 0.0 {
-        a + 360.0
-    } else if a >= 360.0 {
-        a - 360.0
-    } else {
-        a
-    }
+    let a = arctan::atan2(-d.p, -d.q).to_degrees();
+    let a = select(a < 0.0, a + 360.0, a);
+    let a = select(a >= 360.0, a - 360.0, a);
+    select(d.p == 0.0 && d.q == 0.0, f64::NAN, a)
 }
 
 /// cos(aspect) = −q/√(p² + q²): +1 facing north, −1 facing south, 0 when flat.
+#[inline]
 pub fn northness(d: &Pqrst) -> f64 {
     let g = (d.p * d.p + d.q * d.q).sqrt();
-    if g == 0.0 {
-        0.0
-    } else {
-        -d.q / g
-    }
+    select(g == 0.0, 0.0, -d.q / g)
 }
 
 /// sin(aspect) = −p/√(p² + q²): +1 facing east, −1 facing west, 0 when flat.
+#[inline]
 pub fn eastness(d: &Pqrst) -> f64 {
     let g = (d.p * d.p + d.q * d.q).sqrt();
-    if g == 0.0 {
-        0.0
-    } else {
-        -d.p / g
-    }
+    select(g == 0.0, 0.0, -d.p / g)
 }
 
 #[cfg(test)]
