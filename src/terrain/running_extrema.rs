@@ -30,8 +30,10 @@
 //! Memory, beyond the two outputs (8 bytes per output cell each): discs hold one table
 //! level of 8 bytes per cell over the input rows the windows reach and the output columns
 //! widened by the largest half-width on each side, i.e. at most 8 bytes per input cell
-//! when the windows fit in the block's halo; squares hold the input rows' horizontal
-//! minima (8 bytes per cell) and a block of g and h arrays per column strip.
+//! when the windows fit in the block's halo, plus one table row per thread; the minimum
+//! and maximum passes run one after the other, so one table is held at a time. Squares hold a prepared copy of the block (8 bytes per input cell), the horizontal
+//! minima of the rows a run of output rows needs (8 bytes per row and output column) and
+//! g and h arrays per column strip being processed.
 
 use ndarray::{s, Array2, ArrayViewMut2, Axis};
 use rayon::prelude::*;
