@@ -9,7 +9,7 @@
 //! order). Minimum and maximum are exact, so results do not depend on the block layout or
 //! thread count.
 //!
-//! - Discs ([`disc_min`]): a disc is a union of row segments of varying half-width (see
+//! - Discs (`disc_min`): a disc is a union of row segments of varying half-width (see
 //!   [`super::window_sums`] for the membership rule). The minimum over one segment comes
 //!   from a sparse table over its input row, the range-minimum structure of Bender &
 //!   Farach-Colton 2000 (LATIN, from memory): level k holds M_k[x] = min(a[x .. x + 2^k)),
@@ -20,7 +20,7 @@
 //!   only one level of the table is held. Cost: O(log2 w) per input cell to build the
 //!   levels, plus two loads and two comparisons per output cell and window row, i.e.
 //!   O(ry) = O(r/h) per output cell, contiguous along the row (vectorised).
-//! - Squares ([`square_min`]) are separable: a 1D running minimum along the rows, then
+//! - Squares (`square_min`) are separable: a 1D running minimum along the rows, then
 //!   along the columns, each by van Herk 1992 (Pattern Recognit. Lett. 13) / Gil & Werman
 //!   1993 (IEEE Trans. PAMI 15), citations from memory: split the line into blocks of
 //!   L = 2w + 1 cells, take prefix minima g and suffix minima h inside each block; the
