@@ -7,6 +7,10 @@
 //! - `terrain_disc/r{0.5,5,25}m`: the same on disc windows (O(r/h) per cell) over a
 //!   500 x 500 output, because the disc cost grows with the radius.
 //!
+//! - `terrain_extrema/{disc,square}_r50c`: window minimum and maximum alone
+//!   ([`Extrema::compute`]) with a radius of 50 cells over a 2000 x 2000 output (half the
+//!   size).
+//!
 //! `TERRASTACK_BENCH_SIZE` overrides 4000 (the disc size is an eighth of it).
 //! `scripts/bench_terrain.py` runs this and times the numpy/scipy way side by side.
 
@@ -17,7 +21,11 @@ use criterion::{
 };
 use ndarray::Array2;
 use terrastack::grid::CellSizes;
-use terrastack::terrain::{compute, SlopeMethod, TerrainFeature, TerrainParams, WindowShape};
+use terrastack::terrain::running_extrema::Extrema;
+use terrastack::terrain::window_sums::Layout;
+use terrastack::terrain::{
+    compute, RowSizes, SlopeMethod, TerrainFeature, TerrainParams, WindowShape,
+};
 
 const H: f64 = 0.05;
 
@@ -144,5 +152,33 @@ fn bench(c: &mut Criterion) {
     }
 }
 
-criterion_group!(benches, bench);
+fn bench_extrema(c: &mut Criterion) {
+    let out_n = size() / 2;
+    let radius_cells = 50;
+    let mut g = c.benchmark_group("terrain_extrema");
+    g.sampling_mode(SamplingMode::Flat)
+        .sample_size(10)
+        .warm_up_time(Duration::from_millis(500))
+        .measurement_time(Duration::from_secs(5))
+        .throughput(Throughput::Elements((out_n * out_n) as u64));
+    let zs = dsm(out_n, radius_cells).mapv(f64::from);
+    let cells = CellSizes::uniform(H, H, zs.nrows());
+    let r = radius_cells as f64 * H;
+    for (shape, name) in [
+        (WindowShape::Disc, "disc_r50c"),
+        (WindowShape::Square, "square_r50c"),
+    ] {
+        let layout = Layout::new(shape, r, RowSizes::new(&cells), radius_cells, out_n);
+        g.bench_function(name, |b| {
+            b.iter(|| {
+                Extrema::compute(&zs, &layout, radius_cells, out_n)
+                    .min
+                    .len()
+            })
+        });
+    }
+    g.finish();
+}
+
+criterion_group!(benches, bench, bench_extrema);
 criterion_main!(benches);
