@@ -44,7 +44,7 @@
 //! interior pays for the halo too. Memory: 32 bytes per input cell for the prefixes of
 //! count, Σz and Σz² (more with plane moments).
 
-use ndarray::{Array2, ArrayViewMut2, Axis};
+use ndarray::{Array2, ArrayViewMut2, Axis, Zip};
 use rayon::prelude::*;
 
 use super::{radius_cells, RowSizes, WindowShape};
@@ -86,10 +86,20 @@ pub struct QuantisedField {
 impl QuantisedField {
     /// Elevations `zs` (metres, NaN = nodata) quantised relative to `reference_z`.
     pub fn new(zs: &Array2<f64>, reference_z: f64) -> QuantisedField {
-        let q = zs.mapv(|v| quantise(v - reference_z));
+        let mut valid = Array2::from_elem(zs.dim(), false);
+        let mut values = Array2::<i64>::zeros(zs.dim());
+        Zip::from(&mut valid)
+            .and(&mut values)
+            .and(zs)
+            .par_for_each(|ok, q, &z| {
+                if let Some(v) = quantise(z - reference_z) {
+                    *ok = true;
+                    *q = v;
+                }
+            });
         QuantisedField {
-            valid: q.mapv(|v| v.is_some()),
-            values: vec![q.mapv(|v| v.unwrap_or(0))],
+            valid,
+            values: vec![values],
         }
     }
 
@@ -546,10 +556,10 @@ impl<'a> WindowSums<'a> {
                         let width = parts[0].ncols();
                         if self.limbs {
                             self.sweep_square_limbs(j0, width, |i, cells, acc| {
-                                for (part, stat) in parts.iter_mut().zip(stats) {
-                                    let mut row = part.row_mut(i);
-                                    for (jj, d) in row.iter_mut().enumerate() {
-                                        *d = stat(i, j0 + jj, cells, &acc.cell(jj));
+                                for jj in 0..width {
+                                    let cs = acc.cell(jj);
+                                    for (part, stat) in parts.iter_mut().zip(stats) {
+                                        part[[i, jj]] = stat(i, j0 + jj, cells, &cs);
                                     }
                                 }
                             });
@@ -845,7 +855,8 @@ mod tests {
             let row = r0 as i64 + dy;
             let hx = sizes.hx(row.max(0) as usize);
             let kx = radius_cells(r, sizes.hx(r0)) as i64;
-            let reach = (r / hx).ceil() as i64 + 1;
+            // Squares span ±kx of the centre row whatever this row's hx.
+            let reach = ((r / hx).ceil() as i64 + 1).max(kx);
             for dx in -reach..=reach {
                 let inside = match shape {
                     WindowShape::Square => dx.abs() <= kx,
@@ -870,10 +881,16 @@ mod tests {
                 if !field.valid[[ru, cu]] {
                     continue;
                 }
-                let v = i128::from(field.values[0][[ru, cu]]);
+                let v = field
+                    .values
+                    .first()
+                    .map_or(0, |ch| i128::from(ch[[ru, cu]]));
                 let (x, y) = (i128::from(dx), i128::from(dy));
                 out.n += 1;
                 out.s[0] += v;
+                for (c, ch) in field.values.iter().enumerate().skip(1) {
+                    out.s[c] += i128::from(ch[[ru, cu]]);
+                }
                 out.s2 += v * v;
                 let p = out.plane.as_mut().unwrap();
                 p.sx += x;
@@ -972,6 +989,234 @@ mod tests {
                         let (_, want) = naive(&field, shape, r, sizes, 6 + i, 6 + j);
                         assert_eq!((got.n, got.s[0], got.s2), (want.n, want.s[0], want.s2));
                     }
+                }
+            }
+        }
+    }
+
+    /// A random field of `channels` channels: values uniform in ±`amp` quanta (channel 0
+    /// near ±`amp` with probability 1/2 when `edge`), invalid with probability `holes`.
+    fn random_field(
+        rng: &mut SplitMix64,
+        nr: usize,
+        nc: usize,
+        channels: usize,
+        amp: i64,
+        holes: f64,
+        edge: bool,
+    ) -> QuantisedField {
+        let valid = Array2::from_shape_fn((nr, nc), |_| rng.next_f64() >= holes);
+        let values = (0..channels)
+            .map(|c| {
+                Array2::from_shape_fn((nr, nc), |(i, j)| {
+                    if !valid[[i, j]] {
+                        return 0;
+                    }
+                    let sign = if rng.next_f64() < 0.5 { -1 } else { 1 };
+                    let mag = if edge && c == 0 && rng.next_f64() < 0.5 {
+                        amp - rng.below(1000) as i64
+                    } else {
+                        rng.below(amp as u64 + 1) as i64
+                    };
+                    sign * mag
+                })
+            })
+            .collect();
+        QuantisedField { valid, values }
+    }
+
+    /// Every output cell of `ws` (both the i64 path and, forced, the i128 path) against
+    /// the naive enumeration; `plane` compares the moments too.
+    fn check_against_naive(
+        field: &QuantisedField,
+        layout: &Layout,
+        r: f64,
+        sizes: RowSizes,
+        halo: usize,
+        out_c: usize,
+        opt: SumOptions,
+        label: &str,
+    ) {
+        let mut ws = WindowSums::new(field, layout, halo, out_c, opt);
+        assert_eq!(ws.limbs, !opt.plane, "{label}: path choice");
+        for limbs in [ws.limbs, false] {
+            ws.limbs = limbs;
+            for i in 0..layout.rows.len() {
+                for (j, got) in ws.row(i).iter().enumerate() {
+                    let (cells, mut want) =
+                        naive(field, layout.shape, r, sizes, halo + i, halo + j);
+                    assert_eq!(layout.rows[i].cells, cells, "{label}: window cells");
+                    if !opt.squares && !opt.plane {
+                        want.s2 = 0;
+                    }
+                    if !opt.plane {
+                        want.plane = None;
+                    }
+                    assert_eq!(got, &want, "{label} limbs={limbs} at ({i}, {j})");
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn limb_sums_match_naive_enumeration() {
+        // Reference: the naive enumeration of each window's cells. Random fields with
+        // holes and up to three channels (as VRM uses), discs and squares, radii reaching
+        // past the block (so segments leave the row), halos smaller than the radius, and
+        // per-row east-west cell sizes (geographic grids).
+        let mut rng = SplitMix64::new(314);
+        for case in 0..30 {
+            let nr = 5 + rng.below(16) as usize;
+            let nc = 5 + rng.below(16) as usize;
+            let channels = rng.below(4) as usize;
+            let field = random_field(&mut rng, nr, nc, channels, 1 << 30, 0.25, false);
+            let hx0 = 0.4 + rng.next_f64();
+            let cells = CellSizes {
+                hx: (0..nr).map(|i| hx0 * (1.0 + 0.05 * i as f64)).collect(),
+                hy: vec![0.4 + rng.next_f64(); nr],
+            };
+            let sizes = RowSizes::new(&cells);
+            let r = 0.2 + rng.next_f64() * 6.0;
+            let halo = rng.below(1 + nr.min(nc) as u64 / 3) as usize;
+            let out_r = nr - 2 * halo;
+            let out_c = nc - 2 * halo;
+            let squares = channels > 0 && rng.next_f64() < 0.7;
+            let opt = SumOptions {
+                squares,
+                plane: false,
+            };
+            for shape in [WindowShape::Disc, WindowShape::Square] {
+                let layout = Layout::new(shape, r, sizes, halo, out_r);
+                let label = format!("case {case} {shape:?} r={r:.2} halo={halo} ch={channels}");
+                check_against_naive(&field, &layout, r, sizes, halo, out_c, opt, &label);
+            }
+        }
+    }
+
+    #[test]
+    fn limb_sums_near_quantisation_limits_match_naive() {
+        // Values within 1000 quanta of ±2³⁶ (|z − reference| just under 65 536 m), where
+        // zq² ≈ 2⁷² and the prefixes of squares need both limbs; windows up to 25 x 25
+        // cells. Reference: the naive enumeration in i128. Plane moments (the i128 path)
+        // are checked on the same fields.
+        let mut rng = SplitMix64::new(2718);
+        for case in 0..8 {
+            let (nr, nc) = (30, 34);
+            let field = random_field(&mut rng, nr, nc, 1, MAX_ABS_VALUE, 0.1, true);
+            let cells = CellSizes {
+                hx: (0..nr).map(|i| 1.0 - 0.01 * i as f64).collect(),
+                hy: vec![1.0; nr],
+            };
+            let sizes = RowSizes::new(&cells);
+            let r = [3.0, 12.5][case % 2];
+            let halo = 4;
+            for shape in [WindowShape::Disc, WindowShape::Square] {
+                let layout = Layout::new(shape, r, sizes, halo, nr - 2 * halo);
+                for plane in [false, true] {
+                    let opt = SumOptions {
+                        squares: true,
+                        plane,
+                    };
+                    let label = format!("case {case} {shape:?} plane={plane}");
+                    check_against_naive(
+                        &field,
+                        &layout,
+                        r,
+                        sizes,
+                        halo,
+                        nc - 2 * halo,
+                        opt,
+                        &label,
+                    );
+                }
+            }
+        }
+        // The extreme prefix: a row of 64 cells of 2³⁶ has Σzq² = 2⁷⁸ (closed form), which
+        // splits into hi = 2⁴², lo = 0.
+        let valid = Array2::from_elem((1, 64), true);
+        let field = QuantisedField {
+            valid,
+            values: vec![Array2::from_elem((1, 64), MAX_ABS_VALUE)],
+        };
+        let opt = SumOptions {
+            squares: true,
+            plane: false,
+        };
+        let p = row_prefix(&field, 0, opt);
+        assert_eq!((p.v2_hi[64], p.v2_lo[64]), (1 << 42, 0));
+        assert_eq!(p.v2(0, 64), 1i128 << 78);
+    }
+
+    #[test]
+    fn oversized_windows_take_the_i128_path() {
+        // A 500 m radius at 0.1 m cells gives windows of about 7.9e7 (disc) and 1e8
+        // (square) cells, over the 2²⁶ limit of i64 accumulation. Every window covers the
+        // whole 9 x 11 block, so the reference is the sum over the whole block (naive).
+        let mut rng = SplitMix64::new(5);
+        let field = random_field(&mut rng, 9, 11, 2, 1 << 36, 0.2, true);
+        let cells = CellSizes::uniform(0.1, 0.1, 9);
+        let sizes = RowSizes::new(&cells);
+        let mut want = CellSums::default();
+        for ((i, j), &ok) in field.valid.indexed_iter() {
+            if ok {
+                let v = i128::from(field.values[0][[i, j]]);
+                want.n += 1;
+                want.s[0] += v;
+                want.s[1] += i128::from(field.values[1][[i, j]]);
+                want.s2 += v * v;
+            }
+        }
+        let opt = SumOptions {
+            squares: true,
+            plane: false,
+        };
+        for shape in [WindowShape::Disc, WindowShape::Square] {
+            let layout = Layout::new(shape, 500.0, sizes, 2, 5);
+            assert!(layout.rows[0].cells > MAX_I64_WINDOW_CELLS);
+            let ws = WindowSums::new(&field, &layout, 2, 7, opt);
+            assert!(!ws.limbs, "{shape:?} must not accumulate in i64");
+            for i in 0..5 {
+                for got in ws.row(i) {
+                    assert_eq!(got, want, "{shape:?} row {i}");
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn map_writes_each_statistic_at_its_cell() {
+        // Three statistics over 300 output columns (three column strips for squares)
+        // against the naive enumeration: the count, the channel sum and the cell's own
+        // position, for both shapes and both paths.
+        let mut rng = SplitMix64::new(11);
+        let (nr, nc, halo) = (14, 306, 3);
+        let field = random_field(&mut rng, nr, nc, 1, 1 << 20, 0.2, false);
+        let cells = CellSizes::uniform(1.0, 1.0, nr);
+        let sizes = RowSizes::new(&cells);
+        let opt = SumOptions {
+            squares: true,
+            plane: false,
+        };
+        let count = |_: usize, _: usize, _: u64, s: &CellSums| s.n as f64;
+        let total = |_: usize, _: usize, _: u64, s: &CellSums| (s.s[0] + s.s2) as f64;
+        let place =
+            |i: usize, j: usize, c: u64, _: &CellSums| (i * 1000 + j) as f64 + c as f64 * 1e6;
+        for shape in [WindowShape::Disc, WindowShape::Square] {
+            let layout = Layout::new(shape, 2.5, sizes, halo, nr - 2 * halo);
+            let mut ws = WindowSums::new(&field, &layout, halo, nc - 2 * halo, opt);
+            for limbs in [true, false] {
+                ws.limbs = limbs;
+                let out = ws.map(&[&count, &total, &place]);
+                for ((i, j), &n) in out[0].indexed_iter() {
+                    let (c, want) = naive(&field, shape, 2.5, sizes, halo + i, halo + j);
+                    let at = format!("{shape:?} limbs={limbs} ({i}, {j})");
+                    assert_eq!(n, want.n as f64, "{at}");
+                    assert_eq!(out[1][[i, j]], (want.s[0] + want.s2) as f64, "{at}");
+                    assert_eq!(
+                        out[2][[i, j]],
+                        (i * 1000 + j) as f64 + c as f64 * 1e6,
+                        "{at}"
+                    );
                 }
             }
         }
