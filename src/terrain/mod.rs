@@ -211,6 +211,22 @@ impl TerrainFeature {
         }
     }
 
+    /// The pointwise function of the derivatives this feature is, if any.
+    fn pointwise(&self) -> Option<Pointwise> {
+        Some(match self {
+            TerrainFeature::Slope { .. } => Pointwise::Slope,
+            TerrainFeature::Aspect { .. } => Pointwise::Aspect,
+            TerrainFeature::Northness { .. } => Pointwise::Northness,
+            TerrainFeature::Eastness { .. } => Pointwise::Eastness,
+            TerrainFeature::ProfileCurvature { .. } => Pointwise::Profile,
+            TerrainFeature::PlanCurvature { .. } => Pointwise::Plan,
+            TerrainFeature::TangentialCurvature { .. } => Pointwise::Tangential,
+            TerrainFeature::MeanCurvature { .. } => Pointwise::Mean,
+            TerrainFeature::GaussianCurvature { .. } => Pointwise::Gaussian,
+            _ => return None,
+        })
+    }
+
     /// Window radius in metres of a window-statistics feature.
     fn window_radius(&self) -> Option<f64> {
         use TerrainFeature::*;
@@ -709,18 +725,7 @@ pub fn compute(
         } else {
             method
         };
-        let func = match f {
-            TerrainFeature::Slope { .. } => Pointwise::Slope,
-            TerrainFeature::Aspect { .. } => Pointwise::Aspect,
-            TerrainFeature::Northness { .. } => Pointwise::Northness,
-            TerrainFeature::Eastness { .. } => Pointwise::Eastness,
-            TerrainFeature::ProfileCurvature { .. } => Pointwise::Profile,
-            TerrainFeature::PlanCurvature { .. } => Pointwise::Plan,
-            TerrainFeature::TangentialCurvature { .. } => Pointwise::Tangential,
-            TerrainFeature::MeanCurvature { .. } => Pointwise::Mean,
-            _ => Pointwise::Gaussian,
-        };
-        Some((method, func))
+        Some((method, f.pointwise()?))
     };
     let mut outputs: Vec<Option<Array2<f32>>> = vec![None; features.len()];
 
@@ -928,20 +933,9 @@ pub fn compute(
                     method,
                     scale_bits: scale.unwrap_or(0.0).to_bits(),
                 };
-                let d = &derivs[&key];
+                let dv = &derivs[&key];
                 let mut o = Array2::<f32>::zeros((out_r, out_c));
-                let dv = d;
-                let pointwise = match f {
-                    TerrainFeature::Slope { .. } => Pointwise::Slope,
-                    TerrainFeature::Aspect { .. } => Pointwise::Aspect,
-                    TerrainFeature::Northness { .. } => Pointwise::Northness,
-                    TerrainFeature::Eastness { .. } => Pointwise::Eastness,
-                    TerrainFeature::ProfileCurvature { .. } => Pointwise::Profile,
-                    TerrainFeature::PlanCurvature { .. } => Pointwise::Plan,
-                    TerrainFeature::TangentialCurvature { .. } => Pointwise::Tangential,
-                    TerrainFeature::MeanCurvature { .. } => Pointwise::Mean,
-                    _ => Pointwise::Gaussian,
-                };
+                let pointwise = f.pointwise().expect("derivative feature");
                 Zip::from(&mut o)
                     .and(&dv.p)
                     .and(&dv.q)
