@@ -12,9 +12,9 @@
 //! - Discs (`disc_min`): a disc is a union of row segments of varying half-width (see
 //!   [`super::window_sums`] for the membership rule). The minimum over one segment comes
 //!   from a sparse table over its input row, the range-minimum structure of Bender &
-//!   Farach-Colton 2000 (LATIN, from memory): level k holds M_k[x] = min(a[x .. x + 2^k)),
-//!   built from level k − 1 as M_k[x] = min(M_(k−1)[x], M_(k−1)[x + 2^(k−1)]); the
-//!   minimum over [x − w, x + w] is min(M_k[x − w], M_k[x + w + 1 − 2^k]) with
+//!   Farach-Colton 2000 (LATIN, from memory): level k holds `M_k[x] = min(a[x .. x + 2^k))`,
+//!   built from level k − 1 as `M_k[x] = min(M_(k−1)[x], M_(k−1)[x + 2^(k−1)])`; the
+//!   minimum over `[x − w, x + w]` is `min(M_k[x − w], M_k[x + w + 1 − 2^k])` with
 //!   k = ⌊log2(2w + 1)⌋ (two overlapping spans covering the segment). Levels are built
 //!   one at a time in place, and each level serves the window rows whose widths use it, so
 //!   only one level of the table is held. Cost: O(log2 w) per input cell to build the
@@ -24,7 +24,7 @@
 //!   along the columns, each by van Herk 1992 (Pattern Recognit. Lett. 13) / Gil & Werman
 //!   1993 (IEEE Trans. PAMI 15), citations from memory: split the line into blocks of
 //!   L = 2w + 1 cells, take prefix minima g and suffix minima h inside each block; the
-//!   window starting at e spans at most two blocks, so its minimum is min(h[e], g[e + 2w]).
+//!   window starting at e spans at most two blocks, so its minimum is `min(h[e], g[e + 2w])`.
 //!   Three comparisons per cell whatever the radius: O(1) per cell.
 //!
 //! Memory, beyond the two outputs (8 bytes per output cell each): discs hold one table
