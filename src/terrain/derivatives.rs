@@ -141,6 +141,20 @@ fn pqrst_unchecked(
     }
 }
 
+/// The nine elevations around (row, col), row-major from the north-west; `None` when the
+/// window leaves `zs`.
+fn window_3x3(zs: &Array2<f64>, row: usize, col: usize) -> Option<[f64; 9]> {
+    let (nr, nc) = zs.dim();
+    if row == 0 || col == 0 || row + 1 >= nr || col + 1 >= nc {
+        return None;
+    }
+    let mut w = [0.0; 9];
+    for (k, v) in w.iter_mut().enumerate() {
+        *v = zs[[row + k / 3 - 1, col + k % 3 - 1]];
+    }
+    Some(w)
+}
+
 /// Derivatives for rows `rows` and columns `cols` of `zs` (elevations in metres, NaN =
 /// nodata); cells whose 3x3 window leaves `zs` are NaN.
 pub fn estimate_region(
@@ -150,7 +164,6 @@ pub fn estimate_region(
     cols: std::ops::Range<usize>,
     method: SlopeMethod,
 ) -> Derivatives {
-    let (nr, nc) = zs.dim();
     let dim = (rows.len(), cols.len());
     let mut d = Derivatives::nan(dim);
     let row0 = rows.start;
@@ -163,21 +176,9 @@ pub fn estimate_region(
             (0..dim.1)
                 .map(|j| {
                     let col = col0 + j;
-                    if row == 0 || col == 0 || row + 1 >= nr || col + 1 >= nc {
-                        return Pqrst::NAN;
-                    }
-                    let w = [
-                        zs[[row - 1, col - 1]],
-                        zs[[row - 1, col]],
-                        zs[[row - 1, col + 1]],
-                        zs[[row, col - 1]],
-                        zs[[row, col]],
-                        zs[[row, col + 1]],
-                        zs[[row + 1, col - 1]],
-                        zs[[row + 1, col]],
-                        zs[[row + 1, col + 1]],
-                    ];
-                    pqrst_3x3(&w, hx, hy, method).unwrap_or(Pqrst::NAN)
+                    window_3x3(zs, row, col)
+                        .and_then(|w| pqrst_3x3(&w, hx, hy, method))
+                        .unwrap_or(Pqrst::NAN)
                 })
                 .collect()
         })
@@ -213,7 +214,6 @@ pub fn horn_pq_region(
     rows: std::ops::Range<usize>,
     cols: std::ops::Range<usize>,
 ) -> (Array2<f64>, Array2<f64>) {
-    let (nr, nc) = zs.dim();
     let dim = (rows.len(), cols.len());
     let mut p = Array2::from_elem(dim, f64::NAN);
     let mut q = Array2::from_elem(dim, f64::NAN);
@@ -222,20 +222,9 @@ pub fn horn_pq_region(
         .par_for_each(|(i, j), pv, qv| {
             let row = rows.start + i;
             let col = cols.start + j;
-            if row == 0 || col == 0 || row + 1 >= nr || col + 1 >= nc {
+            let Some(w) = window_3x3(zs, row, col) else {
                 return;
-            }
-            let w = [
-                zs[[row - 1, col - 1]],
-                zs[[row - 1, col]],
-                zs[[row - 1, col + 1]],
-                zs[[row, col - 1]],
-                zs[[row, col]],
-                zs[[row, col + 1]],
-                zs[[row + 1, col - 1]],
-                zs[[row + 1, col]],
-                zs[[row + 1, col + 1]],
-            ];
+            };
             if let Some(d) = pqrst_3x3(&w, sizes.hx(row), sizes.hy(row), SlopeMethod::Horn) {
                 *pv = d.p;
                 *qv = d.q;
