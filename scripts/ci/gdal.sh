@@ -6,4 +6,4 @@ set -euo pipefail
 cd "$(dirname "$0")/../.."
 DIR="${XCHECK_ROOT:-$(mktemp -d)}/gdal"
 python3 scripts/xcheck_gdal.py gen "$DIR"
-TERRASTACK_XCHECK_DIR="$DIR" cargo test --release --features gdal --test gdal_backend -- --nocapture
+TERRASTACK_XCHECK_DIR="$DIR" cargo test --release --features gdal --test gdal_backend -- --ignored --nocapture
