@@ -16,6 +16,7 @@ use crate::grid::{Grid, RasterSpace, Window};
 #[cfg(feature = "gdal")]
 pub mod gdal;
 pub mod geotiff;
+pub mod orientation;
 
 /// The numeric type of a band's samples as stored in the file.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -74,7 +75,9 @@ pub struct BandInfo {
 pub trait RasterSource: Send + Sync {
     /// The file this raster was opened from.
     fn path(&self) -> &Path;
-    /// The raster's geometry (transform in the pixel-is-area convention).
+    /// The raster's geometry (transform in the pixel-is-area convention), always north-up
+    /// and west-to-east: a file stored otherwise is read through an exact index flip
+    /// ([`orientation`]).
     fn grid(&self) -> &Grid;
     /// Whether the file declared pixel-is-area or pixel-is-point.
     fn raster_space(&self) -> RasterSpace {

@@ -27,9 +27,10 @@ pub use crs::{complete_crs, crs_from_srs, crs_from_user, same_crs, transform_poi
 pub use vector::{read_vector, Geometry, VectorFeature};
 pub use warp::warp_window;
 
+use super::orientation::Orientation;
 use super::{check_band, BandInfo, RasterSource, SampleType};
 use crate::error::{Error, Result};
-use crate::grid::{Crs, Grid, RasterSpace, Window};
+use crate::grid::{Crs, CrsKind, Grid, RasterSpace, Window};
 
 /// A raster opened through GDAL, read window by window.
 ///
@@ -54,7 +55,10 @@ enum MaskSource {
 
 pub struct GdalSource {
     path: PathBuf,
+    /// The north-up grid (see [`crate::raster::orientation`]).
     grid: Grid,
+    /// How the file stores its rows and columns.
+    orientation: Orientation,
     space: RasterSpace,
     bands: Vec<BandInfo>,
     /// Per band: what marks cells without data besides the nodata value.
@@ -86,10 +90,24 @@ impl GdalSource {
             );
         }
         let (width, height) = ds.raster_size();
-        let transform = ds.geo_transform().unwrap_or([0.0, 1.0, 0.0, 0.0, 0.0, 1.0]);
         let crs = match ds.spatial_ref() {
             Ok(srs) => crs_from_srs(&srs).map_err(|e| e.in_file(path))?,
             Err(_) => Crs::none(),
+        };
+        let georeferenced = ds.geo_transform().is_ok();
+        let transform = match ds.geo_transform() {
+            Ok(t) => t,
+            Err(_) if crs.kind != CrsKind::Unknown || crs.epsg.is_some() => {
+                return Err(Error::file(
+                    path,
+                    format!(
+                        "it has a CRS ({}) but no geotransform, so where its cells lie and how large they are is not defined",
+                        crs.label()
+                    ),
+                )
+                .with_fix("export the raster again with its georeferencing, or set it with GDAL (`gdal_translate -a_ullr XMIN YMAX XMAX YMIN IN OUT.tif`)"));
+            }
+            Err(_) => [0.0, 1.0, 0.0, 0.0, 0.0, 1.0],
         };
         let mut bands = Vec::with_capacity(count);
         let mut masks = Vec::with_capacity(count);
@@ -132,9 +150,14 @@ impl GdalSource {
                 nodata: band.no_data_value(),
             });
         }
-        let grid = Grid::new(width, height, transform, crs)
-            .map_err(|e| e.in_file(path))?
-            .with_nodata(bands[0].nodata);
+        let stored = Grid::new(width, height, transform, crs).map_err(|e| e.in_file(path))?;
+        // Without a geotransform GDAL's default (rows downward) has no north to turn to.
+        let orientation = if georeferenced {
+            Orientation::of(&stored.transform)
+        } else {
+            Orientation::default()
+        };
+        let grid = orientation.normalise(stored).with_nodata(bands[0].nodata);
         let space = match ds.metadata_item("AREA_OR_POINT", "") {
             Some(v) if v.eq_ignore_ascii_case("point") => RasterSpace::Point,
             _ => RasterSpace::Area,
@@ -142,6 +165,7 @@ impl GdalSource {
         Ok(GdalSource {
             path: path.to_path_buf(),
             grid,
+            orientation,
             space,
             bands,
             masks,
@@ -186,6 +210,11 @@ impl RasterSource for GdalSource {
     fn read_window(&self, band: usize, window: Window) -> Result<Array2<f32>> {
         check_band(self, band)?;
         let mut out = Array2::from_elem((window.height, window.width), f32::NAN);
+        // The file's own cells of the window (see `raster::orientation`); `out` is filled
+        // in stored order and flipped to the north-up grid at the end.
+        let window = self
+            .orientation
+            .stored_window(window, self.grid.width, self.grid.height);
         let Some(inside) = window.intersect(&Window::full(&self.grid)) else {
             return Ok(out);
         };
@@ -252,6 +281,7 @@ impl RasterSource for GdalSource {
                 dst[c0 + j] = if is_nodata { f32::NAN } else { v as f32 };
             }
         }
+        self.orientation.reorient(&mut out);
         Ok(out)
     }
 }

@@ -172,27 +172,143 @@ impl GeoKeys {
                 crs.vertical_epsg = Some(v as u32);
             }
         }
+        if crs.epsg.is_none() && crs.kind != CrsKind::Unknown {
+            crs.definition = Some(self.definition(crs.kind)).filter(|d| !d.is_empty());
+        }
         crs
     }
 
-    /// Metres per projected unit from ProjLinearUnitsGeoKey (EPSG 9001 metre, 9002 foot,
-    /// 9003 US survey foot, 9036 kilometre) or ProjLinearUnitSizeGeoKey for user units.
+    /// The keys defining a user-defined CRS of `kind` beyond those [`build`] writes from
+    /// the [`Crs`] itself, one per line: `ID s VALUE`, `ID d V1,V2,…` or `ID a TEXT`.
+    fn definition(&self, kind: CrsKind) -> String {
+        let mut lines = Vec::new();
+        for (id, v) in &self.keys {
+            if written_from_crs(*id, kind) {
+                continue;
+            }
+            lines.push(match v {
+                KeyValue::Short(x) => format!("{id} s {x}"),
+                KeyValue::Doubles(d) => {
+                    let d: Vec<String> = d.iter().map(|x| format!("{x:?}")).collect();
+                    format!("{id} d {}", d.join(","))
+                }
+                KeyValue::Ascii(t) => format!("{id} a {}", t.replace(['\n', '\r'], " ")),
+            });
+        }
+        lines.sort();
+        lines.join("\n")
+    }
+
+    /// Metres per projected unit from ProjLinearUnitsGeoKey or ProjLinearUnitSizeGeoKey
+    /// for user units. EPSG unit codes and sizes (EPSG registry, exact by definition):
+    /// 9001 metre, 9002 international foot 0.3048 m, 9003 US survey foot 1200/3937 m,
+    /// 9030 international nautical mile 1852 m, 9036 kilometre, 9093 statute mile
+    /// 1609.344 m, 9096 yard 0.9144 m, 9097 chain 20.1168 m, 9098 link 0.201168 m.
     fn linear_unit_m(&self) -> Option<f64> {
         match self.short(PROJ_LINEAR_UNITS)? {
             9001 => Some(1.0),
             9002 => Some(FOOT_M),
             9003 => Some(US_SURVEY_FOOT_M),
+            9030 => Some(1852.0),
             9036 => Some(1000.0),
+            9093 => Some(1609.344),
+            9096 => Some(0.9144),
+            9097 => Some(20.1168),
+            9098 => Some(0.201168),
             USER_DEFINED => self.double(PROJ_LINEAR_UNIT_SIZE),
             _ => None,
         }
     }
+
+    /// Why the keys' units make cell sizes in metres impossible, if they do: a
+    /// user-defined unit size that is not a positive finite length, a user-defined unit
+    /// without its size, a unit code terrastack does not know on a CRS without an EPSG
+    /// code (an EPSG-coded CRS is completed from its code), or a geographic CRS whose
+    /// angles are not degrees (EPSG 9102; 9122 is the same degree).
+    pub fn unit_problem(&self) -> Option<String> {
+        let crs = self.crs();
+        if crs.kind == CrsKind::Projected {
+            match self.short(PROJ_LINEAR_UNITS) {
+                Some(USER_DEFINED) => match self.double(PROJ_LINEAR_UNIT_SIZE) {
+                    Some(u) if u.is_finite() && u > 0.0 => {}
+                    Some(u) => {
+                        return Some(format!(
+                            "its CRS's user-defined linear unit is {u} m long (ProjLinearUnitSizeGeoKey), which is not a length: a unit must be a positive number of metres"
+                        ))
+                    }
+                    None => {
+                        return Some(
+                            "its CRS has a user-defined linear unit but no ProjLinearUnitSizeGeoKey giving its length in metres".into(),
+                        )
+                    }
+                },
+                Some(code) if crs.epsg.is_none() && self.linear_unit_m().is_none() => {
+                    return Some(format!(
+                        "its user-defined projected CRS is in linear unit EPSG:{code}, which terrastack does not know (it knows metres, kilometres, international and US survey feet, yards, chains, links, statute and nautical miles)"
+                    ))
+                }
+                None if crs.epsg.is_none() => {
+                    return Some(
+                        "its user-defined projected CRS states no linear unit (ProjLinearUnitsGeoKey), so its cell size in metres is unknown".into(),
+                    )
+                }
+                _ => {}
+            }
+        }
+        if crs.kind == CrsKind::Geographic {
+            if let Some(code) = self.short(GEOG_ANGULAR_UNITS) {
+                if code != 9102 && code != 9122 {
+                    return Some(format!(
+                        "its geographic CRS measures angles in unit code {code}, not in degrees (EPSG 9102)"
+                    ));
+                }
+            }
+        }
+        None
+    }
 }
 
-/// Key directory, double params and ASCII params describing `crs` and `space`.
+/// True for the keys [`build`] writes from a [`Crs`] of `kind` (so a definition leaves
+/// them out).
+fn written_from_crs(id: u16, kind: CrsKind) -> bool {
+    match id {
+        GT_MODEL_TYPE | GT_RASTER_TYPE | GT_CITATION | VERTICAL_CS_TYPE => true,
+        PROJECTED_CS_TYPE | PROJ_LINEAR_UNITS | PROJ_LINEAR_UNIT_SIZE => kind == CrsKind::Projected,
+        GEOGRAPHIC_TYPE | GEOG_ANGULAR_UNITS => kind == CrsKind::Geographic,
+        _ => false,
+    }
+}
+
+/// The keys of a [`Crs::definition`] text; lines that do not parse are skipped.
+fn parse_definition(text: &str) -> Vec<(u16, KeyValue)> {
+    text.lines()
+        .filter_map(|line| {
+            let mut parts = line.splitn(3, ' ');
+            let id: u16 = parts.next()?.parse().ok()?;
+            let kind = parts.next()?;
+            let value = parts.next().unwrap_or("");
+            let v = match kind {
+                "s" => KeyValue::Short(value.parse().ok()?),
+                "d" => KeyValue::Doubles(
+                    value
+                        .split(',')
+                        .map(|x| x.parse::<f64>())
+                        .collect::<Result<_, _>>()
+                        .ok()?,
+                ),
+                "a" => KeyValue::Ascii(value.to_string()),
+                _ => return None,
+            };
+            Some((id, v))
+        })
+        .collect()
+}
+
+/// Key directory, double params and ASCII params describing `crs` and `space` (with the
+/// defining keys of a user-defined CRS, [`Crs::definition`]).
 pub fn build(crs: &Crs, space: RasterSpace) -> (Vec<u16>, Vec<f64>, String) {
     let mut shorts: Vec<(u16, u16)> = Vec::new();
-    let mut doubles_keys: Vec<(u16, f64)> = Vec::new();
+    let mut doubles_keys: Vec<(u16, Vec<f64>)> = Vec::new();
     let mut ascii_keys: Vec<(u16, String)> = Vec::new();
     match crs.kind {
         CrsKind::Projected => shorts.push((GT_MODEL_TYPE, 1)),
@@ -225,7 +341,7 @@ pub fn build(crs: &Crs, space: RasterSpace) -> (Vec<u16>, Vec<f64>, String) {
                 } else if u == US_SURVEY_FOOT_M {
                     9003
                 } else {
-                    doubles_keys.push((PROJ_LINEAR_UNIT_SIZE, u));
+                    doubles_keys.push((PROJ_LINEAR_UNIT_SIZE, vec![u]));
                     USER_DEFINED
                 };
                 shorts.push((PROJ_LINEAR_UNITS, unit));
@@ -246,14 +362,27 @@ pub fn build(crs: &Crs, space: RasterSpace) -> (Vec<u16>, Vec<f64>, String) {
         shorts.push((VERTICAL_CS_TYPE, v as u16));
     }
 
+    if let Some(def) = &crs.definition {
+        for (id, v) in parse_definition(def) {
+            if written_from_crs(id, crs.kind) {
+                continue;
+            }
+            match v {
+                KeyValue::Short(x) => shorts.push((id, x)),
+                KeyValue::Doubles(d) => doubles_keys.push((id, d)),
+                KeyValue::Ascii(t) => ascii_keys.push((id, t)),
+            }
+        }
+    }
+
     let mut entries: Vec<[u16; 4]> = Vec::new();
     for (id, v) in shorts {
         entries.push([id, 0, 1, v]);
     }
     let mut doubles = Vec::new();
     for (id, v) in doubles_keys {
-        entries.push([id, 34736, 1, doubles.len() as u16]);
-        doubles.push(v);
+        entries.push([id, 34736, v.len() as u16, doubles.len() as u16]);
+        doubles.extend(v);
     }
     let mut ascii = String::new();
     for (id, s) in ascii_keys {
@@ -324,6 +453,110 @@ mod tests {
         assert_eq!(back.epsg, None);
         assert_eq!(back.linear_unit_m, Some(0.201168));
         assert_eq!(back.name.as_deref(), Some("local grid"));
+    }
+
+    /// The key directory of a user-defined transverse Mercator CRS on WGS84 (OGC GeoTIFF
+    /// 1.1 §7.4 key codes: 3074 ProjectionGeoKey, 3075 ProjCoordTransGeoKey = 1
+    /// transverse Mercator, 3080 natural origin longitude, 3082 false easting, 3092 scale
+    /// at natural origin), in `unit` (ProjLinearUnitsGeoKey), central meridian `lon0`.
+    fn user_tm_keys(unit: u16, lon0: f64) -> GeoKeys {
+        let dir: Vec<u64> = vec![
+            1,
+            1,
+            0,
+            8, //
+            1024,
+            0,
+            1,
+            1, // projected
+            1026,
+            34737,
+            9,
+            0, // citation
+            2048,
+            0,
+            1,
+            4326, // WGS 84 base
+            3072,
+            0,
+            1,
+            32767, // user-defined projected CRS
+            3074,
+            0,
+            1,
+            32767, // user-defined projection
+            3075,
+            0,
+            1,
+            1, // transverse Mercator
+            3076,
+            0,
+            1,
+            unit as u64, //
+            3080,
+            34736,
+            3,
+            0, // lon0, false easting, scale (one block of doubles)
+        ];
+        let doubles = [lon0, 500_000.0, 0.9996];
+        GeoKeys::parse(&dir, &doubles, "site grid|").unwrap()
+    }
+
+    #[test]
+    fn user_defined_crs_in_metres_and_feet_builds_and_round_trips() {
+        // A user-defined CRS has no EPSG code: it equals itself (so a DSM in it can be
+        // built on its own grid), not one with another parameter, and writing it back
+        // keeps its definition.
+        for (unit, metres) in [(9001u16, 1.0), (9002, FOOT_M), (9003, US_SURVEY_FOOT_M)] {
+            let keys = user_tm_keys(unit, 9.0);
+            assert_eq!(keys.unit_problem(), None);
+            let crs = keys.crs();
+            assert_eq!((crs.kind, crs.epsg), (CrsKind::Projected, None));
+            assert_eq!(crs.linear_unit_m, Some(metres));
+            assert!(crs.same_as_without_gdal(&crs.clone()));
+            let other = user_tm_keys(unit, 15.0).crs();
+            assert!(!crs.same_as_without_gdal(&other));
+            let back = round(&crs, RasterSpace::Area).crs();
+            assert_eq!(back, crs);
+            assert!(back
+                .definition
+                .as_deref()
+                .unwrap()
+                .contains("3080 d 9.0,500000.0,0.9996"));
+        }
+    }
+
+    #[test]
+    fn invalid_unit_sizes_have_their_own_message() {
+        for size in [0.0, -0.3048, f64::NAN] {
+            let dir: Vec<u64> = vec![
+                1, 1, 0, 4, 1024, 0, 1, 1, 3072, 0, 1, 32767, 3076, 0, 1, 32767, 3077, 34736, 1, 0,
+            ];
+            let keys = GeoKeys::parse(&dir, &[size], "").unwrap();
+            let p = keys.unit_problem().unwrap();
+            assert!(
+                p.contains("not a length") && p.contains("ProjLinearUnitSizeGeoKey"),
+                "{p}"
+            );
+        }
+        // A user-defined CRS with no unit, and one in a unit code terrastack does not know.
+        let dir: Vec<u64> = vec![1, 1, 0, 2, 1024, 0, 1, 1, 3072, 0, 1, 32767];
+        let p = GeoKeys::parse(&dir, &[], "")
+            .unwrap()
+            .unit_problem()
+            .unwrap();
+        assert!(p.contains("states no linear unit"), "{p}");
+        let p = user_tm_keys(9005, 9.0).unit_problem().unwrap();
+        assert!(p.contains("EPSG:9005"), "{p}");
+        // Geographic in grads (EPSG 9105) is refused; degrees are fine.
+        let dir: Vec<u64> = vec![
+            1, 1, 0, 3, 1024, 0, 1, 2, 2048, 0, 1, 4326, 2054, 0, 1, 9105,
+        ];
+        let p = GeoKeys::parse(&dir, &[], "")
+            .unwrap()
+            .unit_problem()
+            .unwrap();
+        assert!(p.contains("not in degrees"), "{p}");
     }
 
     #[test]

@@ -18,6 +18,7 @@ use crate::raster::SampleType;
 pub mod codec;
 pub mod geokeys;
 mod metadata;
+pub mod model_transform;
 mod reader;
 pub mod tags;
 mod writer;

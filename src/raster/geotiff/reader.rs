@@ -16,11 +16,13 @@ use ndarray::Array2;
 use rayon::prelude::*;
 
 use crate::error::{Error, Result};
-use crate::grid::{Crs, Grid, RasterSpace, Window, MAX_DIMENSION};
+use crate::grid::{Crs, CrsKind, Grid, RasterSpace, Window, MAX_DIMENSION};
+use crate::raster::orientation::Orientation;
 use crate::raster::{check_band, BandInfo, RasterSource, SampleType};
 
 use super::codec::{self, ChunkShape, Codec};
 use super::geokeys::GeoKeys;
+use super::model_transform;
 use super::tags::{self, ByteOrder, Ifd};
 use super::{
     metadata, Compression, Interleave, Layout, MetadataItem, TiffSample, CACHE_BYTES,
@@ -91,7 +93,10 @@ pub struct GeoTiffReader {
     path: PathBuf,
     file: File,
     file_len: u64,
+    /// The north-up grid (see [`crate::raster::orientation`]).
     grid: Grid,
+    /// How the file stores its rows and columns.
+    orientation: Orientation,
     space: RasterSpace,
     georeferenced: bool,
     bands: Vec<BandInfo>,
@@ -369,24 +374,19 @@ impl GeoTiffReader {
         let scale = ifd.doubles(tags::MODEL_PIXEL_SCALE).map_err(bad)?;
         let tiepoints = ifd.doubles(tags::MODEL_TIEPOINT).map_err(bad)?;
         let matrix = ifd.doubles(tags::MODEL_TRANSFORMATION).map_err(bad)?;
-        let no_gcps = || {
-            Error::file(
-                path,
-                "it is georeferenced by ground control points, not by a transform",
-            )
-            .with_fix("warp it to a north-up grid first, e.g. `gdalwarp IN OUT.tif`")
-        };
-        let mut transform = match (&matrix, &tiepoints, &scale) {
-            (Some(m), _, _) if m.len() >= 16 => Some([m[3], m[0], m[1], m[7], m[4], m[5]]),
-            (_, Some(tp), Some(s)) if tp.len() == 6 && s.len() >= 2 => {
-                // GDAL's arithmetic (GTiff driver): origin = tiepoint − I·scale.
-                let t1 = s[0];
-                let t5 = -s[1];
-                Some([tp[3] - tp[0] * t1, t1, 0.0, tp[4] - tp[1] * t5, 0.0, t5])
-            }
-            (_, Some(tp), _) if tp.len() >= 6 => return Err(no_gcps()),
-            _ => None,
-        };
+        let has_crs = crs.kind != CrsKind::Unknown || crs.epsg.is_some();
+        let mut transform = model_transform::from_tags(
+            matrix.as_deref(),
+            tiepoints.as_deref(),
+            scale.as_deref(),
+            has_crs,
+        )
+        .map_err(|p| Error::file(path, p.problem).with_fix(p.fix))?;
+        if let Some(problem) = geokeys.as_ref().and_then(|k| k.unit_problem()) {
+            return Err(Error::file(path, problem).with_fix(
+                "correct the CRS's unit (ProjLinearUnitSizeGeoKey) or assign the CRS by its EPSG code, e.g. `gdal_edit -a_srs EPSG:XXXX FILE`",
+            ));
+        }
         let georeferenced = transform.is_some();
         if let (Some(t), RasterSpace::Point) = (transform.as_mut(), space) {
             // Pixel-is-point: the tiepoint is a cell centre (OGC GeoTIFF 1.1 §B.2);
@@ -396,9 +396,15 @@ impl GeoTiffReader {
         }
         let transform = transform.unwrap_or([0.0, 1.0, 0.0, 0.0, 0.0, 1.0]);
         let nodata = ifd.ascii(tags::GDAL_NODATA).and_then(|t| parse_nodata(&t));
-        let grid = Grid::new(width, height, transform, crs)
-            .map_err(|e| e.in_file(path))?
-            .with_nodata(nodata);
+        let stored = Grid::new(width, height, transform, crs).map_err(|e| e.in_file(path))?;
+        // A plain TIFF keeps GDAL's default transform (rows downward, y = row): it has no
+        // north to turn to.
+        let orientation = if georeferenced {
+            Orientation::of(&stored.transform)
+        } else {
+            Orientation::default()
+        };
+        let grid = orientation.normalise(stored).with_nodata(nodata);
 
         let metadata = ifd
             .ascii(tags::GDAL_METADATA)
@@ -420,6 +426,7 @@ impl GeoTiffReader {
             file,
             file_len,
             grid,
+            orientation,
             space,
             georeferenced,
             bands,
@@ -451,6 +458,12 @@ impl GeoTiffReader {
     /// ModelTransformation); false for a plain TIFF, whose grid is then `[0, 1, 0, 0, 0, 1]`.
     pub fn is_georeferenced(&self) -> bool {
         self.georeferenced
+    }
+
+    /// How the file stores its rows and columns; [`RasterSource::grid`] is always the
+    /// north-up, west-to-east grid and reads are flipped to it.
+    pub fn orientation(&self) -> Orientation {
+        self.orientation
     }
 
     /// The stored sample type (all bands share it).
@@ -586,9 +599,27 @@ impl GeoTiffReader {
         )
     }
 
-    /// Copy the part of `window` inside the raster from band `band` into `out` (shaped
-    /// like the window), converting each sample with `conv`.
+    /// Copy the part of `window` (cells of the north-up grid) inside the raster from band
+    /// `band` into `out` (shaped like the window), converting each sample with `conv`.
+    /// Every read goes through here: the window is mapped to the file's stored cells and
+    /// the result flipped back to the north-up grid ([`Orientation`]).
     fn copy_window<T: TiffSample, O>(
+        &self,
+        band: usize,
+        window: Window,
+        out: &mut Array2<O>,
+        conv: impl Fn(T) -> O,
+    ) -> Result<()> {
+        let window = self
+            .orientation
+            .stored_window(window, self.grid.width, self.grid.height);
+        self.copy_stored_window(band, window, out, conv)?;
+        self.orientation.reorient(out);
+        Ok(())
+    }
+
+    /// [`GeoTiffReader::copy_window`] in the file's stored cell order.
+    fn copy_stored_window<T: TiffSample, O>(
         &self,
         band: usize,
         window: Window,
@@ -676,7 +707,8 @@ impl GeoTiffReader {
 
     /// Band `band` (1-based) over `window` exactly as stored, for bit-exact round trips.
     /// `T` must be the file's sample type and the window must lie inside the raster;
-    /// nodata values are returned as stored.
+    /// nodata values are returned as stored. Cells are in the north-up grid's order,
+    /// like every read.
     pub fn read_window_as<T: TiffSample>(&self, band: usize, window: Window) -> Result<Array2<T>> {
         check_band(self, band)?;
         if T::TYPE != self.sample_type {
