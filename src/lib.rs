@@ -5,6 +5,9 @@
 //! Data flows one way: sources → target grid → block plan → kernels → stack writer.
 //!
 //! - [`error`]: the one error type; every error names its file, problem and fix.
+//! - [`atomic_file`]: the one atomic write (temporary name, then rename) and stale-partial cleanup.
+//! - [`output_lock`]: exclusive locks on output folders and files.
+//! - [`input_guard`]: outputs never overwrite inputs (canonical path and file identity).
 //! - [`grid`]: size, transform, CRS, nodata; cell sizes in metres; windows.
 //! - [`raster`]: windowed readers and the GeoTIFF writer (pure Rust; GDAL with `gdal`).
 //! - [`terrain`]: terrain derivatives, one module per family, each citing its method.
@@ -18,10 +21,13 @@
 //! - [`demo_site`]: the generator of the invented demo site in `sample-dsm/`.
 
 pub mod align;
+pub mod atomic_file;
 pub mod batch;
 pub mod demo_site;
 pub mod error;
 pub mod grid;
+pub mod input_guard;
+pub mod output_lock;
 pub mod random;
 pub mod raster;
 pub mod sample;

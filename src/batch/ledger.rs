@@ -105,24 +105,10 @@ impl LedgerRecord {
 }
 
 /// Write `bytes` to `path` through a temporary sibling and a rename, so readers see the
-/// old file or the whole new one, never a part.
+/// old file or the whole new one, never a part (the project's one atomic write,
+/// [`crate::atomic_file::write_bytes`]).
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
-    use std::io::Write;
-    let name = path
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_default();
-    let tmp = path.with_file_name(format!(".{name}.partial-{}", std::process::id()));
-    let result = (|| {
-        let mut f = std::fs::File::create(&tmp)?;
-        f.write_all(bytes)?;
-        f.sync_all()?;
-        std::fs::rename(&tmp, path)
-    })();
-    result.map_err(|e| {
-        let _ = std::fs::remove_file(&tmp);
-        Error::io(path, e)
-    })
+    crate::atomic_file::write_bytes(path, bytes)
 }
 
 /// Hex SHA-256 of `bytes`.

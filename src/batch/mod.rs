@@ -33,15 +33,21 @@ use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Mutex;
 use std::time::Instant;
 
+use crate::atomic_file;
 use crate::error::{Error, Result};
 use crate::grid::Grid;
+use crate::input_guard;
+use crate::output_lock::OutputLock;
 use crate::raster;
 use crate::stack::{self, BuildOptions, Progress, Recipe};
 
 use ledger::{sha256_file, sha256_hex, InputHash, LedgerRecord, ShiftRecord, LEDGER_FORMAT};
 pub use manifest::Manifest;
 use manifest::{Flight, ShiftLayer};
-use report::{BatchReport, FlightReport, ShiftReport, Status, TemporalReport, REPORT_FORMAT};
+use report::{
+    BatchReport, FlightReport, ReferenceReplaced, ShiftReport, Status, TemporalReport,
+    REPORT_FORMAT,
+};
 pub use shard::Shard;
 use temporal::DatedStack;
 
@@ -167,9 +173,12 @@ impl FlightWork for StackWork {
 }
 
 /// Run the batch: the shard's flights, then (unsharded runs) the multi-temporal stack.
-/// Writes the report and returns it; failed flights are in the report, not an error.
-/// Errors are problems that stop the whole batch (unreadable manifest inputs for the
-/// common grid, an unwritable output root).
+/// Writes the report and returns it; failed flights are in the report, not an error. A
+/// flight whose DSM cannot be read fails alone; when it is the reference flight, another
+/// reference is chosen (`reference_replaced` in the report).
+/// Errors are problems that stop the whole batch: an output that is an input, an output
+/// root another run holds or that cannot be written (no report then), and no common grid
+/// (the report is written first, every flight failed with the reason).
 pub fn run(
     manifest: &Manifest,
     options: &BatchOptions,
@@ -179,26 +188,101 @@ pub fn run(
         return Err(Error::usage("--jobs must be at least 1"));
     }
     let root = options.out.clone().unwrap_or_else(|| manifest.out.clone());
+    input_guard::refuse_output_over_input(&output_paths(manifest, &root), &batch_inputs(manifest))
+        .map_err(|e| e.in_file(&manifest.path))?;
     std::fs::create_dir_all(root.join(FLIGHTS_DIR)).map_err(|e| Error::io(&root, e))?;
-    let reference = manifest.reference_flight();
+    // One batch at a time per output root; temporary files of killed runs go under the lock.
+    let _lock = OutputLock::folder(&root)?;
+    atomic_file::remove_stale_partials(&root, None);
+    atomic_file::remove_stale_partials(&root.join(ledger::LEDGER_DIR), None);
 
     // The common grid depends on every flight, not only this shard's, so that all shards
-    // agree on it.
-    // A flight whose DSM cannot be read fails alone and is left out of the intersection;
-    // the reference flight's DSM must be readable.
-    let ref_grid = work.grid_of(&reference.recipe.dsm)?;
+    // agree on it. A flight whose DSM cannot be read fails alone and is left out of the
+    // intersection. When that is the reference flight, the earliest readable flight
+    // becomes the reference (stated in the report); the choice depends only on the files,
+    // so every shard makes the same one.
     let mut grids = Vec::with_capacity(manifest.flights.len());
     let mut unreadable: HashMap<String, String> = HashMap::new();
     for f in &manifest.flights {
         match work.grid_of(&f.recipe.dsm) {
-            Ok(g) => grids.push((f.recipe.dsm.clone(), g)),
+            Ok(g) => grids.push((f.id.clone(), f.recipe.dsm.clone(), g)),
             Err(e) => {
                 unreadable.insert(f.id.clone(), e.to_string());
             }
         }
     }
-    let grid = manifest::common_grid(&manifest.grid, &ref_grid, &grids)
-        .map_err(|e| e.in_file(&manifest.path))?;
+    let requested = manifest.reference_flight();
+    let reference = if unreadable.contains_key(&requested.id) {
+        manifest
+            .flights
+            .iter()
+            .filter(|f| !unreadable.contains_key(&f.id))
+            .min_by(|a, b| a.date.cmp(&b.date).then(a.id.cmp(&b.id)))
+    } else {
+        Some(requested)
+    };
+    let reference_replaced = unreadable.get(&requested.id).map(|e| ReferenceReplaced {
+        requested: requested.id.clone(),
+        reason: format!("its DSM cannot be read: {e}"),
+    });
+    let grid = match reference {
+        None => Err(Error::file(
+            &manifest.path,
+            "no flight's DSM can be read, so there is no reference flight and no common grid",
+        )
+        .with_fix("correct the flights' dsm paths (each flight's error is in the report)")),
+        Some(r) => {
+            let ref_grid = &grids
+                .iter()
+                .find(|(id, _, _)| *id == r.id)
+                .expect("the reference is readable")
+                .2;
+            let dsm_grids: Vec<(PathBuf, Grid)> = grids
+                .iter()
+                .map(|(_, p, g)| (p.clone(), g.clone()))
+                .collect();
+            manifest::common_grid(&manifest.grid, ref_grid, &dsm_grids)
+                .map_err(|e| e.in_file(&manifest.path))
+        }
+    };
+    let report_of = |flights: Vec<FlightReport>, temporal: Option<TemporalReport>| BatchReport {
+        format: REPORT_FORMAT.into(),
+        manifest: manifest.path.clone(),
+        out: root.clone(),
+        shard: options.shard.to_string(),
+        reference: reference.unwrap_or(requested).id.clone(),
+        reference_replaced: reference_replaced.clone(),
+        flights,
+        temporal,
+    };
+    let (grid, reference) = match grid {
+        Ok(g) => (g, reference.expect("a grid needs a reference")),
+        Err(e) => {
+            // Nothing can be built without a common grid: every flight of the shard fails
+            // with the reason, and the report says so before the error is returned.
+            let flights = options
+                .shard
+                .select(manifest.flights.iter().map(|f| f.id.as_str()))
+                .iter()
+                .filter_map(|id| manifest.flights.iter().find(|f| f.id == *id))
+                .map(|f| FlightReport {
+                    id: f.id.clone(),
+                    date: f.date.clone(),
+                    status: Status::Failed,
+                    seconds: 0.0,
+                    bands: None,
+                    dir: root.join(FLIGHTS_DIR).join(&f.id),
+                    shift: None,
+                    shift_error: None,
+                    error: Some(unreadable.get(&f.id).cloned().unwrap_or_else(|| {
+                        format!("not built: the common grid could not be made: {e}")
+                    })),
+                })
+                .collect();
+            report_of(flights, None).store(&root, options.shard)?;
+            return Err(e);
+        }
+    };
 
     let selected = options
         .shard
@@ -221,6 +305,7 @@ pub fn run(
     });
     let ctx = Context {
         manifest,
+        reference,
         root: &root,
         grid: &grid,
         options,
@@ -286,21 +371,16 @@ pub fn run(
     } else {
         None
     };
-    let report = BatchReport {
-        format: REPORT_FORMAT.into(),
-        manifest: manifest.path.clone(),
-        out: root.clone(),
-        shard: options.shard.to_string(),
-        reference: manifest.reference.clone(),
-        flights: reports,
-        temporal,
-    };
+    let report = report_of(reports, temporal);
     report.store(&root, options.shard)?;
     Ok(report)
 }
 
 struct Context<'a> {
     manifest: &'a Manifest,
+    /// The reference flight in use (the manifest's, or the one chosen when its DSM is
+    /// unreadable).
+    reference: &'a Flight,
     root: &'a Path,
     grid: &'a Grid,
     options: &'a BatchOptions,
@@ -359,7 +439,7 @@ impl Context<'_> {
     }
 
     fn flight_inner(&self, flight: &Flight, rep: &mut FlightReport) -> Result<()> {
-        let reference = self.manifest.reference_flight();
+        let reference = self.reference;
         let is_reference = flight.id == reference.id;
         let mut inputs = Vec::new();
         for (role, path) in flight.inputs() {
@@ -401,7 +481,12 @@ impl Context<'_> {
                     rep.shift_error = Some(e.to_string());
                     None
                 }
-                Err(e) => return Err(e),
+                Err(e) => {
+                    return Err(Error::usage(format!(
+                        "the shift against the reference flight {:?} could not be estimated: {e}",
+                        reference.id
+                    )))
+                }
             }
         };
         let applied = self.options.align_shifts && shift.is_some();
@@ -446,7 +531,7 @@ impl Context<'_> {
             }
         }
         LedgerRecord::forget(self.root, &flight.id)?;
-        remove_partials(&dir);
+        atomic_file::remove_stale_partials(&dir, None);
         let bands = self.work.build(BuildRequest {
             recipe: flight.recipe.clone(),
             out: dir.clone(),
@@ -516,7 +601,7 @@ impl Context<'_> {
                 }
             }
             let _ = std::fs::remove_file(&ledger_path);
-            remove_partials(&dir);
+            atomic_file::remove_stale_partials(&dir, None);
             let pool = rayon::ThreadPoolBuilder::new()
                 .num_threads(self.total_threads)
                 .build()
@@ -549,16 +634,40 @@ impl Context<'_> {
     }
 }
 
-/// Remove temporary files an interrupted writer left in `dir` (`.NAME.partial-PID`).
-fn remove_partials(dir: &Path) {
-    if let Ok(entries) = std::fs::read_dir(dir) {
-        for e in entries.flatten() {
-            let name = e.file_name().to_string_lossy().into_owned();
-            if name.starts_with('.') && name.contains(".partial-") {
-                let _ = std::fs::remove_file(e.path());
-            }
-        }
+/// Every path a batch into `root` writes or replaces: each flight's stack folder and
+/// ledger record, the multi-temporal stack and its record, the reports, the root's lock.
+fn output_paths(manifest: &Manifest, root: &Path) -> Vec<PathBuf> {
+    let mut v = Vec::new();
+    for f in &manifest.flights {
+        v.extend(stack::output::output_paths(
+            &root.join(FLIGHTS_DIR).join(&f.id),
+        ));
+        v.push(LedgerRecord::path(root, &f.id));
     }
+    v.extend(stack::output::output_paths(&root.join(TEMPORAL_DIR)));
+    v.push(root.join(TEMPORAL_LEDGER));
+    v.push(OutputLock::folder_lock_path(root));
+    if let Ok(entries) = std::fs::read_dir(root) {
+        v.extend(entries.flatten().map(|e| e.path()).filter(|p| {
+            p.file_name()
+                .is_some_and(|n| n.to_string_lossy().starts_with("batch-report"))
+        }));
+    }
+    v.push(root.join(BatchReport::file_name(Shard::ALL)));
+    v
+}
+
+/// Every input of a batch: the manifest and each flight's files (named by flight).
+fn batch_inputs(manifest: &Manifest) -> Vec<(String, PathBuf)> {
+    let mut v = vec![("manifest".to_string(), manifest.path.clone())];
+    for f in &manifest.flights {
+        v.extend(
+            f.inputs()
+                .into_iter()
+                .map(|(role, p)| (format!("flight {:?} {role}", f.id), p)),
+        );
+    }
+    v
 }
 
 #[cfg(test)]
@@ -755,11 +864,13 @@ mod tests {
     }
 
     #[test]
+    #[cfg(target_os = "linux")]
     fn stale_partials_are_cleared_before_a_rebuild() {
         let (_tmp, m) = site(&["a"]);
         let dir = m.out.join("flights/a");
         std::fs::create_dir_all(&dir).unwrap();
-        std::fs::write(dir.join(".stack.tif.partial-999999"), "half").unwrap();
+        // PID 4194304 is above Linux's pid_max limit (from memory): its writer is gone.
+        std::fs::write(dir.join(".stack.tif.partial-4194304"), "half").unwrap();
         run(&m, &quiet(), &FakeWork::new()).unwrap();
         let mut names: Vec<String> = std::fs::read_dir(&dir)
             .unwrap()

@@ -82,6 +82,15 @@ pub struct TemporalReport {
     pub error: Option<String>,
 }
 
+/// The manifest's reference flight, when it could not be used.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct ReferenceReplaced {
+    /// The reference the manifest asked for (or the earliest flight, when it names none).
+    pub requested: String,
+    /// Why it could not be used.
+    pub reason: String,
+}
+
 /// `batch-report.json`.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct BatchReport {
@@ -90,7 +99,12 @@ pub struct BatchReport {
     pub out: PathBuf,
     /// `I/N`; "0/1" for an unsharded run.
     pub shard: String,
+    /// The reference flight used for the common grid's lattice and the shifts.
     pub reference: String,
+    /// Set when the manifest's reference could not be used and `reference` is another
+    /// flight (the earliest readable one); null otherwise.
+    #[serde(default)]
+    pub reference_replaced: Option<ReferenceReplaced>,
     pub flights: Vec<FlightReport>,
     /// Null when not made in this run (sharded runs, `temporal = false`, or a failed flight).
     pub temporal: Option<TemporalReport>,
@@ -192,6 +206,15 @@ impl BatchReport {
         if let Some(e) = self.temporal.as_ref().and_then(|t| t.error.as_ref()) {
             let _ = writeln!(s, "\ntemporal stack failed: {e}");
         }
+        if let Some(r) = &self.reference_replaced {
+            let _ = writeln!(
+                s,
+                "\nreference flight: {} in place of {} ({})",
+                self.reference,
+                r.requested,
+                r.reason.lines().next().unwrap_or("")
+            );
+        }
         s
     }
 }
@@ -207,6 +230,7 @@ mod tests {
             out: "site/out".into(),
             shard: "0/1".into(),
             reference: "may".into(),
+            reference_replaced: None,
             flights: vec![
                 FlightReport {
                     id: "may".into(),

@@ -72,7 +72,8 @@ pub struct Args {
     /// Output folder (receives stack.tif, stack.json, preview.png).
     #[arg(long, value_name = "DIR")]
     pub out: PathBuf,
-    /// Replace an existing stack in the output folder.
+    /// Replace an existing stack in the output folder (never an input, nor a folder
+    /// another run is writing).
     #[arg(long)]
     pub force: bool,
     /// Worker threads (default: one per core).
@@ -129,6 +130,7 @@ pub fn run(args: Args) -> Result<()> {
     };
     let recipe = Recipe::resolve(recipe_file.as_ref(), &flags)?;
     let mut options = BuildOptions::new(args.out);
+    options.recipe_file = args.recipe;
     options.force = args.force;
     options.threads = args.threads;
     options.memory_bytes = parse_memory(&args.memory)?;

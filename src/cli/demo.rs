@@ -49,8 +49,42 @@ fn data_dir(given: Option<PathBuf>) -> Result<PathBuf> {
     )
 }
 
+/// Whether `out` is the folder `data` or lies inside it (links and `..` resolved through
+/// the nearest existing folder).
+fn inside(out: &Path, data: &Path) -> bool {
+    let Ok(data) = data.canonicalize() else {
+        return false;
+    };
+    let mut rest = Vec::new();
+    for a in out.ancestors() {
+        let a = if a.as_os_str().is_empty() {
+            Path::new(".")
+        } else {
+            a
+        };
+        if let Ok(real) = a.canonicalize() {
+            let full: PathBuf = rest.iter().rev().fold(real, |p, n| p.join(n));
+            return full.starts_with(&data);
+        }
+        if let Some(name) = a.file_name() {
+            rest.push(name.to_owned());
+        }
+    }
+    false
+}
+
 pub fn run(args: Args) -> Result<()> {
     let data = data_dir(args.data)?;
+    // Every build, the batch and the table refuse to overwrite an input; the demo also
+    // keeps its outputs out of the site's folder, so the bundled files stay as shipped.
+    if inside(&args.out, &data) {
+        return Err(Error::usage(format!(
+            "--out {} lies inside the demo site's folder {}",
+            args.out.display(),
+            data.display()
+        ))
+        .with_fix("give --out a folder outside the demo data, e.g. --out terrastack-demo"));
+    }
     let site_path = data.join("site.json");
     let text = std::fs::read_to_string(&site_path).map_err(|e| Error::io(&site_path, e))?;
     let site: Value = serde_json::from_str(&text)

@@ -32,6 +32,7 @@ use serde::Serialize;
 
 pub use cover::{CoverClass, Season};
 
+use crate::atomic_file;
 use crate::error::{Error, Result};
 use crate::grid::RasterSpace;
 use crate::grid::{Crs, Grid};
@@ -578,20 +579,8 @@ fn write_geotiff_in_order<T: crate::raster::geotiff::TiffSample>(
     pool.install(|| write_geotiff(path, grid, bands, descriptions, options))
 }
 
-/// Write `path` through a temporary sibling renamed into place when complete.
-fn write_atomically(path: &Path, write: impl FnOnce(&Path) -> Result<()>) -> Result<()> {
-    let mut tmp = path.as_os_str().to_owned();
-    tmp.push(".partial");
-    let tmp = PathBuf::from(tmp);
-    if let Err(e) = write(&tmp) {
-        let _ = fs::remove_file(&tmp);
-        return Err(e);
-    }
-    fs::rename(&tmp, path).map_err(|e| Error::io(path, e))
-}
-
 fn write_text(path: &Path, text: &str) -> Result<()> {
-    write_atomically(path, |tmp| {
+    atomic_file::write_with(path, |tmp| {
         fs::write(tmp, text).map_err(|e| Error::io(tmp, e))
     })
 }
@@ -637,7 +626,7 @@ pub fn generate(dir: &Path) -> Result<SiteSummary> {
         fs::create_dir_all(&folder).map_err(|e| Error::io(&folder, e))?;
         let d = dsm(&f);
         let path = folder.join("dsm.tif");
-        write_atomically(&path, |tmp| {
+        atomic_file::write_with(&path, |tmp| {
             write_geotiff_in_order(
                 tmp,
                 &dsm_grid(),
@@ -651,7 +640,7 @@ pub fn generate(dir: &Path) -> Result<SiteSummary> {
         let o = ortho(&f);
         let bands: Vec<_> = o.outer_iter().collect();
         let path = folder.join("ortho.tif");
-        write_atomically(&path, |tmp| {
+        atomic_file::write_with(&path, |tmp| {
             write_geotiff_in_order(
                 tmp,
                 &ortho_grid(),

@@ -630,7 +630,17 @@ pub fn run(
     let stack = open_stack(stack_dir)?;
     let json = stack.dir.join("stack.json");
     let tif = stack.dir.join("stack.tif");
-    table::check_output(out, force, &[samples_path, &json, &tif])?;
+    // The table is locked until it is written; its check and the removal of partials that
+    // killed runs left happen under the lock.
+    let _lock = crate::output_lock::OutputLock::file(out)?;
+    table::check_output(
+        out,
+        force,
+        &[("samples", samples_path), ("stack", &json), ("stack", &tif)],
+    )?;
+    let name = out.file_name().map(|n| n.to_string_lossy().into_owned());
+    let folder = out.parent().filter(|p| !p.as_os_str().is_empty());
+    crate::atomic_file::remove_stale_partials(folder.unwrap_or(Path::new(".")), name.as_deref());
     let mut file = inputs::read_samples(samples_path, options.class_field.as_deref())?;
     if file.samples.is_empty() {
         return Err(Error::file(samples_path, "the file holds no samples")
@@ -690,7 +700,7 @@ pub fn run(
     let folds = assign_folds(&plan, &has_rows, options);
     let ids: Vec<String> = file.samples.iter().map(|s| s.id.clone()).collect();
     let classes: Vec<String> = file.samples.iter().map(|s| s.class.clone()).collect();
-    table::write_atomically(out, |w| table.write_csv(w, &ids, &classes, &folds))?;
+    crate::atomic_file::write_streamed(out, |w| table.write_csv(w, &ids, &classes, &folds))?;
     let mut per_fold = vec![vec![0usize; options.folds]; plan.classes.len()];
     for (&c, f) in plan.labels.iter().zip(&folds) {
         if let Some(f) = f {

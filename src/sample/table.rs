@@ -8,14 +8,16 @@
 //! holding a comma, quote, line break or outer space are quoted (RFC 4180).
 //!
 //! The table is written under a temporary name in the output's folder
-//! (`.NAME.partial-PID`) and renamed into place once complete, so a reader never sees a
-//! half-written table.
+//! (`.NAME.partial-PID`, [`crate::atomic_file`]) and renamed into place once complete, so a
+//! reader never sees a half-written table; while it is made, the table is locked
+//! (`.NAME.lock`, [`crate::output_lock`]) so two runs never write it at once.
 
-use std::fs;
-use std::io::{BufWriter, Write};
+use std::io::Write;
 use std::path::{Path, PathBuf};
 
 use crate::error::{Error, Result};
+use crate::input_guard;
+use crate::output_lock::OutputLock;
 
 /// Precision the values of a table were computed in.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -103,59 +105,25 @@ impl SampleTable {
     }
 }
 
-/// Refuse an output that exists (unless `force`), is a folder, or is one of `inputs`.
-pub fn check_output(out: &Path, force: bool, inputs: &[&Path]) -> Result<()> {
+/// Refuse an output that exists (unless `force`), is a folder, or is one of `inputs`
+/// (role, path; compared by [`crate::input_guard`], so links and `..` do not escape).
+/// Call it while holding the table's lock ([`crate::output_lock::OutputLock::file`]).
+pub fn check_output(out: &Path, force: bool, inputs: &[(&str, &Path)]) -> Result<()> {
     if out.is_dir() {
         return Err(Error::file(out, "the output is a folder")
             .with_fix("give --out a file name ending in .csv"));
     }
-    if let Ok(out_real) = out.canonicalize() {
-        for input in inputs {
-            if input.canonicalize().ok().as_deref() == Some(out_real.as_path()) {
-                return Err(Error::file(out, "the output would overwrite an input")
-                    .with_fix("give --out a new file name"));
-            }
-        }
-    }
+    let inputs: Vec<(String, PathBuf)> = inputs
+        .iter()
+        .map(|(role, p)| (role.to_string(), p.to_path_buf()))
+        .collect();
+    let outputs = [out.to_path_buf(), OutputLock::file_lock_path(out)];
+    input_guard::refuse_output_over_input(&outputs, &inputs)?;
     if out.exists() && !force {
         return Err(Error::file(out, "the output table already exists")
             .with_fix("choose another --out name, or add --force to replace it"));
     }
     Ok(())
-}
-
-/// Write `out` atomically: `write` fills a temporary file next to it, which is renamed to
-/// `out` only when `write` succeeded; on failure the temporary file is removed.
-pub fn write_atomically(
-    out: &Path,
-    write: impl FnOnce(&mut BufWriter<fs::File>) -> std::io::Result<()>,
-) -> Result<()> {
-    let name = out
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .ok_or_else(|| {
-            Error::file(out, "the output has no file name").with_fix("give --out a file name")
-        })?;
-    let dir = match out.parent() {
-        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-        _ => PathBuf::from("."),
-    };
-    let tmp = dir.join(format!(".{name}.partial-{}", std::process::id()));
-    let result = (|| {
-        let file = fs::File::create(&tmp)?;
-        let mut w = BufWriter::new(file);
-        write(&mut w)?;
-        let file = w.into_inner().map_err(|e| e.into_error())?;
-        file.sync_all()
-    })();
-    if let Err(e) = result {
-        let _ = fs::remove_file(&tmp);
-        return Err(Error::io(out, e));
-    }
-    fs::rename(&tmp, out).map_err(|e| {
-        let _ = fs::remove_file(&tmp);
-        Error::io(out, e)
-    })
 }
 
 #[cfg(test)]
@@ -208,22 +176,16 @@ mod tests {
     }
 
     #[test]
-    fn atomic_write_leaves_nothing_on_failure() {
+    fn existing_folder_or_input_outputs_are_refused() {
         let dir = tempfile::tempdir().unwrap();
         let out = dir.path().join("t.csv");
-        let err = write_atomically(&out, |w| {
-            w.write_all(b"partial")?;
-            Err(std::io::Error::other("disk full"))
-        });
-        assert!(err.is_err());
-        assert_eq!(fs::read_dir(dir.path()).unwrap().count(), 0);
-        write_atomically(&out, |w| w.write_all(b"a,b\n")).unwrap();
-        assert_eq!(fs::read_to_string(&out).unwrap(), "a,b\n");
+        check_output(&out, false, &[]).unwrap();
+        std::fs::write(&out, "a,b\n").unwrap();
         let e = check_output(&out, false, &[]).unwrap_err().to_string();
         assert!(e.contains("already exists") && e.contains("--force"), "{e}");
         check_output(&out, true, &[]).unwrap();
-        let e = check_output(&out, true, &[out.as_path()]).unwrap_err();
-        assert!(e.to_string().contains("overwrite an input"));
+        let e = check_output(&out, true, &[("samples", out.as_path())]).unwrap_err();
+        assert!(e.to_string().contains("samples input"), "{e}");
         assert!(check_output(dir.path(), true, &[]).is_err());
     }
 }

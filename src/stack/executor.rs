@@ -27,9 +27,10 @@ use sha2::{Digest, Sha256};
 use crate::align::{self, Resampling};
 use crate::error::{Error, Result};
 use crate::grid::{Grid, Window};
+use crate::input_guard;
 use crate::raster::geotiff::{Compression, EncodedBlock, GeoTiffWriter, WriteOptions};
 use crate::spectral::{self, BandArrays, MaskOptions};
-use crate::stack::output::OutputDir;
+use crate::stack::output::{self, OutputDir};
 use crate::stack::plan::{Producer, StackPlan};
 use crate::stack::preview::Preview;
 use crate::stack::recipe::Recipe;
@@ -71,6 +72,9 @@ pub struct BuildOptions {
     pub grid: Option<Grid>,
     /// ISO 8601 date recorded on every band (`date` in `stack.json`).
     pub date: Option<String>,
+    /// The recipe file the recipe came from, if any: an input the outputs must not
+    /// overwrite, like the rasters.
+    pub recipe_file: Option<PathBuf>,
 }
 
 impl BuildOptions {
@@ -85,6 +89,7 @@ impl BuildOptions {
             block_size: None,
             grid: None,
             date: None,
+            recipe_file: None,
         }
     }
 }
@@ -101,8 +106,9 @@ pub struct BuildReport {
 }
 
 /// Build the stack described by `recipe` into `options.out`: `stack.tif`, `preview.png`
-/// and `stack.json`. Inputs are checked before anything is written; outputs appear only
-/// when complete.
+/// and `stack.json`. Inputs are checked before anything is written (and no output may be
+/// an input: [`crate::input_guard`]); the output folder is locked for the whole build;
+/// outputs appear only when complete.
 pub fn build(recipe: Recipe, options: &BuildOptions) -> Result<BuildReport> {
     let started = Instant::now();
     let mut builder = rayon::ThreadPoolBuilder::new();
@@ -117,6 +123,11 @@ pub fn build(recipe: Recipe, options: &BuildOptions) -> Result<BuildReport> {
         .map_err(|e| Error::usage(format!("cannot start the worker threads: {e}")))?;
     pool.install(|| {
         let plan = StackPlan::new(recipe, options.grid.as_ref())?;
+        let mut inputs = input_files(&plan.recipe);
+        if let Some(r) = &options.recipe_file {
+            inputs.push(("recipe".into(), r.clone()));
+        }
+        input_guard::refuse_output_over_input(&output::output_paths(&options.out), &inputs)?;
         let out = OutputDir::prepare(&options.out, options.force)?;
         run(plan, out, options, started)
     })
@@ -386,6 +397,22 @@ fn encode_tiles(
         }
     }
     Ok(())
+}
+
+/// Every input file of a recipe with its role: dsm, ortho, then one-file-per-band inputs
+/// (an alpha mask file included).
+pub fn input_files(recipe: &Recipe) -> Vec<(String, PathBuf)> {
+    let mut files: Vec<(String, PathBuf)> = vec![("dsm".into(), recipe.dsm.clone())];
+    if let Some(o) = &recipe.ortho {
+        files.push(("ortho".into(), o.clone()));
+    }
+    for spec in &recipe.band_files {
+        if let Ok((role, path, _)) = spectral::parse_band_file(spec) {
+            let role = role.map_or_else(|| "alpha".to_string(), |r| r.name().to_string());
+            files.push((role, path));
+        }
+    }
+    files
 }
 
 /// SHA-256 of every input file, hashed in parallel.

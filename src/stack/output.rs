@@ -1,30 +1,54 @@
-//! Output folders that never hold a half-written stack.
+//! Output folders that never hold a half-written or mixed stack.
 //!
-//! Every output file is written under a temporary name in the same folder
-//! (`.NAME.partial-PID`) and renamed when complete; renames within one folder are atomic on
-//! POSIX file systems. `stack.json` is renamed last and marks a finished stack: a
-//! `stack.tif` without its `stack.json` is incomplete. An existing stack is only replaced
-//! with `force`, and then its `stack.json` is removed first so that an old sidecar never
-//! describes a new image.
+//! [`OutputDir::prepare`] creates the folder (and any missing parents) only once the
+//! inputs have been checked, and takes the folder's exclusive lock
+//! ([`crate::output_lock`]) for the whole build, so two builds into one folder never mix
+//! their files: the second is refused, naming the first. Under the lock it checks for an
+//! existing stack (replaced only with `force`) and removes the temporary files of killed
+//! runs ([`crate::atomic_file::remove_stale_partials`]).
+//!
+//! Every output file is written under a temporary name in the folder
+//! (`.NAME.partial-PID`, [`crate::atomic_file`]) and renamed when complete; renames within
+//! one folder are atomic on POSIX file systems. `stack.json` is renamed last and marks a
+//! finished stack: a `stack.tif` without its `stack.json` is incomplete. When a stack is
+//! replaced, its old `stack.json` is removed first so that an old sidecar never describes
+//! a new image. A build that fails removes its temporary files, its lock, and the folders
+//! it created if they are left empty.
 
 use std::fs;
 use std::path::{Path, PathBuf};
 
+use crate::atomic_file::{self, PendingFile};
 use crate::error::{Error, Result};
+use crate::output_lock::OutputLock;
 
 /// Files a finished stack folder holds, in the order they are committed (sidecar last).
 pub const STACK_FILES: [&str; 3] = ["stack.tif", "preview.png", "stack.json"];
 
-/// An output folder being written.
+/// Every path a stack build into `dir` writes or replaces: the stack files and the
+/// folder's lock file. None of them may be an input ([`crate::input_guard`]).
+pub fn output_paths(dir: &Path) -> Vec<PathBuf> {
+    let mut v: Vec<PathBuf> = STACK_FILES.iter().map(|n| dir.join(n)).collect();
+    v.push(OutputLock::folder_lock_path(dir));
+    v
+}
+
+/// An output folder being written, locked by this process.
 #[derive(Debug)]
 pub struct OutputDir {
     dir: PathBuf,
-    pending: Vec<(PathBuf, PathBuf)>,
+    pending: Vec<PendingFile>,
+    /// Folders this build created, outermost first; removed again if the build fails and
+    /// leaves them empty.
+    created: Vec<PathBuf>,
+    lock: Option<OutputLock>,
+    committed: bool,
 }
 
 impl OutputDir {
-    /// Prepare `dir` for a new stack: create it if needed, check it is writable, and refuse
-    /// to go on when it already holds a stack unless `force`. Nothing is deleted here.
+    /// Prepare `dir` for a new stack: create it if needed, lock it, refuse to go on when
+    /// it already holds a stack unless `force`, and remove temporary files that killed
+    /// runs left. Nothing of an existing stack is deleted here.
     pub fn prepare(dir: &Path, force: bool) -> Result<OutputDir> {
         if dir.exists() && !dir.is_dir() {
             return Err(
@@ -32,6 +56,23 @@ impl OutputDir {
                     .with_fix("give --out a folder path"),
             );
         }
+        let mut out = OutputDir {
+            dir: dir.to_path_buf(),
+            pending: Vec::new(),
+            created: Vec::new(),
+            lock: None,
+            committed: false,
+        };
+        // Missing folders, outermost first, so that a failed build can remove exactly them.
+        let mut missing: Vec<PathBuf> = dir
+            .ancestors()
+            .filter(|a| !a.as_os_str().is_empty() && !a.exists())
+            .map(Path::to_path_buf)
+            .collect();
+        missing.reverse();
+        out.created = missing;
+        fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
+        out.lock = Some(OutputLock::folder(dir)?);
         let existing: Vec<&str> = STACK_FILES
             .iter()
             .copied()
@@ -44,15 +85,8 @@ impl OutputDir {
             )
             .with_fix("choose another --out folder, or add --force to replace it"));
         }
-        fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
-        // Probe writability now, before any long computation.
-        let probe = dir.join(format!(".terrastack-write-probe-{}", std::process::id()));
-        fs::write(&probe, b"").map_err(|e| Error::io(dir, e))?;
-        let _ = fs::remove_file(&probe);
-        Ok(OutputDir {
-            dir: dir.to_path_buf(),
-            pending: Vec::new(),
-        })
+        atomic_file::remove_stale_partials(dir, None);
+        Ok(out)
     }
 
     /// The folder.
@@ -64,10 +98,10 @@ impl OutputDir {
     ///
     /// [`commit`]: OutputDir::commit
     pub fn temp_path(&mut self, name: &str) -> PathBuf {
-        let tmp = self
-            .dir
-            .join(format!(".{name}.partial-{}", std::process::id()));
-        self.pending.push((tmp.clone(), self.dir.join(name)));
+        let pending =
+            PendingFile::new(&self.dir.join(name)).expect("stack file names are file names");
+        let tmp = pending.temp_path().to_path_buf();
+        self.pending.push(pending);
         tmp
     }
 
@@ -79,19 +113,28 @@ impl OutputDir {
             fs::remove_file(&old_sidecar).map_err(|e| Error::io(&old_sidecar, e))?;
         }
         self.pending
-            .sort_by_key(|(_, final_path)| final_path.file_name().map(|n| n == "stack.json"));
-        for (tmp, final_path) in std::mem::take(&mut self.pending) {
-            fs::rename(&tmp, &final_path).map_err(|e| Error::io(&final_path, e))?;
+            .sort_by_key(|p| p.path().file_name().map(|n| n == "stack.json"));
+        for pending in std::mem::take(&mut self.pending) {
+            pending.commit()?;
         }
+        self.committed = true;
         Ok(())
     }
 }
 
 impl Drop for OutputDir {
-    /// An abandoned build (error, panic) removes its temporary files.
+    /// An abandoned build (error, panic) removes its temporary files (dropping them), its
+    /// lock, and the folders it created if they are empty.
     fn drop(&mut self) {
-        for (tmp, _) in &self.pending {
-            let _ = fs::remove_file(tmp);
+        self.pending.clear();
+        self.lock = None;
+        if !self.committed {
+            for d in self.created.iter().rev() {
+                match fs::remove_dir(d) {
+                    Err(e) if e.kind() != std::io::ErrorKind::NotFound => break,
+                    _ => {}
+                }
+            }
         }
     }
 }
@@ -166,5 +209,29 @@ mod tests {
             fs::write(&tif, "partial").unwrap();
         }
         assert_eq!(fs::read_dir(tmp.path()).unwrap().count(), 0);
+        // Folders the build created go too, those that were there stay.
+        {
+            let _out = OutputDir::prepare(&tmp.path().join("a/b/c"), false).unwrap();
+            assert!(tmp.path().join("a/b/c/.terrastack.lock").exists());
+        }
+        assert_eq!(fs::read_dir(tmp.path()).unwrap().count(), 0);
+    }
+
+    #[test]
+    fn a_locked_folder_is_refused_and_stale_partials_are_removed_under_the_lock() {
+        let tmp = tempfile::tempdir().unwrap();
+        let dir = tmp.path();
+        let first = OutputDir::prepare(dir, false).unwrap();
+        let e = OutputDir::prepare(dir, true).unwrap_err().to_string();
+        assert!(e.contains("another terrastack run"), "{e}");
+        drop(first);
+        // PID 4194304 is above Linux's pid_max limit (from memory): its writer is gone.
+        fs::write(dir.join(".stack.tif.partial-4194304"), "half").unwrap();
+        let out = OutputDir::prepare(dir, false).unwrap();
+        if cfg!(target_os = "linux") {
+            assert!(!dir.join(".stack.tif.partial-4194304").exists());
+        }
+        drop(out);
+        assert!(output_paths(dir).iter().all(|p| !p.exists()));
     }
 }
