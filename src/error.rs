@@ -106,14 +106,11 @@ impl fmt::Display for Error {
                 Ok(())
             }
             Error::Io { path, source } => {
-                write!(f, "{}: {source}", path.display())?;
-                let fix = match source.kind() {
-                    io::ErrorKind::NotFound => Some("check the path and spelling"),
-                    io::ErrorKind::PermissionDenied => {
-                        Some("check the file's permissions, or choose a folder you can write to")
-                    }
-                    _ => None,
-                };
+                let (problem, fix) = io_words(source);
+                match problem {
+                    Some(problem) => write!(f, "{}: {problem}", path.display())?,
+                    None => write!(f, "{}: {source}", path.display())?,
+                }
                 if let Some(fix) = fix {
                     write!(f, "\n  fix: {fix}")?;
                 }
@@ -121,6 +118,68 @@ impl fmt::Display for Error {
             }
             Error::CheckFailed { problem } => write!(f, "{problem}"),
         }
+    }
+}
+
+/// Plain words and a fix for the operating-system errors users meet most: a missing path,
+/// a folder where a file was expected (or the reverse), no permission, a full disk, a
+/// read-only file system, a file that ends early. `None` keeps the system's own text.
+///
+/// Kinds newer than the crate's minimum Rust version are matched by their errno, whose
+/// values (ENOTDIR 20, EISDIR 21, ENOSPC 28, EROFS 30) are the same on Linux, macOS and
+/// the BSDs (POSIX names; values from the systems' `errno.h`). EDQUOT (disk quota) differs
+/// between systems and is matched on Linux only (122).
+fn io_words(e: &io::Error) -> (Option<&'static str>, Option<&'static str>) {
+    match e.kind() {
+        io::ErrorKind::NotFound => {
+            return (
+                Some("no such file or folder"),
+                Some("check the path and spelling (relative paths start from the current folder, or from a recipe's or manifest's folder)"),
+            )
+        }
+        io::ErrorKind::PermissionDenied => {
+            return (
+                Some("permission denied"),
+                Some("check the file's permissions, or choose a folder you can write to"),
+            )
+        }
+        io::ErrorKind::UnexpectedEof => {
+            return (
+                Some("the file ends early: it is truncated or still being copied"),
+                Some("copy or export the file again and check its size"),
+            )
+        }
+        io::ErrorKind::AlreadyExists => {
+            return (
+                Some("already exists"),
+                Some("choose another name, or remove the existing file"),
+            )
+        }
+        _ => {}
+    }
+    let disk_quota = cfg!(target_os = "linux") && e.raw_os_error() == Some(122);
+    match e.raw_os_error() {
+        _ if disk_quota => (
+            Some("the disk quota is exhausted"),
+            Some("free space or ask for a larger quota, or write the output to another disk"),
+        ),
+        Some(20) if cfg!(unix) => (
+            Some("a part of this path is a file where a folder was expected"),
+            Some("check the path: every name before the last must be a folder"),
+        ),
+        Some(21) if cfg!(unix) => (
+            Some("this is a folder, where a file was expected"),
+            Some("give the path of a file (inside that folder, or next to it)"),
+        ),
+        Some(28) if cfg!(unix) => (
+            Some("the disk is full"),
+            Some("free space on that disk, or write the output to another disk with --out"),
+        ),
+        Some(30) if cfg!(unix) => (
+            Some("the file system is read-only"),
+            Some("write the output to a folder on a writable disk with --out"),
+        ),
+        _ => (None, None),
     }
 }
 
@@ -146,5 +205,50 @@ mod tests {
         );
         assert_eq!(e.exit_code(), 1);
         assert_eq!(Error::usage("bad flag").exit_code(), 2);
+    }
+
+    /// The message a real failed call produces, through the operating system.
+    fn os_error(path: &Path, op: impl FnOnce(&Path) -> io::Result<()>) -> String {
+        let e = op(path).unwrap_err();
+        let text = Error::io(path, e).to_string();
+        assert!(text.starts_with(&path.display().to_string()), "{text}");
+        text
+    }
+
+    #[test]
+    fn common_system_errors_in_plain_words() {
+        let tmp = tempfile::tempdir().unwrap();
+        let missing = tmp.path().join("nope.tif");
+        let t = os_error(&missing, |p| std::fs::File::open(p).map(drop));
+        assert!(t.contains("no such file or folder") && t.contains("fix: check the path"), "{t}");
+        assert!(!t.contains("entity not found") && !t.contains("os error"), "{t}");
+        let t = os_error(tmp.path(), |p| std::fs::read(p).map(drop));
+        #[cfg(unix)]
+        assert!(t.contains("is a folder, where a file was expected"), "{t}");
+        let file = tmp.path().join("a.tif");
+        std::fs::write(&file, b"x").unwrap();
+        #[cfg(unix)]
+        {
+            let t = os_error(&file.join("b.tif"), |p| std::fs::File::open(p).map(drop));
+            assert!(t.contains("is a file where a folder was expected"), "{t}");
+        }
+        let t = os_error(&file, |p| {
+            use std::io::Read;
+            std::fs::File::open(p)?.read_exact(&mut [0u8; 8])
+        });
+        assert!(t.contains("truncated"), "{t}");
+        // Disk full and read-only file systems cannot be provoked portably in a test: the
+        // errors are built from their POSIX errno values (ENOSPC 28, EROFS 30).
+        #[cfg(unix)]
+        {
+            let full = Error::io("/out/stack.tif", io::Error::from_raw_os_error(28)).to_string();
+            assert_eq!(full, "/out/stack.tif: the disk is full\n  fix: free space on that disk, or write the output to another disk with --out");
+            let ro = Error::io("/out", io::Error::from_raw_os_error(30)).to_string();
+            assert!(ro.contains("read-only") && ro.contains("fix: write the output"), "{ro}");
+            let denied = Error::io("/out", io::Error::from_raw_os_error(13)).to_string();
+            assert!(denied.contains("permission denied") && denied.contains("fix:"), "{denied}");
+        }
+        let other = Error::io("/x", io::Error::other("strange")).to_string();
+        assert_eq!(other, "/x: strange");
     }
 }

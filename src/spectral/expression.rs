@@ -55,6 +55,16 @@ use crate::spectral::roles::{BandArrays, Role, RESERVED_NAMES};
 /// Cells evaluated together by one pass of the program.
 const RUN: usize = 2048;
 
+/// Longest expression text accepted, in characters. The longest catalogue formula written
+/// as band math is under 100 characters; this leaves room for generous user formulas
+/// while keeping parsing and the evaluation stack small.
+pub const MAX_EXPRESSION_CHARS: usize = 2000;
+
+/// Deepest nesting accepted: parentheses, function calls, `if`, `not`, unary minus and
+/// the exponent of `^` each open one level. The parser recurses once per level, so this
+/// bounds its stack use on any thread.
+pub const MAX_NESTING: usize = 64;
+
 #[derive(Clone, Copy, Debug, PartialEq)]
 enum BinOp {
     Add,
@@ -279,9 +289,26 @@ struct Parser<'a> {
     pos: usize,
     program: Vec<Instr>,
     roles: Vec<Role>,
+    /// Nesting levels open at `pos` (see [`MAX_NESTING`]).
+    depth: usize,
 }
 
 impl Parser<'_> {
+    /// Run `inner` one nesting level deeper, refusing to pass [`MAX_NESTING`].
+    fn nested(&mut self, inner: impl FnOnce(&mut Self) -> Result<()>) -> Result<()> {
+        if self.depth >= MAX_NESTING {
+            return Err(self
+                .err(format!(
+                    "the expression nests deeper than {MAX_NESTING} levels (parentheses, calls, `if`, `not`, `-`, `^`)"
+                ))
+                .with_fix("split the formula into several --index layers, or remove redundant parentheses"));
+        }
+        self.depth += 1;
+        let r = inner(self);
+        self.depth -= 1;
+        r
+    }
+
     fn peek(&self) -> &Tok {
         &self.tokens[self.pos].tok
     }
@@ -322,6 +349,10 @@ impl Parser<'_> {
     }
 
     fn expression(&mut self) -> Result<()> {
+        self.nested(Self::conditional)
+    }
+
+    fn conditional(&mut self) -> Result<()> {
         if self.is_word("if") {
             self.pos += 1;
             self.expression()?;
@@ -360,7 +391,7 @@ impl Parser<'_> {
     fn negation(&mut self) -> Result<()> {
         if self.is_word("not") {
             self.pos += 1;
-            self.negation()?;
+            self.nested(Self::negation)?;
             self.program.push(Instr::Not);
             return Ok(());
         }
@@ -427,7 +458,7 @@ impl Parser<'_> {
     fn signed(&mut self) -> Result<()> {
         if self.is_sym("-") {
             self.pos += 1;
-            self.signed()?;
+            self.nested(Self::signed)?;
             self.program.push(Instr::Neg);
             return Ok(());
         }
@@ -438,7 +469,7 @@ impl Parser<'_> {
         self.primary()?;
         if self.is_sym("^") {
             self.pos += 1;
-            self.signed()?;
+            self.nested(Self::signed)?;
             self.program.push(Instr::Bin(BinOp::Pow));
         }
         Ok(())
@@ -615,6 +646,13 @@ impl Expression {
             ))
             .with_fix("e.g. `wet_meadow = if ndwi_like > 0 then 1 else 0` becomes name `wet_meadow`"));
         }
+        let chars = text.chars().count();
+        if chars > MAX_EXPRESSION_CHARS {
+            return Err(Error::usage(format!(
+                "expression `{name}` is {chars} characters long, more than the limit of {MAX_EXPRESSION_CHARS}"
+            ))
+            .with_fix("split the formula into several --index layers"));
+        }
         let tokens = tokenize(name, text)?;
         let mut p = Parser {
             name,
@@ -623,6 +661,7 @@ impl Expression {
             pos: 0,
             program: Vec::new(),
             roles: Vec::new(),
+            depth: 0,
         };
         if matches!(p.peek(), Tok::End) {
             return Err(p.err("the expression is empty"));
@@ -991,6 +1030,34 @@ mod tests {
         assert!(Expression::parse("t", "   ").is_err());
         assert!(Expression::parse("2bad", "nir").is_err());
         assert!(Expression::parse("t", "sqrt nir").is_err());
+    }
+
+    #[test]
+    fn nesting_and_length_are_bounded() {
+        // 1,800 nested parentheses once overflowed the parser's stack: now a usage error.
+        let deep = format!("{}nir{}", "(".repeat(1800), ")".repeat(1800));
+        let e = Expression::parse("t", &deep).unwrap_err();
+        assert_eq!(e.exit_code(), 2);
+        assert!(e.to_string().contains("characters long"), "{e}");
+        let deep = format!("{}nir{}", "(".repeat(900), ")".repeat(900));
+        let msg = Expression::parse("t", &deep).unwrap_err().to_string();
+        assert!(msg.contains("nests deeper than 64"), "{msg}");
+        for text in [
+            format!("{}nir", "-".repeat(200)),
+            format!("{}nir", "not ".repeat(200)),
+            format!("nir{}", "^2".repeat(200)),
+            format!("{}nir{}", "abs(".repeat(200), ")".repeat(200)),
+            format!("{}nir{}", "if 1 then ".repeat(100), " else 0".repeat(100)),
+        ] {
+            let msg = Expression::parse("t", &text).unwrap_err().to_string();
+            assert!(msg.contains("nests deeper"), "{text}: {msg}");
+        }
+        // At the limit, an expression still parses and evaluates: 63 levels of parentheses
+        // inside the one level the whole expression opens.
+        let ok = format!("{}nir{}", "(".repeat(MAX_NESTING - 1), ")".repeat(MAX_NESTING - 1));
+        assert_eq!(eval1(&ok, &[("nir", 0.5)]), 0.5);
+        let too_deep = format!("({ok})");
+        assert!(Expression::parse("t", &too_deep).is_err());
     }
 
     #[test]
