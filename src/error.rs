@@ -220,8 +220,14 @@ mod tests {
         let tmp = tempfile::tempdir().unwrap();
         let missing = tmp.path().join("nope.tif");
         let t = os_error(&missing, |p| std::fs::File::open(p).map(drop));
-        assert!(t.contains("no such file or folder") && t.contains("fix: check the path"), "{t}");
-        assert!(!t.contains("entity not found") && !t.contains("os error"), "{t}");
+        assert!(
+            t.contains("no such file or folder") && t.contains("fix: check the path"),
+            "{t}"
+        );
+        assert!(
+            !t.contains("entity not found") && !t.contains("os error"),
+            "{t}"
+        );
         let t = os_error(tmp.path(), |p| std::fs::read(p).map(drop));
         #[cfg(unix)]
         assert!(t.contains("is a folder, where a file was expected"), "{t}");
@@ -244,9 +250,15 @@ mod tests {
             let full = Error::io("/out/stack.tif", io::Error::from_raw_os_error(28)).to_string();
             assert_eq!(full, "/out/stack.tif: the disk is full\n  fix: free space on that disk, or write the output to another disk with --out");
             let ro = Error::io("/out", io::Error::from_raw_os_error(30)).to_string();
-            assert!(ro.contains("read-only") && ro.contains("fix: write the output"), "{ro}");
+            assert!(
+                ro.contains("read-only") && ro.contains("fix: write the output"),
+                "{ro}"
+            );
             let denied = Error::io("/out", io::Error::from_raw_os_error(13)).to_string();
-            assert!(denied.contains("permission denied") && denied.contains("fix:"), "{denied}");
+            assert!(
+                denied.contains("permission denied") && denied.contains("fix:"),
+                "{denied}"
+            );
         }
         let other = Error::io("/x", io::Error::other("strange")).to_string();
         assert_eq!(other, "/x: strange");

@@ -48,6 +48,10 @@ pub fn run(args: Args) -> Result<()> {
     if args.threads == Some(0) {
         return Err(Error::usage("--threads must be at least 1"));
     }
+    terrastack::stack::executor::check_threads("--jobs", args.jobs)?;
+    if let Some(n) = args.threads {
+        terrastack::stack::executor::check_threads("--threads", n)?;
+    }
     let memory_bytes = parse_memory(&args.memory)?;
     let manifest = Manifest::load(&args.manifest)?;
     let options = BatchOptions {

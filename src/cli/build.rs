@@ -82,6 +82,10 @@ pub struct Args {
     /// Memory budget for the whole build, e.g. 2G, 512M (default 2G).
     #[arg(long, value_name = "SIZE", default_value = "2G")]
     pub memory: String,
+    /// Largest stack grid built, in cells (default 4294967296 = 2^32, a 65536² grid); a
+    /// larger grid is refused, as it usually comes from a mistyped --resolution.
+    #[arg(long, value_name = "CELLS")]
+    pub cell_limit: Option<String>,
     /// No progress output.
     #[arg(long, short)]
     pub quiet: bool,
@@ -134,6 +138,9 @@ pub fn run(args: Args) -> Result<()> {
     options.force = args.force;
     options.threads = args.threads;
     options.memory_bytes = parse_memory(&args.memory)?;
+    if let Some(text) = &args.cell_limit {
+        options.cell_limit = parse_cell_limit(text)?;
+    }
     options.progress = if args.quiet {
         Progress::Quiet
     } else {
@@ -144,6 +151,24 @@ pub fn run(args: Args) -> Result<()> {
         print_summary(&report);
     }
     Ok(())
+}
+
+/// `--cell-limit`: a whole number of cells, digits or scientific notation (`5e9`).
+fn parse_cell_limit(text: &str) -> Result<u64> {
+    let bad = || {
+        terrastack::Error::usage(format!("--cell-limit {text:?} is not a number of cells"))
+            .with_fix("give a whole number of cells of at least 1, e.g. --cell-limit 1e10")
+    };
+    if let Ok(n) = text.trim().parse::<u64>() {
+        return if n >= 1 { Ok(n) } else { Err(bad()) };
+    }
+    let v: f64 = text.trim().parse().map_err(|_| bad())?;
+    // Every f64 below 2^64 converts exactly to u64 once it is whole.
+    if v.is_finite() && v >= 1.0 && v.fract() == 0.0 && v < 18_446_744_073_709_551_616.0 {
+        Ok(v as u64)
+    } else {
+        Err(bad())
+    }
 }
 
 /// Where the outputs are and a table of bands with their ranges.

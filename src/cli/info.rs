@@ -23,6 +23,11 @@
 //!   ("band" | "pixel"), "compression" ("none" | "deflate" | "lzw" | "zstd" | "packbits"),
 //!   "predictor" }`, or null when not a GeoTIFF.
 //! - `bands`: `[{ "index", "type", "description", "nodata" }]`.
+//! - `truncated`: null for a sound GeoTIFF; for one whose tiles or strips reach past the
+//!   end of the file, `{ "kind" ("tiles" | "strips"), "blocks_past_end", "blocks",
+//!   "file_bytes", "first_block", "first_end" }`. `info` then also exits 1 with an error
+//!   naming the file.
+
 //! - `stack` (folders only): `{ "path", "format", "bands": [{ "index", "name", "feature",
 //!   "units", "scale_m" }] }`, or null when the folder has no `stack.json`.
 
@@ -52,6 +57,24 @@ pub fn run(args: Args) -> Result<()> {
         println!("{text}");
     } else {
         print!("{}", human(&summary));
+    }
+    // A damaged file is described (what the directory says), then reported as an error.
+    let damage = &summary["truncated"];
+    if !damage.is_null() {
+        return Err(Error::file(
+            text(&summary["path"]),
+            format!(
+                "{} of its {} {} lie past the end of the file ({} bytes; the first, {} {}, ends at byte {}): the file is truncated",
+                damage["blocks_past_end"],
+                damage["blocks"],
+                text(&damage["kind"]),
+                damage["file_bytes"],
+                text(&damage["kind"]).trim_end_matches('s'),
+                damage["first_block"],
+                damage["first_end"]
+            ),
+        )
+        .with_fix("copy or export the file again and check that its size matches the original"));
     }
     Ok(())
 }
@@ -97,9 +120,24 @@ fn describe_raster(path: &Path) -> Result<Value> {
     let mut blocks = Value::Null;
     let mut container = "other";
     let mut georeferenced = true;
+    let mut truncated = Value::Null;
     let source: Box<dyn RasterSource> = if geotiff::is_tiff(path)? {
         let r = GeoTiffReader::open(path)?;
         let (bw, bh) = r.block_size();
+        let kind = match r.layout() {
+            Layout::Tiled { .. } => "tiles",
+            Layout::Strips { .. } => "strips",
+        };
+        if let (bad @ 1.., total, Some((first, end))) = r.blocks_past_end() {
+            truncated = json!({
+                "kind": kind,
+                "blocks_past_end": bad,
+                "blocks": total,
+                "file_bytes": r.file_len(),
+                "first_block": first,
+                "first_end": end,
+            });
+        }
         blocks = json!({
             "kind": match r.layout() { Layout::Tiled { .. } => "tiles", Layout::Strips { .. } => "strips" },
             "width": bw,
@@ -170,6 +208,7 @@ fn describe_raster(path: &Path) -> Result<Value> {
         "nodata": number_or_text(grid.nodata),
         "blocks": blocks,
         "bands": bands,
+        "truncated": truncated,
     }))
 }
 
@@ -322,6 +361,19 @@ pub fn human(s: &Value) -> String {
                 } else {
                     "classic TIFF"
                 }
+            ),
+        );
+    }
+    let damage = &s["truncated"];
+    if !damage.is_null() {
+        line(
+            "damage",
+            format!(
+                "TRUNCATED: {} of {} {} lie past the end of the file ({} bytes)",
+                damage["blocks_past_end"],
+                damage["blocks"],
+                text(&damage["kind"]),
+                damage["file_bytes"]
             ),
         );
     }

@@ -66,10 +66,29 @@ impl BlockLayout {
         }
         let (_, mid_y) = grid.cell_centre(0.0, grid.height as f64 / 2.0 - 0.5);
         let (mx, my) = metres_per_unit(grid, mid_y)?;
-        Ok(BlockLayout {
+        let layout = BlockLayout {
             cells_x: side_m / mx / grid.res_x(),
             cells_y: side_m / my / grid.res_y(),
-        })
+        };
+        // A block narrower than a cell would put each sample in a block of its own, and
+        // block numbers past 2^63 would saturate into one block (`block_of` converts with
+        // `as i64`): refuse it. A side of at least one cell keeps block numbers of points
+        // on the grid within its cell count.
+        if !(layout.cells_x >= 1.0 && layout.cells_y >= 1.0) {
+            let cell = (grid.res_x() * mx).max(grid.res_y() * my);
+            let side = if (1e-3..1e7).contains(&side_m) {
+                format!("{side_m}")
+            } else {
+                format!("{side_m:e}")
+            };
+            return Err(Error::usage(format!(
+                "--block-size {side} m is smaller than one cell of the stack ({cell:.4} m)"
+            ))
+            .with_fix(format!(
+                "give a block side of at least {cell:.4} m; spatial blocks are usually many times the correlation range (tens of metres)"
+            )));
+        }
+        Ok(layout)
     }
 
     /// Block (column, row) holding CRS point (x, y), counted from the grid's origin.
@@ -217,5 +236,16 @@ mod tests {
         let g = Grid::new(4, 4, [0.0, 1.0, 0.0, 4.0, 0.0, -1.0], Crs::from_epsg(32633)).unwrap();
         assert!(BlockLayout::new(&g, 0.0).is_err());
         assert!(BlockLayout::new(&g, f64::NAN).is_err());
+        // 1e-300 m once saturated every block number to i64::MAX: "1 spatial block".
+        let e = BlockLayout::new(&g, 1e-300).unwrap_err().to_string();
+        assert!(
+            e.contains("--block-size 1e-300 m is smaller than one cell"),
+            "{e}"
+        );
+        assert!(BlockLayout::new(&g, 0.999).is_err());
+        assert_eq!(BlockLayout::new(&g, 1.0).unwrap().cells_x, 1.0);
+        // A block larger than the grid is one block (cells_x infinite at the extreme).
+        let huge = BlockLayout::new(&g, 1e308).unwrap();
+        assert_eq!(huge.block_of(&g, 3.5, 0.5), (0, 0));
     }
 }

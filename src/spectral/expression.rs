@@ -1054,7 +1054,11 @@ mod tests {
         }
         // At the limit, an expression still parses and evaluates: 63 levels of parentheses
         // inside the one level the whole expression opens.
-        let ok = format!("{}nir{}", "(".repeat(MAX_NESTING - 1), ")".repeat(MAX_NESTING - 1));
+        let ok = format!(
+            "{}nir{}",
+            "(".repeat(MAX_NESTING - 1),
+            ")".repeat(MAX_NESTING - 1)
+        );
         assert_eq!(eval1(&ok, &[("nir", 0.5)]), 0.5);
         let too_deep = format!("({ok})");
         assert!(Expression::parse("t", &too_deep).is_err());

@@ -45,6 +45,28 @@ use crate::terrain;
 /// under the budget because blocks need less than `StackPlan::block_bytes` estimates.)
 const BASE_BYTES: u64 = 96 << 20;
 
+/// Most worker threads a build (or a batch) starts: far more than any machine gains from,
+/// and few enough that a mistyped `--threads 100000` is refused instead of exhausting the
+/// system.
+pub const MAX_THREADS: usize = 1024;
+
+/// Default limit on the stack grid's cells (`--cell-limit`): 2³² ≈ 4.3 billion cells, a
+/// 65536 x 65536 grid, ten times the largest flights measured (20000² in about ten minutes).
+pub const DEFAULT_CELL_LIMIT: u64 = 1 << 32;
+
+/// Refuse a thread (or job) count of 0 or more than [`MAX_THREADS`]; `flag` names it.
+pub fn check_threads(flag: &str, n: usize) -> Result<()> {
+    if n == 0 || n > MAX_THREADS {
+        return Err(
+            Error::usage(format!("{flag} {n} is outside 1..={MAX_THREADS}")).with_fix(format!(
+                "give {flag} between 1 and {MAX_THREADS}; this machine has {} cores",
+                std::thread::available_parallelism().map_or(1, |n| n.get())
+            )),
+        );
+    }
+    Ok(())
+}
+
 /// How a build reports progress.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum Progress {
@@ -75,6 +97,8 @@ pub struct BuildOptions {
     /// The recipe file the recipe came from, if any: an input the outputs must not
     /// overwrite, like the rasters.
     pub recipe_file: Option<PathBuf>,
+    /// Largest stack grid, in cells, built without complaint ([`DEFAULT_CELL_LIMIT`]).
+    pub cell_limit: u64,
 }
 
 impl BuildOptions {
@@ -90,6 +114,7 @@ impl BuildOptions {
             grid: None,
             date: None,
             recipe_file: None,
+            cell_limit: DEFAULT_CELL_LIMIT,
         }
     }
 }
@@ -113,9 +138,7 @@ pub fn build(recipe: Recipe, options: &BuildOptions) -> Result<BuildReport> {
     let started = Instant::now();
     let mut builder = rayon::ThreadPoolBuilder::new();
     if let Some(n) = options.threads {
-        if n == 0 {
-            return Err(Error::usage("--threads must be at least 1"));
-        }
+        check_threads("--threads", n)?;
         builder = builder.num_threads(n);
     }
     let pool = builder
@@ -128,6 +151,7 @@ pub fn build(recipe: Recipe, options: &BuildOptions) -> Result<BuildReport> {
             inputs.push(("recipe".into(), r.clone()));
         }
         input_guard::refuse_output_over_input(&output::output_paths(&options.out), &inputs)?;
+        plan.check_cell_limit(options.cell_limit)?;
         let out = OutputDir::prepare(&options.out, options.force)?;
         run(plan, out, options, started)
     })
@@ -149,13 +173,19 @@ fn run(
         },
         ..WriteOptions::default()
     };
+    // Memory that grows with the raster, whatever the block: the writer's tile index and
+    // the block list (counted at the smallest block, the most blocks). Refused up front.
+    let index =
+        GeoTiffWriter::index_bytes(&tif_path, &plan.target, plan.bands.len(), &write_options)?;
+    let raster_bytes = index.saturating_add(plan.raster_bytes(write_options_tile(&write_options)));
+    check_raster_memory(&plan, options, raster_bytes)?;
     let mut writer =
         GeoTiffWriter::create(&tif_path, &plan.target, plan.bands.len(), write_options)?;
     for (i, band) in plan.bands.iter().enumerate() {
         writer.set_band_description(i + 1, &band.name);
     }
     let tile = writer.block_size().0;
-    let (block, concurrency) = choose_blocks(&plan, options, tile, threads)?;
+    let (block, concurrency) = choose_blocks(&plan, options, tile, threads, raster_bytes)?;
     let blocks = plan.blocks(block);
     let preview = Preview::new(
         plan.target.width,
@@ -247,14 +277,36 @@ fn run(
     })
 }
 
+/// Refuse a grid whose memory that grows with the raster (`raster_bytes`: tile index,
+/// block list) does not fit the budget, before anything allocates it.
+fn check_raster_memory(plan: &StackPlan, options: &BuildOptions, raster_bytes: u64) -> Result<()> {
+    if raster_bytes > options.memory_bytes.saturating_sub(BASE_BYTES) {
+        return Err(Error::usage(format!(
+            "the memory budget of {} MiB is too small for a {} x {} grid of {} bands: its tile index and block list alone need {} MiB (plus {} MiB for readers and the writer)",
+            options.memory_bytes >> 20,
+            plan.target.width,
+            plan.target.height,
+            plan.bands.len(),
+            raster_bytes >> 20,
+            BASE_BYTES >> 20
+        ))
+        .with_fix("raise --memory, or build a smaller grid (--resolution) or fewer bands"));
+    }
+    Ok(())
+}
+
 /// Block side (a multiple of `tile`) and how many blocks may be in flight at once.
 fn choose_blocks(
     plan: &StackPlan,
     options: &BuildOptions,
     tile: usize,
     threads: usize,
+    raster_bytes: u64,
 ) -> Result<(usize, usize)> {
-    let budget = options.memory_bytes.saturating_sub(BASE_BYTES);
+    let budget = options
+        .memory_bytes
+        .saturating_sub(BASE_BYTES)
+        .saturating_sub(raster_bytes);
     let round_up = |n: usize| n.div_ceil(tile).max(1) * tile;
     let mut block = match options.block_size {
         Some(b) => {
@@ -286,6 +338,14 @@ fn choose_blocks(
     }
     let concurrency = ((budget / need.max(1)) as usize).clamp(1, threads.max(1));
     Ok((block, concurrency))
+}
+
+/// Side of the writer's tiles (or strips' rows) in cells.
+fn write_options_tile(o: &WriteOptions) -> usize {
+    match o.layout {
+        crate::raster::geotiff::Layout::Tiled { size } => size,
+        crate::raster::geotiff::Layout::Strips { rows_per_strip } => rows_per_strip,
+    }
 }
 
 /// Compute every band of the stack over block `w`.

@@ -125,6 +125,9 @@ impl StackPlan {
                 g.clone()
             }
             None => {
+                if let Some(res) = recipe.resolution_m {
+                    check_resolution(&recipe.dsm, &dsm_grid, res)?;
+                }
                 let named: Vec<(&Path, &Grid)> =
                     others.iter().map(|(p, g)| (p.as_path(), g)).collect();
                 align::target_grid_named(
@@ -208,6 +211,7 @@ impl StackPlan {
                     })?;
                 for feature in expanded {
                     let (wx, wy) = feature.window_px(hx, hy);
+                    check_window_fits(&feature, (wx, wy), (hx, hy), &target)?;
                     bands.push(BandPlan {
                         producer: Producer::Terrain(terrain_features.len()),
                         name: feature.band_name(),
@@ -268,6 +272,8 @@ impl StackPlan {
             )
             .with_fix("add terrain features, or map orthomosaic bands with --ortho/--bands"));
         }
+        // Every window fits the raster (checked above), so the halo is at most half the
+        // raster's longer side plus one cell: no arithmetic on it can overflow.
         let halo = terrain_features
             .iter()
             .map(|f| f.halo_px(hx, hy))
@@ -300,9 +306,13 @@ impl StackPlan {
     /// block with its halo and the terrain kernels' working arrays (taken as 96 bytes per
     /// padded cell per distinct window, the summed-area tables and moments), the spectral
     /// inputs and every output band.
+    ///
+    /// The arithmetic saturates: a size past `u64::MAX` reads as `u64::MAX`, which no
+    /// budget admits, so an absurd request is refused rather than wrapped to a small number.
     pub fn block_bytes(&self, block: usize) -> u64 {
-        let padded = ((block + 2 * self.halo) as u64).pow(2);
-        let cells = (block as u64).pow(2);
+        let side = (block as u64).saturating_add((self.halo as u64).saturating_mul(2));
+        let padded = side.saturating_mul(side);
+        let cells = (block as u64).saturating_mul(block as u64);
         let scales: BTreeSet<u64> = self
             .terrain
             .iter()
@@ -311,14 +321,55 @@ impl StackPlan {
         let terrain = if self.terrain.is_empty() {
             0
         } else {
-            padded * (4 + 48 + 96 * scales.len() as u64)
+            padded.saturating_mul(52u64.saturating_add(96u64.saturating_mul(scales.len() as u64)))
         };
         let spectral = if self.needs_spectral() {
-            cells * 4 * (2 * self.spectral.len() as u64 + 2)
+            cells.saturating_mul(4 * (2 * self.spectral.len() as u64 + 2))
         } else {
             0
         };
-        terrain + spectral + cells * 4 * self.bands.len() as u64 * 2
+        terrain
+            .saturating_add(spectral)
+            .saturating_add(cells.saturating_mul(8 * self.bands.len() as u64))
+    }
+
+    /// Cells of the target grid (width × height; at most 2⁴⁴, as each side is at most
+    /// [`crate::grid::MAX_DIMENSION`]).
+    pub fn cells(&self) -> u64 {
+        self.target.width as u64 * self.target.height as u64
+    }
+
+    /// Refuse a target grid of more than `limit` cells, naming the size and the flag that
+    /// raises the limit. Catches a mistyped `--resolution` (1e-5 m over a 20 m site is a
+    /// 2,000,000 x 1,500,000 grid) before a run that would not end.
+    pub fn check_cell_limit(&self, limit: u64) -> Result<()> {
+        let cells = self.cells();
+        if cells <= limit {
+            return Ok(());
+        }
+        let (w, h) = (self.target.width, self.target.height);
+        let (cx, cy) = self.target.cell_size_m(0.0).unwrap_or((f64::NAN, f64::NAN));
+        Err(Error::usage(format!(
+            "the stack's grid would be {w} x {h} = {cells} cells (cells of {cx:.3e} x {cy:.3e} m), more than the limit of {limit} cells"
+        ))
+        .with_fix(format!(
+            "check --resolution (and the DSM's cell size); to build so large a grid on purpose, raise the limit with --cell-limit {}",
+            cells
+        )))
+    }
+
+    /// Bytes the build keeps for the whole raster besides the blocks in flight: the list
+    /// of `block`-cell blocks (one [`Window`] each) and the per-band statistics. (The
+    /// writer's tile index is counted by `GeoTiffWriter::index_bytes`.)
+    pub fn raster_bytes(&self, block: usize) -> u64 {
+        let block = block.max(1) as u64;
+        let blocks = (self.target.width as u64)
+            .div_ceil(block)
+            .saturating_mul((self.target.height as u64).div_ceil(block));
+        let per_block = std::mem::size_of::<Window>() as u64;
+        blocks
+            .saturating_mul(per_block)
+            .saturating_add(self.bands.len() as u64 * 256)
     }
 
     /// Blocks of the target grid, `block` cells square, row by row from the north-west.
@@ -452,6 +503,79 @@ fn check_overlap(dsm_path: &Path, dsm: &Grid, path: &Path, grid: &Grid) -> Resul
         .with_fix("check that both files come from the same flight and CRS"));
     }
     Ok(())
+}
+
+/// Refuse a windowed feature whose window is larger than the raster: its side (2r + 1
+/// cells for a radius of r cells on the longer axis) may not pass the raster's longer
+/// side. Such a window holds fewer valid cells than the raster at every cell, so it could
+/// only give nodata or one value everywhere; refusing it also bounds the halo, and so every
+/// size computed from it, by the raster. (`window_px` saturates: a radius of 1e300 m, or a
+/// cell of 1e-300 m, gives `usize::MAX` cells and is refused here.)
+fn check_window_fits(
+    feature: &TerrainFeature,
+    (wx, wy): (usize, usize),
+    (hx, hy): (f64, f64),
+    target: &Grid,
+) -> Result<()> {
+    let Some(radius_m) = feature.scale_m() else {
+        return Ok(()); // 3x3 features and elevation: a one-cell raster is fine.
+    };
+    let longest = target.width.max(target.height) as u128;
+    let side = 2 * wx.max(wy) as u128 + 1;
+    if side <= longest {
+        return Ok(());
+    }
+    // The largest radius whose window still fits: (longest − 1) / 2 cells of the finer axis.
+    let max_cells = ((longest - 1) / 2) as f64;
+    let max_m = max_cells * hx.min(hy);
+    Err(Error::usage(format!(
+        "{} at radius {} m: the window is {} cells across on this grid ({hx:.3e} x {hy:.3e} m cells), larger than the raster ({} x {} cells)",
+        feature.feature_key(),
+        compact(radius_m),
+        compact(side as f64),
+        target.width,
+        target.height
+    ))
+    .with_fix(format!(
+        "use a radius of at most {max_m:.6} m for this raster (--scales, or WORD@METRES), or check the DSM's cell size and --resolution"
+    )))
+}
+
+/// A number for a message: as typed when moderate, in scientific notation when huge.
+fn compact(v: f64) -> String {
+    if v.abs() >= 1e7 {
+        format!("{v:.3e}")
+    } else {
+        format!("{v}")
+    }
+}
+
+/// Refuse a `--resolution` that would give the stack more than
+/// [`crate::grid::MAX_DIMENSION`] cells per side over the DSM's extent, naming the flag
+/// (the grid code would only name the DSM). Non-positive values are left to
+/// `align::target_grid_named`, which explains them.
+fn check_resolution(dsm_path: &Path, dsm: &Grid, res: f64) -> Result<()> {
+    if !(res.is_finite() && res > 0.0) {
+        return Ok(());
+    }
+    let (hx, hy) = dsm
+        .cell_size_m(dsm.height as f64 / 2.0 - 0.5)
+        .map_err(|e| e.in_file(dsm_path))?;
+    let (wm, hm) = (dsm.width as f64 * hx, dsm.height as f64 * hy);
+    let (cols, rows) = (wm / res, hm / res);
+    let max = crate::grid::MAX_DIMENSION as f64;
+    if cols <= max && rows <= max {
+        return Ok(());
+    }
+    Err(Error::usage(format!(
+        "--resolution {res} m would make a grid of about {} x {} cells over the DSM's {wm:.2} x {hm:.2} m, more than {max} cells per side",
+        compact(cols.ceil()),
+        compact(rows.ceil())
+    ))
+    .with_fix(format!(
+        "give the stack's cell size in metres (the DSM's is {hx:.4} x {hy:.4} m), e.g. --resolution {:.3}",
+        hx.max(hy)
+    )))
 }
 
 /// Smallest cell size in metres over the grid's rows (the first and last rows bound it on

@@ -527,6 +527,31 @@ impl GeoTiffReader {
         &self.metadata
     }
 
+    /// Blocks (tiles or strips, every band plane) whose bytes reach past the end of the
+    /// file, as a truncated copy leaves them: their count, the total number of blocks, and
+    /// the first one's index and end offset. Sparse blocks (offset and count 0) are not
+    /// counted. Reads nothing: it compares the directory with the file's length.
+    pub fn blocks_past_end(&self) -> (usize, usize, Option<(usize, u64)>) {
+        let mut bad = 0;
+        let mut first = None;
+        for (i, (&o, &c)) in self.offsets.iter().zip(self.counts.iter()).enumerate() {
+            if o == 0 && c == 0 {
+                continue;
+            }
+            let end = o.checked_add(c);
+            if end.map_or(true, |e| e > self.file_len) {
+                bad += 1;
+                first.get_or_insert((i, end.unwrap_or(u64::MAX)));
+            }
+        }
+        (bad, self.offsets.len(), first)
+    }
+
+    /// Length of the file in bytes when it was opened.
+    pub fn file_len(&self) -> u64 {
+        self.file_len
+    }
+
     /// Number of rows in block row `block_row` (strips at the bottom may be shorter).
     fn block_rows(&self, block_row: usize) -> usize {
         if self.tiled {

@@ -29,6 +29,11 @@ use super::{
 /// Bytes reserved for the directory and tags when estimating whether BigTIFF is needed.
 const DIRECTORY_MARGIN: u64 = 64 << 20;
 
+/// Peak bytes the writer holds per block (tile or strip of one band plane) for its index:
+/// offset, byte count and written flag while writing (8 + 8 + 1), then a copy of offsets
+/// and counts as tag values (16) and their bytes in the directory (16) in `finish`.
+pub const INDEX_BYTES_PER_BLOCK: u64 = 49;
+
 struct PendingBlock {
     data: Vec<u8>,
     bands_done: Vec<bool>,
@@ -236,6 +241,20 @@ pub struct GeoTiffWriter {
 }
 
 impl GeoTiffWriter {
+    /// Peak bytes of the tile index of a file [`create`](GeoTiffWriter::create) would
+    /// make with these arguments ([`INDEX_BYTES_PER_BLOCK`] per block): memory that grows
+    /// with the raster, for callers that keep a budget. Fails as `create` does on
+    /// impossible options.
+    pub fn index_bytes(
+        path: &Path,
+        grid: &Grid,
+        bands: usize,
+        options: &WriteOptions,
+    ) -> Result<u64> {
+        let plan = Plan::new(path, grid, bands, options)?;
+        Ok((plan.block_count() as u64).saturating_mul(INDEX_BYTES_PER_BLOCK))
+    }
+
     /// Create `path` (exactly that path: callers do temporary naming) for `bands` bands on
     /// `grid` (its CRS and nodata are written as GeoKeys and the GDAL nodata tag).
     pub fn create(
@@ -245,6 +264,24 @@ impl GeoTiffWriter {
         options: WriteOptions,
     ) -> Result<GeoTiffWriter> {
         let plan = Plan::new(path, grid, bands, &options)?;
+        // The index grows with the raster: allocate it before the file exists, and fail
+        // with the figure rather than abort when the system cannot give it.
+        let n = plan.block_count();
+        let index_error = || {
+            Error::file(
+                path,
+                format!(
+                    "the tile index of {n} blocks ({} x {} cells, {bands} bands) needs {} MiB, which the system could not allocate",
+                    grid.width,
+                    grid.height,
+                    (n as u64).saturating_mul(INDEX_BYTES_PER_BLOCK) >> 20
+                ),
+            )
+            .with_fix("write a smaller raster, fewer bands or larger tiles")
+        };
+        let offsets = zeroed::<u64>(n).ok_or_else(index_error)?;
+        let counts = zeroed::<u64>(n).ok_or_else(index_error)?;
+        let written = zeroed::<bool>(n).ok_or_else(index_error)?;
         let file = OpenOptions::new()
             .read(true)
             .write(true)
@@ -260,7 +297,6 @@ impl GeoTiffWriter {
             b"II*\0\0\0\0\0".to_vec()
         };
         tags::write_all_at(&file, &header, 0).map_err(|e| Error::io(path, e))?;
-        let n = plan.block_count();
         Ok(GeoTiffWriter {
             path: path.to_path_buf(),
             file,
@@ -269,9 +305,9 @@ impl GeoTiffWriter {
             descriptions: vec![None; bands],
             state: Mutex::new(State {
                 end: header.len() as u64,
-                offsets: vec![0; n],
-                counts: vec![0; n],
-                written: vec![false; n],
+                offsets,
+                counts,
+                written,
                 pending: HashMap::new(),
                 failure: None,
             }),
@@ -626,6 +662,14 @@ impl GeoTiffWriter {
         self.file.set_len(at + ifd.len() as u64).map_err(io)?;
         Ok(())
     }
+}
+
+/// `n` default values, or `None` when the allocation fails (instead of aborting).
+fn zeroed<T: Default + Clone>(n: usize) -> Option<Vec<T>> {
+    let mut v = Vec::new();
+    v.try_reserve_exact(n).ok()?;
+    v.resize(n, T::default());
+    Some(v)
 }
 
 /// GDAL's text for a nodata value: "nan", "inf", "-inf", or the shortest decimal that
