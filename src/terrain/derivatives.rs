@@ -25,7 +25,7 @@ use ndarray::{Array2, ArrayView2, Zip};
 use rayon::prelude::*;
 
 use super::arctan::select;
-use super::{curvature, slope, RowSizes, SlopeMethod};
+use super::{curvature, slope, DsmSample, RowSizes, SlopeMethod};
 use crate::terrain::roughness::tri_3x3;
 
 /// Partial derivatives at one cell (units: p, q unitless; r, s, t in 1/m).
@@ -49,7 +49,9 @@ impl Pqrst {
     };
 }
 
-/// Partial derivatives over a region, one array each (NaN where unavailable).
+/// Partial derivatives over a region, one array each (NaN where unavailable), and the
+/// squared gradient below which the slope direction is undefined at each cell
+/// (`g_min`, see [`curvature::GRADIENT_SIGNIFICANCE`]).
 #[derive(Clone, Debug)]
 pub struct Derivatives {
     pub p: Array2<f64>,
@@ -57,6 +59,7 @@ pub struct Derivatives {
     pub r: Array2<f64>,
     pub s: Array2<f64>,
     pub t: Array2<f64>,
+    pub g_min: Array2<f64>,
 }
 
 impl Derivatives {
@@ -68,6 +71,7 @@ impl Derivatives {
             r: Array2::from_elem(dim, f64::NAN),
             s: Array2::from_elem(dim, f64::NAN),
             t: Array2::from_elem(dim, f64::NAN),
+            g_min: Array2::from_elem(dim, f64::NAN),
         }
     }
 
@@ -93,6 +97,62 @@ pub fn pqrst_3x3(w: &[f64; 9], hx: f64, hy: f64, method: SlopeMethod) -> Option<
     Some(pqrst_unchecked(
         z1, z2, z3, z4, z5, z6, z7, z8, z9, hx, hy, method,
     ))
+}
+
+/// The squared gradient g = p² + q² below which the slope direction at the centre of the
+/// nine elevations `w` is undefined for `method`: g_min = k²·σ̂²·(v/hx² + v/hy²)/2, where
+/// σ̂² = RSS/3 is the elevation noise left by the least-squares quadratic through the nine
+/// cells (9 cells, 6 coefficients), v·σ²/h² the variance of the estimator's p per unit
+/// elevation noise (Horn 3/16, Zevenbergen–Thorne 1/2, Evans–Young 1/6: sums of squared
+/// weights; METHODS.md's 0.433, 0.707, 0.408 are their roots) and k =
+/// [`curvature::GRADIENT_SIGNIFICANCE`]. NaN when a cell is not finite.
+pub fn gradient_floor_3x3(w: &[f64; 9], hx: f64, hy: f64, method: SlopeMethod) -> f64 {
+    let [z1, z2, z3, z4, z5, z6, z7, z8, z9] = *w;
+    rss_3x3(z1, z2, z3, z4, z5, z6, z7, z8, z9) * floor_factor(hx, hy, method)
+}
+
+/// g_min per unit residual sum of squares: k²·v·(1/hx² + 1/hy²)/(2·3).
+#[inline(always)]
+fn floor_factor(hx: f64, hy: f64, method: SlopeMethod) -> f64 {
+    let v = match method {
+        SlopeMethod::Horn => 3.0 / 16.0,
+        SlopeMethod::ZevenbergenThorne => 0.5,
+        SlopeMethod::EvansYoung | SlopeMethod::Quadratic => 1.0 / 6.0,
+    };
+    let k = curvature::GRADIENT_SIGNIFICANCE;
+    k * k * v * (1.0 / (hx * hx) + 1.0 / (hy * hy)) / 6.0
+}
+
+/// Residual sum of squares (m²) of the least-squares quadratic a·i² + b·j² + c·ij + d·i +
+/// e·j + f through the nine cells, from the orthogonal basis 1, i, j, i² − 2/3, j² − 2/3,
+/// ij of the 3x3 grid (norms 9, 6, 6, 2, 2, 4), on differences from the centre so that
+/// high elevations lose nothing. Never negative; NaN when a cell is not finite.
+#[allow(clippy::too_many_arguments)]
+#[inline(always)]
+fn rss_3x3(z1: f64, z2: f64, z3: f64, z4: f64, z5: f64, z6: f64, z7: f64, z8: f64, z9: f64) -> f64 {
+    let (d1, d2, d3, d4, d6, d7, d8, d9) = (
+        z1 - z5,
+        z2 - z5,
+        z3 - z5,
+        z4 - z5,
+        z6 - z5,
+        z7 - z5,
+        z8 - z5,
+        z9 - z5,
+    );
+    let s0 = d1 + d2 + d3 + d4 + d6 + d7 + d8 + d9;
+    let si = (d3 + d6 + d9) - (d1 + d4 + d7);
+    let sj = (d1 + d2 + d3) - (d7 + d8 + d9);
+    let sii = (d1 + d3 + d4 + d6 + d7 + d9) - (2.0 / 3.0) * s0;
+    let sjj = (d1 + d2 + d3 + d7 + d8 + d9) - (2.0 / 3.0) * s0;
+    let sij = d3 + d7 - d1 - d9;
+    let ss = d1 * d1 + d2 * d2 + d3 * d3 + d4 * d4 + d6 * d6 + d7 * d7 + d8 * d8 + d9 * d9;
+    let rss = ss
+        - s0 * s0 / 9.0
+        - (si * si + sj * sj) / 6.0
+        - (sii * sii + sjj * sjj) / 2.0
+        - sij * sij / 4.0;
+    select(rss < 0.0, 0.0, rss)
 }
 
 /// The estimators' formulas, without the validity check.
@@ -168,7 +228,7 @@ pub fn estimate_region(
     let mut d = Derivatives::nan(dim);
     let row0 = rows.start;
     let col0 = cols.start;
-    let results: Vec<Vec<Pqrst>> = (0..dim.0)
+    let results: Vec<Vec<(Pqrst, f64)>> = (0..dim.0)
         .into_par_iter()
         .map(|i| {
             let row = row0 + i;
@@ -177,14 +237,18 @@ pub fn estimate_region(
                 .map(|j| {
                     let col = col0 + j;
                     window_3x3(zs, row, col)
-                        .and_then(|w| pqrst_3x3(&w, hx, hy, method))
-                        .unwrap_or(Pqrst::NAN)
+                        .and_then(|w| {
+                            let d = pqrst_3x3(&w, hx, hy, method)?;
+                            Some((d, gradient_floor_3x3(&w, hx, hy, method)))
+                        })
+                        .unwrap_or((Pqrst::NAN, f64::NAN))
                 })
                 .collect()
         })
         .collect();
     for (i, row) in results.into_iter().enumerate() {
-        for (j, v) in row.into_iter().enumerate() {
+        for (j, (v, g_min)) in row.into_iter().enumerate() {
+            d.g_min[[i, j]] = g_min;
             d.p[[i, j]] = v.p;
             d.q[[i, j]] = v.q;
             d.r[[i, j]] = v.r;
@@ -249,7 +313,7 @@ pub enum Pointwise {
 }
 
 impl Pointwise {
-    /// The value at one cell.
+    /// The value at one cell by the closed-form formula (kn, kt, kc NaN only where g = 0).
     #[inline]
     pub fn eval(self, d: &Pqrst) -> f64 {
         match self {
@@ -265,14 +329,28 @@ impl Pointwise {
         }
     }
 
+    /// The value at one cell as a layer carries it: kn, kt and kc are NaN where the
+    /// squared gradient is at most `g_min`, the estimator's noise (see
+    /// [`curvature::directional`]); every other function is [`Pointwise::eval`].
+    #[inline]
+    pub fn eval_gated(self, d: &Pqrst, g_min: f64) -> f64 {
+        match self {
+            Pointwise::Profile => curvature::directional(curvature::profile(d), d, g_min),
+            Pointwise::Plan => curvature::directional(curvature::plan(d), d, g_min),
+            Pointwise::Tangential => curvature::directional(curvature::tangential(d), d, g_min),
+            other => other.eval(d),
+        }
+    }
+
     /// Writes the value of every cell of `d` (one chunk of a row) into `out`, one
     /// specialised loop per function so the compiler can vectorise it.
     #[inline(always)]
     fn fill(self, d: &RowDerivs, out: &mut [f32]) {
         #[inline(always)]
-        fn each(d: &RowDerivs, out: &mut [f32], f: impl Fn(&Pqrst) -> f64) {
+        fn each(d: &RowDerivs, out: &mut [f32], f: impl Fn(&Pqrst, f64) -> f64) {
             let n = out.len();
             let (p, q, r, s, t) = (&d.p[..n], &d.q[..n], &d.r[..n], &d.s[..n], &d.t[..n]);
+            let g_min = &d.g_min[..n];
             for j in 0..n {
                 let v = Pqrst {
                     p: p[j],
@@ -281,19 +359,22 @@ impl Pointwise {
                     s: s[j],
                     t: t[j],
                 };
-                out[j] = f(&v) as f32;
+                out[j] = f(&v, g_min[j]) as f32;
             }
         }
+        use curvature::directional;
         match self {
-            Pointwise::Slope => each(d, out, slope::slope_deg),
-            Pointwise::Aspect => each(d, out, slope::aspect_deg),
-            Pointwise::Northness => each(d, out, slope::northness),
-            Pointwise::Eastness => each(d, out, slope::eastness),
-            Pointwise::Profile => each(d, out, curvature::profile),
-            Pointwise::Plan => each(d, out, curvature::plan),
-            Pointwise::Tangential => each(d, out, curvature::tangential),
-            Pointwise::Mean => each(d, out, curvature::mean),
-            Pointwise::Gaussian => each(d, out, curvature::gaussian),
+            Pointwise::Slope => each(d, out, |v, _| slope::slope_deg(v)),
+            Pointwise::Aspect => each(d, out, |v, _| slope::aspect_deg(v)),
+            Pointwise::Northness => each(d, out, |v, _| slope::northness(v)),
+            Pointwise::Eastness => each(d, out, |v, _| slope::eastness(v)),
+            Pointwise::Profile => each(d, out, |v, g| directional(curvature::profile(v), v, g)),
+            Pointwise::Plan => each(d, out, |v, g| directional(curvature::plan(v), v, g)),
+            Pointwise::Tangential => {
+                each(d, out, |v, g| directional(curvature::tangential(v), v, g))
+            }
+            Pointwise::Mean => each(d, out, |v, _| curvature::mean(v)),
+            Pointwise::Gaussian => each(d, out, |v, _| curvature::gaussian(v)),
         }
     }
 }
@@ -318,6 +399,7 @@ struct RowDerivs {
     r: Vec<f64>,
     s: Vec<f64>,
     t: Vec<f64>,
+    g_min: Vec<f64>,
 }
 
 impl RowDerivs {
@@ -328,6 +410,7 @@ impl RowDerivs {
             r: vec![0.0; CHUNK],
             s: vec![0.0; CHUNK],
             t: vec![0.0; CHUNK],
+            g_min: vec![0.0; CHUNK],
         }
     }
 
@@ -360,14 +443,22 @@ impl RowDerivs {
             &mut self.s[..n],
             &mut self.t[..n],
         );
+        let g_min = &mut self.g_min[..n];
+        let floor = floor_factor(hx, hy, method);
         for j in 0..n {
             let (z1, z2, z3) = (a[j], a[j + 1], a[j + 2]);
             let (z4, z5, z6) = (b[j], b[j + 1], b[j + 2]);
             let (z7, z8, z9) = (c[j], c[j + 1], c[j + 2]);
-            // Not finite when any cell is NaN or infinite (nine f32 values cannot overflow).
+            // Not finite when any cell is NaN or infinite (or, for values no elevation
+            // reaches, when the sum overflows: those cells are NaN too).
             let all = z1 + z2 + z3 + z4 + z5 + z6 + z7 + z8 + z9;
             let d = pqrst_unchecked(z1, z2, z3, z4, z5, z6, z7, z8, z9, hx, hy, method);
             let ok = all.is_finite();
+            g_min[j] = select(
+                ok,
+                rss_3x3(z1, z2, z3, z4, z5, z6, z7, z8, z9) * floor,
+                f64::NAN,
+            );
             p[j] = select(ok, d.p, f64::NAN);
             q[j] = select(ok, d.q, f64::NAN);
             r[j] = select(ok, d.r, f64::NAN);
@@ -401,10 +492,10 @@ fn tri_row(rows: [&[f64]; 3], n: usize, out: &mut [f32]) {
     }
 }
 
-/// f32 elevations times the z-factor, as f64.
-fn widen(src: &[f32], z_factor: f64, out: &mut [f64]) {
+/// Stored elevations (f32 or f64) times the z-factor, as f64: exact widening, one rounding.
+fn widen<T: DsmSample>(src: &[T], z_factor: f64, out: &mut [f64]) {
     for (d, &v) in out.iter_mut().zip(src) {
-        *d = v as f64 * z_factor;
+        *d = v.into() * z_factor;
     }
 }
 
@@ -489,14 +580,15 @@ fn wide_vectors_available() -> bool {
     }
 }
 
-/// Evaluates `jobs` for the interior of `z` (elevations × `z_factor`, NaN = nodata) in one
+/// Evaluates `jobs` for the interior of `z` (elevations × `z_factor`, NaN = nodata; f32 or
+/// f64 as stored, widened exactly to f64, so an f64 DSM keeps its precision) in one
 /// pass: each row's three input lines are converted once, each needed estimator runs once
 /// per chunk of columns, and every requested output is written straight into its array.
 /// Rows run in parallel; each value is a pointwise function of nine cells and the centre
 /// row's cell sizes, so results do not depend on blocks or threads. Cells whose window
 /// leaves `z` are NaN. O(1) per cell.
-pub fn fused_3x3(
-    z: ArrayView2<f32>,
+pub fn fused_3x3<T: DsmSample>(
+    z: ArrayView2<T>,
     z_factor: f64,
     sizes: RowSizes,
     halo: usize,
@@ -552,7 +644,7 @@ pub fn fused_3x3(
                             Some(src) => widen(src, z_factor, line),
                             None => {
                                 for (d, &v) in line.iter_mut().zip(src.iter()) {
-                                    *d = v as f64 * z_factor;
+                                    *d = v.into() * z_factor;
                                 }
                             }
                         }
@@ -645,14 +737,32 @@ mod tests {
 
     #[test]
     fn fused_pass_equals_cell_by_cell_evaluation() {
-        // Reference: pqrst_3x3 and the pointwise functions cell by cell (the scalar form of
-        // the METHODS.md formulas); the row loops must give the same bits, NaN included,
-        // on a random surface with holes, infinities, a z-factor and geographic rows.
+        // Reference: pqrst_3x3, gradient_floor_3x3 and the pointwise functions cell by cell
+        // (the scalar form of the METHODS.md formulas); the row loops (the AVX2 build on a
+        // CPU that has it) must give the same bits, NaN included, on a random surface with
+        // holes, infinities, a z-factor and geographic rows.
         use crate::terrain::test_support::{random_dem, SplitMix64};
         let mut rng = SplitMix64::new(17);
         let mut z = random_dem(&mut rng, 37, 300, 0.03);
         z[[5, 7]] = f32::INFINITY;
         z[[9, 290]] = f32::NEG_INFINITY;
+        fused_matches_reference(z.view());
+    }
+
+    #[test]
+    fn fused_pass_on_f64_elevations_equals_cell_by_cell_evaluation() {
+        // The same bit-for-bit check on an f64 DSM at a high elevation with detail far
+        // below f32's spacing there (1500 m: 1.2e-4 m), so the f64 path is the one tested.
+        use crate::terrain::test_support::{random_dem, SplitMix64};
+        let mut rng = SplitMix64::new(23);
+        let base = random_dem(&mut rng, 37, 300, 0.03);
+        let mut z = base.mapv(|v| 1400.0 + v as f64 + 1e-7 * rng.next_f64());
+        z[[5, 7]] = f64::INFINITY;
+        z[[9, 290]] = f64::NEG_INFINITY;
+        fused_matches_reference(z.view());
+    }
+
+    fn fused_matches_reference<T: DsmSample>(z: ArrayView2<T>) {
         let fns = [
             Pointwise::Slope,
             Pointwise::Aspect,
@@ -678,7 +788,7 @@ mod tests {
             hy: vec![2.5; 37],
         };
         for halo in [0usize, 1, 3] {
-            let got = fused_3x3(z.view(), zf, RowSizes::new(&cells), halo, &jobs);
+            let got = fused_3x3(z, zf, RowSizes::new(&cells), halo, &jobs);
             let (nr, nc) = z.dim();
             for i in 0..nr - 2 * halo {
                 for j in 0..nc - 2 * halo {
@@ -686,7 +796,7 @@ mod tests {
                     let w = (row >= 1 && col >= 1 && row + 1 < nr && col + 1 < nc).then(|| {
                         let mut w = [0.0; 9];
                         for (k, v) in w.iter_mut().enumerate() {
-                            *v = z[[row + k / 3 - 1, col + k % 3 - 1]] as f64 * zf;
+                            *v = z[[row + k / 3 - 1, col + k % 3 - 1]].into() * zf;
                         }
                         w
                     });
@@ -702,8 +812,10 @@ mod tests {
                                 }
                             }
                             (PointJob::Derivative(m, f), Some(w)) => {
-                                pqrst_3x3(&w, sizes.hx(row), sizes.hy(row), *m)
-                                    .map_or(f64::NAN, |d| f.eval(&d))
+                                let (hx, hy) = (sizes.hx(row), sizes.hy(row));
+                                let g_min = gradient_floor_3x3(&w, hx, hy, *m);
+                                pqrst_3x3(&w, hx, hy, *m)
+                                    .map_or(f64::NAN, |d| f.eval_gated(&d, g_min))
                                     as f32
                             }
                         };

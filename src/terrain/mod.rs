@@ -1,7 +1,8 @@
 //! Terrain derivatives of a DSM block: the kernels the stack executor calls.
 //!
-//! Every kernel is a pure function of one block of elevations plus its halo (f32, NaN =
-//! nodata) and the block's cell sizes in metres per row. [`compute`] evaluates a list of
+//! Every kernel is a pure function of one block of elevations plus its halo (f32 or f64 as
+//! the DSM stores them, NaN = nodata; see [`DsmSample`]) and the block's cell sizes in
+//! metres per row. [`compute`] evaluates a list of
 //! [`TerrainFeature`]s in one pass, sharing intermediates: one set of 3x3 partial
 //! derivatives per estimator, one set of exact window sums per window radius and shape.
 //!
@@ -26,6 +27,7 @@ pub mod catalogue;
 pub mod curvature;
 pub mod derivatives;
 pub mod position;
+pub mod precision;
 pub mod quadratic_fit;
 pub mod roughness;
 pub mod running_extrema;
@@ -43,6 +45,32 @@ use crate::grid::CellSizes;
 pub use catalogue::{catalogue, FeatureDoc};
 use derivatives::{Derivatives, Pointwise};
 use window_sums::{Layout, QuantisedField};
+
+/// A stored elevation sample: f32 or f64. Kernels widen it exactly to f64 (then multiply
+/// by the z-factor), so an f64 DSM keeps its precision through every kernel and is
+/// rounded once, to the f32 of the output band. Two windowed paths quantise elevations
+/// (exact integer sums, for bit-identical blocks): TPI, DEV and roughness to 2⁻²⁰ m
+/// (error ≤ 0.48 µm per cell, see [`window_sums`]), and the multi-scale quadratic fit to
+/// the same quantum (its effect on curvature is stated in [`quadratic_fit`]); the 3x3
+/// estimators, VRM and the window extrema work on the f64 values themselves.
+pub trait DsmSample: Copy + Send + Sync + Into<f64> + 'static {
+    /// The storage precision's spacing (ulp) at elevation `z`, metres (before the z factor).
+    fn spacing_at(z: f64) -> f64;
+}
+
+impl DsmSample for f32 {
+    fn spacing_at(z: f64) -> f64 {
+        let z = (z.abs() as f32).max(f32::MIN_POSITIVE);
+        (f32::from_bits(z.to_bits() + 1) - z) as f64
+    }
+}
+
+impl DsmSample for f64 {
+    fn spacing_at(z: f64) -> f64 {
+        let z = z.abs().max(f64::MIN_POSITIVE);
+        f64::from_bits(z.to_bits() + 1) - z
+    }
+}
 
 /// How first and second partial derivatives are estimated.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -696,9 +724,9 @@ struct DerivKey {
 ///
 /// The block's halo must be at least [`TerrainFeature::halo_px`] of every feature for the
 /// interior to be complete; cells the window would need beyond the array count as nodata.
-pub fn compute(
+pub fn compute<T: DsmSample>(
     features: &[TerrainFeature],
-    z: ArrayView2<f32>,
+    z: ArrayView2<T>,
     cells: &CellSizes,
     halo: usize,
     reference_z: f64,
@@ -750,7 +778,7 @@ pub fn compute(
     }
 
     // Elevations in metres (f64), NaN = nodata.
-    let zs: Array2<f64> = z.mapv(|v| v as f64 * zf);
+    let zs: Array2<f64> = z.mapv(|v| v.into() * zf);
     let interior = |a: &Array2<f64>| -> Array2<f32> {
         a.slice(s![halo..halo + out_r, halo..halo + out_c])
             .mapv(|v| v as f32)
@@ -936,15 +964,9 @@ pub fn compute(
                 let dv = &derivs[&key];
                 let mut o = Array2::<f32>::zeros((out_r, out_c));
                 let pointwise = f.pointwise().expect("derivative feature");
-                Zip::from(&mut o)
-                    .and(&dv.p)
-                    .and(&dv.q)
-                    .and(&dv.r)
-                    .and(&dv.s)
-                    .and(&dv.t)
-                    .par_for_each(|o, &p, &q, &r, &s, &t| {
-                        *o = pointwise.eval(&derivatives::Pqrst { p, q, r, s, t }) as f32;
-                    });
+                Zip::indexed(&mut o).par_for_each(|(i, j), o| {
+                    *o = pointwise.eval_gated(&dv.at(i, j), dv.g_min[[i, j]]) as f32;
+                });
                 o
             }
         };
