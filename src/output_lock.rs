@@ -6,7 +6,10 @@
 //! ends in any way, kill -9 included, so a lock never stays stuck. The holder writes its
 //! PID, command line and start time into the file, so that a refused run names it.
 //!
-//! A finished holder removes the lock file while still holding the lock. A run that
+//! Shards of one batch share its output root: they take the root's lock shared, which
+//! only an exclusive holder (an unsharded run) conflicts with.
+//!
+//! A finished exclusive holder removes the lock file while still holding the lock. A run that
 //! locked a file which has meanwhile been removed or replaced (its device and inode no
 //! longer at the path) tries again on the new one, so two runs never both hold the lock.
 
@@ -21,11 +24,12 @@ use crate::input_guard::{file_identity, identity_of};
 /// Name of the lock file of an output folder.
 pub const FOLDER_LOCK: &str = ".terrastack.lock";
 
-/// A held lock; released (and its file removed) when dropped.
+/// A held lock; released (and, when exclusive, its file removed) when dropped.
 #[derive(Debug)]
 pub struct OutputLock {
     file: File,
     path: PathBuf,
+    shared: bool,
 }
 
 impl OutputLock {
@@ -46,16 +50,23 @@ impl OutputLock {
     /// Lock output folder `dir` (which must exist) for this process, or refuse naming the
     /// folder and the process that holds it.
     pub fn folder(dir: &Path) -> Result<OutputLock> {
-        OutputLock::acquire(&OutputLock::folder_lock_path(dir), dir)
+        OutputLock::acquire(&OutputLock::folder_lock_path(dir), dir, false)
+    }
+
+    /// Lock output folder `dir` shared with other shared holders and against exclusive
+    /// ones (shards of one batch share its output root; a whole run excludes them all).
+    /// A shared holder leaves the lock file in place when it ends (others may hold it).
+    pub fn folder_shared(dir: &Path) -> Result<OutputLock> {
+        OutputLock::acquire(&OutputLock::folder_lock_path(dir), dir, true)
     }
 
     /// Lock output file `path` (its folder must exist) for this process, or refuse naming
     /// the file and the process that holds it.
     pub fn file(path: &Path) -> Result<OutputLock> {
-        OutputLock::acquire(&OutputLock::file_lock_path(path), path)
+        OutputLock::acquire(&OutputLock::file_lock_path(path), path, false)
     }
 
-    fn acquire(lock_path: &Path, what: &Path) -> Result<OutputLock> {
+    fn acquire(lock_path: &Path, what: &Path, shared: bool) -> Result<OutputLock> {
         loop {
             let mut file = OpenOptions::new()
                 .read(true)
@@ -64,7 +75,12 @@ impl OutputLock {
                 .truncate(false)
                 .open(lock_path)
                 .map_err(|e| Error::io(what, e))?;
-            match file.try_lock() {
+            let locked = if shared {
+                file.try_lock_shared()
+            } else {
+                file.try_lock()
+            };
+            match locked {
                 Ok(()) => {}
                 Err(TryLockError::WouldBlock) => {
                     let mut holder = String::new();
@@ -105,16 +121,18 @@ impl OutputLock {
             return Ok(OutputLock {
                 file,
                 path: lock_path.to_path_buf(),
+                shared,
             });
         }
     }
 }
 
 impl Drop for OutputLock {
-    /// Remove the lock file while the lock is still held, then release it.
+    /// Remove the lock file while the lock is still held (exclusive locks only), then
+    /// release it.
     fn drop(&mut self) {
         let ours = self.file.metadata().ok().and_then(|m| identity_of(&m));
-        if ours.is_none() || ours == file_identity(&self.path) {
+        if !self.shared && (ours.is_none() || ours == file_identity(&self.path)) {
             let _ = fs::remove_file(&self.path);
         }
         let _ = self.file.unlock();
@@ -182,6 +200,22 @@ mod tests {
         assert!(OutputLock::file(&table).is_err());
         drop(lock);
         assert_eq!(fs::read_dir(dir).unwrap().count(), 0);
+    }
+
+    #[test]
+    fn shared_holders_exclude_an_exclusive_one_only() {
+        let tmp = tempfile::tempdir().unwrap();
+        let a = OutputLock::folder_shared(tmp.path()).unwrap();
+        let b = OutputLock::folder_shared(tmp.path()).unwrap();
+        let e = OutputLock::folder(tmp.path()).unwrap_err().to_string();
+        assert!(e.contains("another terrastack run"), "{e}");
+        drop(a);
+        assert!(OutputLock::folder(tmp.path()).is_err());
+        drop(b);
+        let whole = OutputLock::folder(tmp.path()).unwrap();
+        assert!(OutputLock::folder_shared(tmp.path()).is_err());
+        drop(whole);
+        assert_eq!(fs::read_dir(tmp.path()).unwrap().count(), 0);
     }
 
     #[test]

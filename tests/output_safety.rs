@@ -172,6 +172,24 @@ fn batch_root_and_sample_table_are_locked_too() {
     let o = run(&["batch", &p(tmp.path(), "flights.toml"), "--quiet"]);
     assert!(o.status.success(), "{}", stderr(&o));
     assert!(!root.join(".terrastack.lock").exists());
+    // Shards of one batch share the root (a shared lock); a whole run excludes them.
+    let shard_peer = OutputLock::folder_shared(&root).unwrap();
+    let o = run(&[
+        "batch",
+        &p(tmp.path(), "flights.toml"),
+        "--quiet",
+        "--shard",
+        "0/2",
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let o = run(&["batch", &p(tmp.path(), "flights.toml"), "--quiet"]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(
+        stderr(&o).contains("another terrastack run"),
+        "{}",
+        stderr(&o)
+    );
+    drop(shard_peer);
 
     // sample: the table's lock lives beside it.
     let stack = root.join("flights/a");

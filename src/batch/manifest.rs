@@ -393,7 +393,7 @@ pub fn check_date(date: &str) -> std::result::Result<(), String> {
     let year: u32 = date[0..4].parse().expect("digits");
     let month: u32 = date[5..7].parse().expect("digits");
     let day: u32 = date[8..10].parse().expect("digits");
-    let leap = (year % 4 == 0 && year % 100 != 0) || year % 400 == 0;
+    let leap = (year.is_multiple_of(4) && !year.is_multiple_of(100)) || year.is_multiple_of(400);
     let days = match month {
         1 | 3 | 5 | 7 | 8 | 10 | 12 => 31,
         4 | 6 | 9 | 11 => 30,

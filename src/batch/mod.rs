@@ -10,7 +10,8 @@
 //!
 //! Output root layout: `flights/ID/` (each flight's stack), `temporal/` (the
 //! multi-temporal stack), `ledger/ID.json` (finished-flight records),
-//! `ledger-temporal.json`, and `batch-report.json`.
+//! `ledger-temporal.json`, `batch-report.json`, and `.terrastack.lock` while a run holds
+//! the root (exclusively; shards share it).
 //!
 //! Order of work for one flight: hash its inputs; estimate its shift against the reference
 //! flight (or take it from the ledger when the inputs are unchanged); derive its grid and
@@ -191,8 +192,13 @@ pub fn run(
     input_guard::refuse_output_over_input(&output_paths(manifest, &root), &batch_inputs(manifest))
         .map_err(|e| e.in_file(&manifest.path))?;
     std::fs::create_dir_all(root.join(FLIGHTS_DIR)).map_err(|e| Error::io(&root, e))?;
-    // One batch at a time per output root; temporary files of killed runs go under the lock.
-    let _lock = OutputLock::folder(&root)?;
+    // One batch at a time per output root (shards of one batch share it; each flight's
+    // folder is locked by its build); temporary files of killed runs go under the lock.
+    let _lock = if options.shard.is_all() {
+        OutputLock::folder(&root)?
+    } else {
+        OutputLock::folder_shared(&root)?
+    };
     atomic_file::remove_stale_partials(&root, None);
     atomic_file::remove_stale_partials(&root.join(ledger::LEDGER_DIR), None);
 

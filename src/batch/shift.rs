@@ -96,7 +96,7 @@ pub fn phase_correlation(reference: ArrayView2<f32>, moving: ArrayView2<f32>) ->
     // Gaussian weight per frequency (cycles per cell, signed); the Nyquist bins of even
     // sides get no weight so that the weighted spectrum stays Hermitian.
     let freq = |k: usize, len: usize| -> Option<f64> {
-        if len % 2 == 0 && k == len / 2 {
+        if len.is_multiple_of(2) && k == len / 2 {
             None
         } else if k > len / 2 {
             Some((k as f64 - len as f64) / len as f64)

@@ -164,7 +164,7 @@ fn packbits_decode(data: &[u8], expected: usize) -> Vec<u8> {
                 break;
             }
             let len = 1 - n as isize;
-            out.extend(std::iter::repeat(data[i]).take(len as usize));
+            out.extend(std::iter::repeat_n(data[i], len as usize));
             i += 1;
         }
     }

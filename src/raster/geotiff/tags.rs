@@ -473,7 +473,7 @@ pub fn build_ifd(mut entries: Vec<(u16, OutValue)>, at: u64, big: bool) -> Vec<u
             }
         }
     }
-    out.extend(std::iter::repeat(0u8).take(next_size as usize));
+    out.extend(std::iter::repeat_n(0u8, next_size as usize));
     out.extend_from_slice(&extra);
     out
 }
