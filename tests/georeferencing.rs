@@ -172,7 +172,7 @@ fn four_orientations_give_bit_identical_layers() {
             &dsm_path,
             &grid,
             o,
-            &[dsm.clone()],
+            std::slice::from_ref(&dsm),
             &["elevation"],
             SampleType::F32,
         );
@@ -241,7 +241,7 @@ fn south_up_plane_has_its_true_aspect() {
             &path,
             &grid,
             o,
-            &[plane.clone()],
+            std::slice::from_ref(&plane),
             &["elevation"],
             SampleType::F32,
         );
@@ -527,7 +527,7 @@ fn gdal_source_reads_flipped_files_as_north_up() {
             &path,
             &grid,
             o,
-            &[data.clone()],
+            std::slice::from_ref(&data),
             &["elevation"],
             SampleType::F32,
         );
