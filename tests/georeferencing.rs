@@ -172,7 +172,7 @@ fn four_orientations_give_bit_identical_layers() {
             &dsm_path,
             &grid,
             o,
-            &[dsm.clone()],
+            std::slice::from_ref(&dsm),
             &["elevation"],
             SampleType::F32,
         );
@@ -241,7 +241,7 @@ fn south_up_plane_has_its_true_aspect() {
             &path,
             &grid,
             o,
-            &[plane.clone()],
+            std::slice::from_ref(&plane),
             &["elevation"],
             SampleType::F32,
         );
@@ -407,12 +407,12 @@ fn web_mercator_slopes_use_ground_metres() {
 
 #[test]
 fn utm_far_outside_its_zone_refused() {
-    // A UTM 33N grid 700 km east of the central meridian: scale factor ≈ 1.0056.
+    // A UTM 33N grid 1000 km east of the central meridian: scale factor ≈ 1.0119.
     let tmp = tempdir();
     let grid = Grid::new(
         30,
         20,
-        [1_200_000.0, 0.5, 0.0, 5e6, 0.0, -0.5],
+        [1_500_000.0, 0.5, 0.0, 5e6, 0.0, -0.5],
         Crs::from_epsg(32633),
     )
     .unwrap();
@@ -527,7 +527,7 @@ fn gdal_source_reads_flipped_files_as_north_up() {
             &path,
             &grid,
             o,
-            &[data.clone()],
+            std::slice::from_ref(&data),
             &["elevation"],
             SampleType::F32,
         );
@@ -546,4 +546,53 @@ fn gdal_source_reads_flipped_files_as_north_up() {
             o.describe()
         );
     }
+}
+
+#[test]
+fn web_mercator_sample_radius_is_in_ground_metres() {
+    // A sample circle of 3 ground metres on a Web Mercator stack at 24.38° N covers the
+    // cells whose centres lie within 3 m on the ground, the cells being N(φ)·cos φ/a ≈
+    // 0.911 ground metres wide and M(φ)·cos φ/a high (Guidance Note 7-2 §1.3.3.2): more
+    // cells than the 29 a 1 m reading of grid metres would give.
+    let tmp = tempdir();
+    let grid = Grid::new(
+        40,
+        40,
+        [-11_169_055.5, 1.0, 0.0, 2_800_020.0, 0.0, -1.0],
+        Crs::from_epsg(3857),
+    )
+    .unwrap();
+    let dsm = tmp.path().join("dsm.tif");
+    write_dsm(&dsm, &grid, &east_ramp(&grid, 0.1));
+    let out = tmp.path().join("stack");
+    build_lib(&dsm, None, vec!["elevation".into()], &out);
+    let (x, y) = grid.cell_centre(20.0, 20.0);
+    let samples = tmp.path().join("s.csv");
+    fs::write(&samples, format!("x,y,class,radius_m\n{x},{y},meadow,3\n")).unwrap();
+    let table = tmp.path().join("t.csv");
+    let o = run(&[
+        "sample",
+        "--stack",
+        out.to_str().unwrap(),
+        "--samples",
+        samples.to_str().unwrap(),
+        "--out",
+        table.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let rows = fs::read_to_string(&table).unwrap().lines().count() - 1;
+    let a_deg = WGS84_A * std::f64::consts::PI / 180.0;
+    let phi = terrastack::grid::pseudo_mercator_latitude(y);
+    let (m_lat, m_lon) = metres_per_degree(phi);
+    let (hx, hy) = (m_lon / a_deg, m_lat * phi.to_radians().cos() / a_deg);
+    let mut expect = 0;
+    for dr in -5i32..=5 {
+        for dc in -5i32..=5 {
+            if (dc as f64 * hx).powi(2) + (dr as f64 * hy).powi(2) <= 9.0 {
+                expect += 1;
+            }
+        }
+    }
+    assert!(expect > 29, "{expect}");
+    assert_eq!(rows, expect);
 }

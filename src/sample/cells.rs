@@ -32,7 +32,13 @@ pub struct Footprint {
 pub fn metres_per_unit(grid: &Grid, y: f64) -> Result<(f64, f64)> {
     match grid.crs.kind {
         CrsKind::Projected => match grid.crs.linear_unit_m {
-            Some(u) => Ok((u, u)),
+            // Ground metres per unit at the point's row: the unit, corrected by the
+            // projection's scale where grid.rs does so (Mercator grids).
+            Some(_) => {
+                let (_, row) = grid.to_cell(grid.transform[0], y);
+                let (hx, hy) = grid.cell_size_m(row - 0.5)?;
+                Ok((hx / grid.res_x(), hy / grid.res_y()))
+            }
             None => Err(Error::usage(format!(
                 "the linear unit of the stack's CRS ({}) is not known, so radii and block sizes in metres cannot be converted",
                 grid.crs.label()

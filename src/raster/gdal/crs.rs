@@ -57,6 +57,7 @@ pub fn crs_from_srs(srs: &SpatialRef) -> Result<Crs> {
         linear_unit_m,
         vertical_epsg,
         name: srs.name().filter(|n| !n.is_empty()),
+        definition: None,
     })
 }
 

@@ -162,7 +162,10 @@ impl GeoTiffReader {
     /// Open `path` and read its directory and georeferencing. Fails with a message naming
     /// the file and a fix for: a missing file, a non-TIFF, a truncated or corrupt
     /// directory, sample types or compressions terrastack does not read, absurd sizes,
-    /// rotated or GCP-based georeferencing.
+    /// rotated or GCP-based georeferencing, tags that do not define the cells' position
+    /// and size ([`model_transform::from_tags`]) and CRS units that are not a length
+    /// ([`GeoKeys::unit_problem`]). A file stored south-up or east-to-west opens with the
+    /// north-up grid and is read through an index flip ([`Orientation`]).
     pub fn open(path: &Path) -> Result<GeoTiffReader> {
         let file = File::open(path).map_err(|e| Error::io(path, e))?;
         let file_len = file.metadata().map_err(|e| Error::io(path, e))?.len();
