@@ -173,15 +173,15 @@ fn describe_raster(path: &Path) -> Result<Value> {
     };
     let bands: Vec<Value> = (1..=source.band_count())
         .map(|b| {
-            let info = source.band_info(b);
-            json!({
+            let info = source.try_band_info(b)?;
+            Ok(json!({
                 "index": b,
                 "type": info.sample_type.name(),
                 "description": info.description,
                 "nodata": number_or_text(info.nodata),
-            })
+            }))
         })
-        .collect();
+        .collect::<Result<_>>()?;
     Ok(json!({
         "path": path.display().to_string(),
         "container": container,

@@ -85,8 +85,31 @@ pub trait RasterSource: Send + Sync {
     }
     /// Number of bands.
     fn band_count(&self) -> usize;
-    /// Metadata of band `band` (1-based).
+    /// Metadata of band `band` (1-based). May panic on a band outside
+    /// `1..=band_count()`: callers with a number from outside use [`try_band_info`].
+    ///
+    /// [`try_band_info`]: RasterSource::try_band_info
     fn band_info(&self, band: usize) -> BandInfo;
+    /// Metadata of band `band` (1-based), or an error naming the file when the band does
+    /// not exist.
+    fn try_band_info(&self, band: usize) -> Result<BandInfo> {
+        if band == 0 || band > self.band_count() {
+            return Err(Error::file(
+                self.path(),
+                format!(
+                    "band {band} does not exist: the file has {} band(s), numbered from 1",
+                    self.band_count()
+                ),
+            )
+            .with_fix(
+                "pick a band between 1 and the file's band count (`terrastack info FILE` lists them)",
+            ));
+        }
+        Ok(self.band_info(band))
+    }
+    /// Cap the decoded-block cache this source keeps, in bytes (sources without a cache
+    /// ignore it). Only speed depends on it, never a value read.
+    fn set_cache_bytes(&self, _bytes: usize) {}
     /// Band `band` (1-based) over `window`, as `f32`, nodata and out-of-raster cells NaN.
     /// Memory use is bounded by the window, not by the file.
     fn read_window(&self, band: usize, window: Window) -> Result<Array2<f32>>;

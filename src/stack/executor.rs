@@ -41,8 +41,9 @@ use crate::stack::sidecar::{
 use crate::terrain;
 
 /// Memory kept aside from the block budget for readers' caches, the writer and thumbnails.
-/// (A reader's tile cache may grow to `raster::geotiff::CACHE_BYTES`; measured peaks stay
-/// under the budget because blocks need less than `StackPlan::block_bytes` estimates.)
+/// (Readers' caches are sized from the budget by `size_reader_caches`, up to
+/// `raster::geotiff::CACHE_BYTES` each; measured peaks stay under the budget because
+/// blocks need less than `StackPlan::block_bytes` estimates.)
 const BASE_BYTES: u64 = 96 << 20;
 
 /// Most worker threads a build (or a batch) starts: far more than any machine gains from,
@@ -152,6 +153,7 @@ pub fn build(recipe: Recipe, options: &BuildOptions) -> Result<BuildReport> {
         }
         input_guard::refuse_output_over_input(&output::output_paths(&options.out), &inputs)?;
         plan.check_cell_limit(options.cell_limit)?;
+        size_reader_caches(&plan, options.memory_bytes);
         let out = OutputDir::prepare(&options.out, options.force)?;
         run(plan, out, options, started)
     })
@@ -275,6 +277,25 @@ fn run(
         concurrency,
         seconds: started.elapsed().as_secs_f64(),
     })
+}
+
+/// Size every input's decoded-block cache from the budget: a sixteenth of it shared by
+/// the distinct input files, between 4 MiB and `raster::geotiff::CACHE_BYTES` each (a 2 GiB
+/// budget gives the DSM alone the full 128 MiB; 256 MiB and three files give 5.3 MiB
+/// each). Only speed depends on it.
+fn size_reader_caches(plan: &StackPlan, memory_bytes: u64) {
+    let mut sources: Vec<&dyn crate::raster::RasterSource> = vec![plan.dsm.as_ref()];
+    let others = plan.spectral.iter().map(|s| s.source.as_ref());
+    for s in others.chain(plan.alpha.iter().map(|(s, _)| s.as_ref())) {
+        if !sources.iter().any(|k| k.path() == s.path()) {
+            sources.push(s);
+        }
+    }
+    let share = memory_bytes / 16 / sources.len() as u64;
+    let bytes = share.clamp(4 << 20, crate::raster::geotiff::CACHE_BYTES as u64) as usize;
+    for s in sources {
+        s.set_cache_bytes(bytes);
+    }
 }
 
 /// Refuse a grid whose memory that grows with the raster (`raster_bytes`: tile index,

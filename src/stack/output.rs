@@ -163,7 +163,16 @@ pub fn parse_memory(text: &str) -> Result<u64> {
     if !value.is_finite() || value <= 0.0 {
         return Err(Error::usage(format!("--memory {text:?} must be positive")));
     }
-    Ok((value * factor as f64) as u64)
+    // `as u64` would saturate 1e30G to 16 EiB and round 0.1 (bytes) down to 0: refuse
+    // sizes outside 1 byte ..= 1 EiB instead.
+    let bytes = value * factor as f64;
+    if !(1.0..=(1u64 << 60) as f64).contains(&bytes) {
+        return Err(
+            Error::usage(format!("--memory {text:?} is outside 1 byte to 1 EiB"))
+                .with_fix("write a size such as 2G, 512M or 1500MiB"),
+        );
+    }
+    Ok(bytes as u64)
 }
 
 #[cfg(test)]
@@ -179,6 +188,9 @@ mod tests {
         assert!(parse_memory("lots").is_err());
         assert!(parse_memory("2X").is_err());
         assert!(parse_memory("-1G").is_err());
+        assert!(parse_memory("99999999999T").is_err());
+        assert!(parse_memory("0.1").is_err());
+        assert_eq!(parse_memory("1").unwrap(), 1);
     }
 
     #[test]

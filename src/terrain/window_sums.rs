@@ -455,6 +455,43 @@ pub struct WindowSums<'a> {
 const SQUARE_CHUNK: usize = 128;
 
 impl<'a> WindowSums<'a> {
+    /// [`WindowSums::new`] for callers outside the kernels, whose fields were not built by
+    /// [`QuantisedField::new`]: a row longer than [`MAX_ROW_CELLS`], more than
+    /// [`MAX_CHANNELS`] channels or a value past [`MAX_ABS_VALUE`] is an error, not a panic.
+    pub fn try_new(
+        field: &QuantisedField,
+        layout: &'a Layout,
+        halo: usize,
+        out_c: usize,
+        opt: SumOptions,
+    ) -> crate::error::Result<Self> {
+        let limit = |what: String| {
+            crate::error::Error::usage(format!("window sums: {what}"))
+                .with_fix("split the block, or quantise values with QuantisedField::new")
+        };
+        let nc = field.dim().1;
+        if nc > MAX_ROW_CELLS {
+            return Err(limit(format!(
+                "block rows of {nc} cells are longer than 2^26"
+            )));
+        }
+        if field.values.len() > MAX_CHANNELS {
+            let n = field.values.len();
+            return Err(limit(format!(
+                "{n} value channels, more than {MAX_CHANNELS}"
+            )));
+        }
+        if field
+            .values
+            .iter()
+            .flatten()
+            .any(|v| v.unsigned_abs() > MAX_ABS_VALUE as u64)
+        {
+            return Err(limit("a channel value exceeds 2^36 in magnitude".into()));
+        }
+        Ok(Self::new(field, layout, halo, out_c, opt))
+    }
+
     /// Prepares the row prefix sums of `field` for `layout`; `out_c` output columns start
     /// at column `halo`. Panics when a row is longer than [`MAX_ROW_CELLS`], there are more
     /// than [`MAX_CHANNELS`] channels or a value exceeds [`MAX_ABS_VALUE`] in magnitude.
@@ -1135,6 +1172,32 @@ mod tests {
         let p = row_prefix(&field, 0, opt);
         assert_eq!((p.v2_hi[64], p.v2_lo[64]), (1 << 42, 0));
         assert_eq!(p.v2(0, 64), 1i128 << 78);
+    }
+
+    #[test]
+    fn invariants_are_errors_through_try_new() {
+        let mut rng = SplitMix64::new(9);
+        let mut field = random_field(&mut rng, 5, 6, 1, 1 << 20, 0.2, false);
+        let cells = CellSizes::uniform(1.0, 1.0, 5);
+        let layout = Layout::new(WindowShape::Square, 1.0, RowSizes::new(&cells), 1, 3);
+        let opt = SumOptions {
+            squares: false,
+            plane: false,
+        };
+        assert!(WindowSums::try_new(&field, &layout, 1, 4, opt).is_ok());
+        field.values[0][[2, 2]] = MAX_ABS_VALUE + 1;
+        let e = WindowSums::try_new(&field, &layout, 1, 4, opt)
+            .err()
+            .unwrap();
+        assert!(e.to_string().contains("exceeds 2^36"), "{e}");
+        field.values[0][[2, 2]] = i64::MIN;
+        assert!(WindowSums::try_new(&field, &layout, 1, 4, opt).is_err());
+        field.values[0][[2, 2]] = 0;
+        field.values = vec![field.values[0].clone(); MAX_CHANNELS + 1];
+        let e = WindowSums::try_new(&field, &layout, 1, 4, opt)
+            .err()
+            .unwrap();
+        assert!(e.to_string().contains("channels"), "{e}");
     }
 
     #[test]

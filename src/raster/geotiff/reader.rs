@@ -45,6 +45,8 @@ struct BlockCache {
     blocks: HashMap<usize, (Arc<Vec<u8>>, u64)>,
     bytes: usize,
     tick: u64,
+    /// Most decoded bytes kept ([`CACHE_BYTES`] unless the caller's budget sets less).
+    limit: usize,
 }
 
 impl BlockCache {
@@ -60,10 +62,19 @@ impl BlockCache {
     fn put(&mut self, index: usize, block: Arc<Vec<u8>>) {
         self.tick += 1;
         let len = block.len();
-        if len > CACHE_BYTES {
+        if len > self.limit {
             return;
         }
-        while self.bytes + len > CACHE_BYTES {
+        self.shrink_to(self.limit - len);
+        if let Some((old, _)) = self.blocks.insert(index, (block, self.tick)) {
+            self.bytes -= old.len();
+        }
+        self.bytes += len;
+    }
+
+    /// Evict least recently used blocks until at most `bytes` are kept.
+    fn shrink_to(&mut self, bytes: usize) {
+        while self.bytes > bytes {
             let Some((&oldest, _)) = self.blocks.iter().min_by_key(|(_, (_, t))| *t) else {
                 break;
             };
@@ -71,10 +82,6 @@ impl BlockCache {
                 self.bytes -= b.len();
             }
         }
-        if let Some((old, _)) = self.blocks.insert(index, (block, self.tick)) {
-            self.bytes -= old.len();
-        }
-        self.bytes += len;
     }
 }
 
@@ -453,6 +460,7 @@ impl GeoTiffReader {
                 blocks: HashMap::new(),
                 bytes: 0,
                 tick: 0,
+                limit: CACHE_BYTES,
             }),
         })
     }
@@ -785,9 +793,18 @@ impl RasterSource for GeoTiffReader {
     }
 
     /// Metadata of band `band` (1-based). Panics on a band number outside
-    /// `1..=band_count()`; check it with [`check_band`] first.
+    /// `1..=band_count()`; check it with [`check_band`] first, or call `try_band_info`.
     fn band_info(&self, band: usize) -> BandInfo {
         self.bands[band - 1].clone()
+    }
+
+    /// At most `bytes` of decoded blocks are kept (never more than [`CACHE_BYTES`]).
+    fn set_cache_bytes(&self, bytes: usize) {
+        if let Ok(mut cache) = self.cache.lock() {
+            cache.limit = bytes.min(CACHE_BYTES);
+            let limit = cache.limit;
+            cache.shrink_to(limit);
+        }
     }
 
     fn read_window(&self, band: usize, window: Window) -> Result<Array2<f32>> {
@@ -807,6 +824,50 @@ impl RasterSource for GeoTiffReader {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn band_numbers_and_cache_limit() {
+        use crate::raster::geotiff::{write_geotiff, Layout, WriteOptions};
+        let tmp = tempfile::tempdir().unwrap();
+        let path = tmp.path().join("two.tif");
+        let g = Grid::new(
+            64,
+            48,
+            [0.0, 1.0, 0.0, 48.0, 0.0, -1.0],
+            Crs::from_epsg(32633),
+        )
+        .unwrap();
+        let a = Array2::from_shape_fn((48, 64), |(r, c)| (r * 64 + c) as f32);
+        let b = a.mapv(|v| -v);
+        let o = WriteOptions {
+            layout: Layout::Tiled { size: 16 },
+            ..WriteOptions::default()
+        };
+        write_geotiff(&path, &g, &[a.view(), b.view()], &["a", "b"], &o).unwrap();
+        let r = GeoTiffReader::open(&path).unwrap();
+        assert_eq!(
+            r.try_band_info(2).unwrap().description.as_deref(),
+            Some("b")
+        );
+        for bad in [0, 3] {
+            let e = r.try_band_info(bad).unwrap_err().to_string();
+            assert!(e.contains("two.tif") && e.contains("does not exist"), "{e}");
+        }
+        assert_eq!(r.blocks_past_end().0, 0);
+        let full = Window::full(r.grid());
+        let before = r.read_window(1, full).unwrap();
+        // A cache smaller than one tile keeps nothing; reads are unchanged.
+        r.set_cache_bytes(100);
+        assert_eq!(r.cache.lock().unwrap().bytes, 0);
+        assert_eq!(r.read_window(1, full).unwrap(), before);
+        assert_eq!(r.cache.lock().unwrap().bytes, 0);
+        // Two tiles of 16² f32 = 2 KiB: at most two stay.
+        r.set_cache_bytes(2048);
+        assert_eq!(r.read_window(2, full).unwrap(), b);
+        assert!(r.cache.lock().unwrap().bytes <= 2048);
+        r.set_cache_bytes(usize::MAX);
+        assert_eq!(r.cache.lock().unwrap().limit, CACHE_BYTES);
+    }
 
     #[test]
     fn nodata_text_forms() {

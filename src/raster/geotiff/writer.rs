@@ -807,6 +807,41 @@ mod tests {
     use super::*;
 
     #[test]
+    fn tile_index_bytes_grow_with_the_raster() {
+        use crate::grid::{Crs, MAX_DIMENSION};
+        let side = MAX_DIMENSION;
+        let g = Grid::new(
+            side,
+            side,
+            [0.0, 0.1, 0.0, 0.0, 0.0, -0.1],
+            Crs::from_epsg(32633),
+        )
+        .unwrap();
+        let o = WriteOptions::default(); // 512² tiles, band-sequential
+        let path = Path::new("never-created.tif");
+        // (2²² / 512)² = 8192² tiles per band, 49 bytes each: 3.3 GB for one band.
+        let one = GeoTiffWriter::index_bytes(path, &g, 1, &o).unwrap();
+        assert_eq!(one, 8192 * 8192 * INDEX_BYTES_PER_BLOCK);
+        assert_eq!(
+            GeoTiffWriter::index_bytes(path, &g, 33, &o).unwrap(),
+            33 * one
+        );
+        assert!(!path.exists());
+        let small = Grid::new(
+            1000,
+            600,
+            [0.0, 0.1, 0.0, 0.0, 0.0, -0.1],
+            Crs::from_epsg(32633),
+        )
+        .unwrap();
+        // 2 x 2 tiles.
+        assert_eq!(
+            GeoTiffWriter::index_bytes(path, &small, 1, &o).unwrap(),
+            4 * INDEX_BYTES_PER_BLOCK
+        );
+    }
+
+    #[test]
     fn nodata_texts() {
         // GDAL writes and reads these forms (GDAL GTiff driver documentation).
         assert_eq!(nodata_text(-9999.0), "-9999");
