@@ -13,7 +13,7 @@ use std::sync::Arc;
 use crate::align::{self, ExtentRule, Resampling};
 use crate::error::{Error, Result};
 use crate::grid::{CrsKind, Grid, Window};
-use crate::raster::{self, RasterSource};
+use crate::raster::{self, RasterSource, SampleType};
 use crate::spectral::{self, BandMap, BandSource, Expression, PerBand, Role, SpectralIndex};
 use crate::stack::preview::RampKind;
 use crate::stack::recipe::Recipe;
@@ -302,6 +302,8 @@ impl StackPlan {
     /// inputs and every output band.
     pub fn block_bytes(&self, block: usize) -> u64 {
         let padded = ((block + 2 * self.halo) as u64).pow(2);
+        // The DSM block itself: 4 bytes a cell, 8 when read at f64 precision.
+        let dsm_cell = if self.dsm_reads_f64() { 8 } else { 4 };
         let cells = (block as u64).pow(2);
         let scales: BTreeSet<u64> = self
             .terrain
@@ -311,7 +313,7 @@ impl StackPlan {
         let terrain = if self.terrain.is_empty() {
             0
         } else {
-            padded * (4 + 48 + 96 * scales.len() as u64)
+            padded * (dsm_cell + 48 + 96 * scales.len() as u64)
         };
         let spectral = if self.needs_spectral() {
             cells * 4 * (2 * self.spectral.len() as u64 + 2)
@@ -319,6 +321,17 @@ impl StackPlan {
             0
         };
         terrain + spectral + cells * 4 * self.bands.len() as u64 * 2
+    }
+
+    /// Whether DSM blocks are read as f64 (kept exact through the kernels): for float64
+    /// and 32-bit integer DSMs read on their own grid. Resampled DSMs go through the
+    /// float32 resampler.
+    pub fn dsm_reads_f64(&self) -> bool {
+        self.dsm_on_target
+            && matches!(
+                self.dsm.band_info(1).sample_type,
+                SampleType::F64 | SampleType::I32 | SampleType::U32
+            )
     }
 
     /// Blocks of the target grid, `block` cells square, row by row from the north-west.
