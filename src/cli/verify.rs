@@ -38,7 +38,7 @@ pub fn run(args: Args) -> Result<()> {
             problem: format!(
                 "{} of {} verification checks failed (see the table above)",
                 report.failures(),
-                report.checks.len()
+                report.len()
             ),
         })
     }

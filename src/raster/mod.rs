@@ -113,6 +113,11 @@ pub trait RasterSource: Send + Sync {
     /// Band `band` (1-based) over `window`, as `f32`, nodata and out-of-raster cells NaN.
     /// Memory use is bounded by the window, not by the file.
     fn read_window(&self, band: usize, window: Window) -> Result<Array2<f32>>;
+    /// Like [`RasterSource::read_window`], as `f64`: a float64 band keeps its precision
+    /// (readers that store f64 override this; the default widens the f32 read).
+    fn read_window_f64(&self, band: usize, window: Window) -> Result<Array2<f64>> {
+        Ok(self.read_window(band, window)?.mapv(f64::from))
+    }
 }
 
 /// Check a 1-based band number against a source's band count.

@@ -29,6 +29,7 @@ use crate::error::{Error, Result};
 use crate::grid::{Grid, Window};
 use crate::input_guard;
 use crate::raster::geotiff::{Compression, EncodedBlock, GeoTiffWriter, WriteOptions};
+use crate::raster::SampleType;
 use crate::spectral::{self, BandArrays, MaskOptions};
 use crate::stack::output::{self, OutputDir};
 use crate::stack::plan::{Producer, StackPlan};
@@ -201,12 +202,14 @@ fn run(
 
     let mut bar = progress_bar(options.progress, blocks.len());
     let mut stats: Vec<StatsAccumulator> = vec![StatsAccumulator::default(); plan.bands.len()];
+    let mut max_abs_z = 0.0f64;
     let mut done = 0usize;
     for wave in blocks.chunks(concurrency) {
-        let results: Vec<Result<(Vec<StatsAccumulator>, Vec<EncodedBlock>)>> = wave
+        type BlockResult = (Vec<StatsAccumulator>, Vec<EncodedBlock>, f64);
+        let results: Vec<Result<BlockResult>> = wave
             .par_iter()
             .map(|w| {
-                let bands = compute_block(&plan, *w)?;
+                let (bands, block_max_z) = compute_block(&plan, *w)?;
                 let mut block_stats = Vec::with_capacity(bands.len());
                 let mut tiles = Vec::new();
                 for (i, data) in bands.iter().enumerate() {
@@ -214,12 +217,13 @@ fn run(
                     preview.record(i, *w, data.view());
                     block_stats.push(StatsAccumulator::from_values(data.iter()));
                 }
-                Ok((block_stats, tiles))
+                Ok((block_stats, tiles, block_max_z))
             })
             .collect();
         // Append in block order: the file's bytes do not depend on which thread finished first.
         for r in results {
-            let (block_stats, tiles) = r?;
+            let (block_stats, tiles, block_max_z) = r?;
+            max_abs_z = max_abs_z.max(block_max_z);
             for encoded in tiles {
                 writer.write_encoded(encoded)?;
             }
@@ -234,7 +238,7 @@ fn run(
     bar.finish();
 
     let total = (plan.target.width * plan.target.height) as u64;
-    let bands: Vec<BandMetadata> = plan
+    let mut bands: Vec<BandMetadata> = plan
         .bands
         .iter()
         .zip(stats.iter())
@@ -253,6 +257,9 @@ fn run(
             extra: b.extra.clone(),
         })
         .collect();
+    for warning in record_precision(&plan, max_abs_z, &mut bands)? {
+        eprintln!("terrastack: warning: {warning}");
+    }
     let metadata = StackMetadata {
         format: STACK_FORMAT.into(),
         grid: GridMetadata::from_grid(&plan.target),
@@ -369,34 +376,57 @@ fn write_options_tile(o: &WriteOptions) -> usize {
     }
 }
 
-/// Compute every band of the stack over block `w`.
-fn compute_block(plan: &StackPlan, w: Window) -> Result<Vec<Array2<f32>>> {
+/// The largest |z| (as stored) among the finite cells of a DSM block, 0 when none.
+fn max_abs<T: terrain::DsmSample>(z: &Array2<T>) -> f64 {
+    z.iter()
+        .map(|&v| v.into().abs())
+        .filter(|v| v.is_finite())
+        .fold(0.0, f64::max)
+}
+
+/// Compute every band of the stack over block `w`, and the largest |z| of the DSM block
+/// read for it (as stored; 0 without terrain bands).
+fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, f64)> {
     let mut terrain_out: Vec<Option<Array2<f32>>> = Vec::new();
+    let mut block_max_z = 0.0;
     if !plan.terrain.is_empty() {
         let padded = w.grow(plan.halo);
-        let z = if plan.dsm_on_target {
-            plan.dsm.read_window(1, padded)?
-        } else {
-            align::resample_window(
-                plan.dsm.as_ref(),
-                1,
-                &plan.target,
-                padded,
-                plan.recipe.resampling,
-            )?
-        };
         let cells = plan.target.cell_sizes(padded.row, padded.height)?;
-        terrain_out = terrain::compute(
-            &plan.terrain,
-            z.view(),
-            &cells,
-            plan.halo,
-            plan.reference_z,
-            &plan.terrain_params,
-        )
-        .into_iter()
-        .map(Some)
-        .collect();
+        let out = if plan.dsm_reads_f64() {
+            // float64 (and 32-bit integer) DSMs stay exact until the f32 output.
+            let z = plan.dsm.read_window_f64(1, padded)?;
+            block_max_z = max_abs(&z);
+            terrain::compute(
+                &plan.terrain,
+                z.view(),
+                &cells,
+                plan.halo,
+                plan.reference_z,
+                &plan.terrain_params,
+            )
+        } else {
+            let z = if plan.dsm_on_target {
+                plan.dsm.read_window(1, padded)?
+            } else {
+                align::resample_window(
+                    plan.dsm.as_ref(),
+                    1,
+                    &plan.target,
+                    padded,
+                    plan.recipe.resampling,
+                )?
+            };
+            block_max_z = max_abs(&z);
+            terrain::compute(
+                &plan.terrain,
+                z.view(),
+                &cells,
+                plan.halo,
+                plan.reference_z,
+                &plan.terrain_params,
+            )
+        };
+        terrain_out = out.into_iter().map(Some).collect();
     }
     let reflectance = if plan.needs_spectral() {
         Some(read_reflectance(plan, w)?)
@@ -423,7 +453,92 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<Vec<Array2<f32>>> {
         };
         out.push(data);
     }
-    Ok(out)
+    Ok((out, block_max_z))
+}
+
+/// Adds to every curvature band of `bands` its precision record (`precision` in
+/// `stack.json`): the DSM's storage type as the kernels saw it, its spacing at the largest
+/// |z|, and the noise floor that rounding to that spacing puts on the estimator's second
+/// derivatives ([`terrain::precision`]), with its share of the band's standard deviation;
+/// kn, kt and kc also record their undefined rule. Returns a warning for each band whose
+/// floor exceeds [`terrain::precision::WARN_SHARE`] of its spread.
+fn record_precision(
+    plan: &StackPlan,
+    max_abs_z: f64,
+    bands: &mut [BandMetadata],
+) -> Result<Vec<String>> {
+    use terrain::precision::{second_derivative_floor, WARN_SHARE};
+    use terrain::DsmSample;
+    let stored = plan.dsm.band_info(1).sample_type;
+    let (seen, spacing) = if plan.dsm_reads_f64() {
+        match stored {
+            SampleType::F64 => ("float64", <f64 as DsmSample>::spacing_at(max_abs_z)),
+            _ => (stored.name(), 1.0),
+        }
+    } else if plan.dsm_on_target && !matches!(stored, SampleType::F32) {
+        // 8- and 16-bit integers are exact in f32: their spacing is one stored unit.
+        (stored.name(), 1.0)
+    } else {
+        ("float32", <f32 as DsmSample>::spacing_at(max_abs_z))
+    };
+    let spacing_m = spacing * plan.terrain_params.z_factor.abs();
+    let cells = plan.target.cell_sizes(0, plan.target.height)?;
+    let min = |v: &[f64]| v.iter().copied().fold(f64::INFINITY, f64::min);
+    let (hx, hy) = (min(&cells.hx), min(&cells.hy));
+    let mut warnings = Vec::new();
+    for (band, plan_band) in bands.iter_mut().zip(&plan.bands) {
+        let Producer::Terrain(k) = plan_band.producer else {
+            continue;
+        };
+        let feature = &plan.terrain[k];
+        let Some((method, scale)) = feature.curvature_spec() else {
+            continue;
+        };
+        let floor = second_derivative_floor(method, scale, spacing_m, hx, hy);
+        // The floor is in 1/m: a share only for the 1/m bands (not Gaussian, 1/m²).
+        let share = band
+            .stats
+            .std
+            .filter(|s| *s > 0.0 && band.units == "1/m")
+            .map(|s| floor / s);
+        let mut rec = serde_json::Map::new();
+        rec.insert("dsm_sample_type".into(), seen.into());
+        rec.insert("elevation_spacing_m".into(), spacing_m.into());
+        rec.insert("at_elevation_m".into(), max_abs_z.into());
+        rec.insert("noise_floor_per_m".into(), floor.into());
+        rec.insert(
+            "noise_floor_rule".into(),
+            "std of the second derivatives from rounding every elevation to its stored spacing: \
+             sqrt(sum of squared weights)·spacing/(sqrt(12)·h²), h the smallest cell size"
+                .into(),
+        );
+        rec.insert(
+            "noise_floor_share_of_std".into(),
+            share.map_or(serde_json::Value::Null, Into::into),
+        );
+        band.extra.insert("precision".into(), rec.into());
+        if feature.needs_direction() {
+            band.extra.insert(
+                "undefined_where".into(),
+                format!(
+                    "slope gradient within {} standard errors of zero (the error from the \
+                     residual of the least-squares quadratic over the estimator's window): nodata",
+                    terrain::curvature::GRADIENT_SIGNIFICANCE
+                )
+                .into(),
+            );
+        }
+        if share.is_some_and(|s| s > WARN_SHARE) {
+            warnings.push(format!(
+                "band `{}`: the DSM's {seen} storage ({spacing_m:.2e} m spacing at {max_abs_z:.0} m) \
+                 puts a noise floor of {floor:.2e} 1/m on curvature, {:.0} % of the band's spread; \
+                 use a float64 DSM, a coarser cell size or a larger fit radius (`curvature:quadratic@METRES`)",
+                band.name,
+                share.unwrap_or(0.0) * 100.0
+            ));
+        }
+    }
+    Ok(warnings)
 }
 
 /// Reflectance of every mapped band over block `w`, resampled onto the target grid and

@@ -13,7 +13,7 @@ use std::sync::Arc;
 use crate::align::{self, ExtentRule, Resampling};
 use crate::error::{Error, Result};
 use crate::grid::{CrsKind, Grid, Window};
-use crate::raster::{self, RasterSource};
+use crate::raster::{self, RasterSource, SampleType};
 use crate::spectral::{self, BandMap, BandSource, Expression, PerBand, Role, SpectralIndex};
 use crate::stack::preview::RampKind;
 use crate::stack::recipe::Recipe;
@@ -313,6 +313,8 @@ impl StackPlan {
         let side = (block as u64).saturating_add((self.halo as u64).saturating_mul(2));
         let padded = side.saturating_mul(side);
         let cells = (block as u64).saturating_mul(block as u64);
+        // The DSM block itself: 4 bytes a cell, 8 when read at f64 precision.
+        let dsm_cell = if self.dsm_reads_f64() { 8 } else { 4 };
         let scales: BTreeSet<u64> = self
             .terrain
             .iter()
@@ -321,7 +323,9 @@ impl StackPlan {
         let terrain = if self.terrain.is_empty() {
             0
         } else {
-            padded.saturating_mul(52u64.saturating_add(96u64.saturating_mul(scales.len() as u64)))
+            padded.saturating_mul(
+                (dsm_cell + 48u64).saturating_add(96u64.saturating_mul(scales.len() as u64)),
+            )
         };
         let spectral = if self.needs_spectral() {
             cells.saturating_mul(4 * (2 * self.spectral.len() as u64 + 2))
@@ -370,6 +374,17 @@ impl StackPlan {
         blocks
             .saturating_mul(per_block)
             .saturating_add(self.bands.len() as u64 * 256)
+    }
+
+    /// Whether DSM blocks are read as f64 (kept exact through the kernels): for float64
+    /// and 32-bit integer DSMs read on their own grid. Resampled DSMs go through the
+    /// float32 resampler.
+    pub fn dsm_reads_f64(&self) -> bool {
+        self.dsm_on_target
+            && matches!(
+                self.dsm.band_info(1).sample_type,
+                SampleType::F64 | SampleType::I32 | SampleType::U32
+            )
     }
 
     /// Blocks of the target grid, `block` cells square, row by row from the north-west.

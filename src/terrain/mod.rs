@@ -239,6 +239,32 @@ impl TerrainFeature {
         }
     }
 
+    /// The (method, fit radius) of a curvature feature (profile, plan, tangential, mean,
+    /// Gaussian); `None` for every other feature.
+    pub fn curvature_spec(&self) -> Option<(SlopeMethod, Option<f64>)> {
+        use TerrainFeature::*;
+        match self {
+            ProfileCurvature { .. }
+            | PlanCurvature { .. }
+            | TangentialCurvature { .. }
+            | MeanCurvature { .. }
+            | GaussianCurvature { .. } => self.derivative_spec(),
+            _ => None,
+        }
+    }
+
+    /// Whether this curvature needs a slope direction (kn, kc, kt): such layers are
+    /// nodata where the gradient is within [`curvature::GRADIENT_SIGNIFICANCE`] standard
+    /// errors of zero.
+    pub fn needs_direction(&self) -> bool {
+        matches!(
+            self,
+            TerrainFeature::ProfileCurvature { .. }
+                | TerrainFeature::PlanCurvature { .. }
+                | TerrainFeature::TangentialCurvature { .. }
+        )
+    }
+
     /// The pointwise function of the derivatives this feature is, if any.
     fn pointwise(&self) -> Option<Pointwise> {
         Some(match self {

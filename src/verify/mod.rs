@@ -16,6 +16,13 @@
 //!
 //! Aspect and the slope-line curvatures (kn, kt, kc) are compared only where the exact
 //! slope is at least 2°, since they are undefined on flat ground.
+//!
+//! [`precision`] adds float64 cases: the same kernels on a sphere cap raised to a site
+//! elevation, stored as f64 (must show the truncation error alone) and as f32 (its error
+//! next to the storage noise floor), so the table shows which limits a given cell size
+//! and elevation.
+
+pub mod precision;
 
 use ndarray::Array2;
 use serde::Serialize;
@@ -184,17 +191,30 @@ pub struct CheckRow {
 #[derive(Clone, Debug, Serialize)]
 pub struct Report {
     pub checks: Vec<CheckRow>,
+    /// Storage precision against truncation error (float64 and float32 DSMs).
+    pub precision: Vec<precision::PrecisionRow>,
 }
 
 impl Report {
     /// True when every check passed.
     pub fn passed(&self) -> bool {
-        self.checks.iter().all(|c| c.pass)
+        self.failures() == 0
     }
 
-    /// Number of failed checks.
+    /// Number of failed checks (error table and precision table).
     pub fn failures(&self) -> usize {
         self.checks.iter().filter(|c| !c.pass).count()
+            + self.precision.iter().filter(|c| !c.pass).count()
+    }
+
+    /// Number of checks (error table and precision table).
+    pub fn len(&self) -> usize {
+        self.checks.len() + self.precision.len()
+    }
+
+    /// True when there is no check at all.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
     }
 
     /// A fixed-width table for people.
@@ -245,9 +265,10 @@ impl Report {
                 ));
             }
         }
+        s.push_str(&precision::table(&self.precision));
         s.push_str(&format!(
             "{} checks, {} failed. Outputs are analysis aids, not engineering assessments.\n",
-            self.checks.len(),
+            self.len(),
             self.failures()
         ));
         s
@@ -688,7 +709,10 @@ pub fn run() -> Report {
     }
     run_multiscale(&mut checks);
     run_plane_windows(&mut checks);
-    Report { checks }
+    Report {
+        checks,
+        precision: precision::run(),
+    }
 }
 
 #[cfg(test)]

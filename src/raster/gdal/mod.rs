@@ -208,8 +208,12 @@ impl RasterSource for GdalSource {
     }
 
     fn read_window(&self, band: usize, window: Window) -> Result<Array2<f32>> {
+        Ok(self.read_window_f64(band, window)?.mapv(|v| v as f32))
+    }
+
+    fn read_window_f64(&self, band: usize, window: Window) -> Result<Array2<f64>> {
         check_band(self, band)?;
-        let mut out = Array2::from_elem((window.height, window.width), f32::NAN);
+        let mut out = Array2::from_elem((window.height, window.width), f64::NAN);
         // The file's own cells of the window (see `raster::orientation`); `out` is filled
         // in stored order and flipped to the north-up grid at the end.
         let window = self
@@ -278,7 +282,7 @@ impl RasterSource for GdalSource {
                     .as_ref()
                     .is_some_and(|m| m[i * inside.width + j] == 0.0);
                 let is_nodata = empty || v.is_nan() || nodata.is_some_and(|nd| v == nd);
-                dst[c0 + j] = if is_nodata { f32::NAN } else { v as f32 };
+                dst[c0 + j] = if is_nodata { f64::NAN } else { v };
             }
         }
         self.orientation.reorient(&mut out);

@@ -741,6 +741,20 @@ impl GeoTiffReader {
         Ok(out)
     }
 
+    fn read_f64<T: TiffSample>(&self, band: usize, window: Window) -> Result<Array2<f64>> {
+        let mut out = Array2::from_elem((window.height, window.width), f64::NAN);
+        let nodata = self.grid.nodata.and_then(T::nodata_match);
+        self.copy_window::<T, f64>(band, window, &mut out, |v| {
+            let x = v.to_f64();
+            if Some(x) == nodata {
+                f64::NAN
+            } else {
+                x
+            }
+        })?;
+        Ok(out)
+    }
+
     /// Band `band` (1-based) over `window` exactly as stored, for bit-exact round trips.
     /// `T` must be the file's sample type and the window must lie inside the raster;
     /// nodata values are returned as stored. Cells are in the north-up grid's order,
@@ -817,6 +831,19 @@ impl RasterSource for GeoTiffReader {
             SampleType::I32 => self.read_f32::<i32>(band, window),
             SampleType::F32 => self.read_f32::<f32>(band, window),
             SampleType::F64 => self.read_f32::<f64>(band, window),
+        }
+    }
+
+    fn read_window_f64(&self, band: usize, window: Window) -> Result<Array2<f64>> {
+        check_band(self, band)?;
+        match self.sample_type {
+            SampleType::U8 => self.read_f64::<u8>(band, window),
+            SampleType::U16 => self.read_f64::<u16>(band, window),
+            SampleType::I16 => self.read_f64::<i16>(band, window),
+            SampleType::U32 => self.read_f64::<u32>(band, window),
+            SampleType::I32 => self.read_f64::<i32>(band, window),
+            SampleType::F32 => self.read_f64::<f32>(band, window),
+            SampleType::F64 => self.read_f64::<f64>(band, window),
         }
     }
 }
