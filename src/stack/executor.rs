@@ -31,6 +31,7 @@ use crate::raster::geotiff::{Compression, EncodedBlock, GeoTiffWriter, WriteOpti
 use crate::spectral::{self, BandArrays, MaskOptions};
 use crate::stack::output::OutputDir;
 use crate::stack::plan::{Producer, StackPlan};
+use crate::stack::plausibility::{self, RangeCount, ELEVATION_RANGE_M, REFLECTANCE_RANGE};
 use crate::stack::preview::Preview;
 use crate::stack::recipe::Recipe;
 use crate::stack::sidecar::{
@@ -98,6 +99,8 @@ pub struct BuildReport {
     pub block_size: usize,
     pub concurrency: usize,
     pub seconds: f64,
+    /// Doubts about the inputs that did not stop the build (also printed to stderr).
+    pub warnings: Vec<String>,
 }
 
 /// Build the stack described by `recipe` into `options.out`: `stack.tif`, `preview.png`
@@ -155,42 +158,60 @@ fn run(
             .collect(),
     );
     let sources = hash_sources(&plan)?;
+    let mut warnings = plan.warnings.clone();
+    for w in &warnings {
+        eprintln!("warning: {w}");
+    }
 
+    let total = (plan.target.width * plan.target.height) as u64;
     let mut bar = progress_bar(options.progress, blocks.len());
     let mut stats: Vec<StatsAccumulator> = vec![StatsAccumulator::default(); plan.bands.len()];
+    let mut checks = Checks::new(&plan);
     let mut done = 0usize;
     for wave in blocks.chunks(concurrency) {
-        let results: Vec<Result<(Vec<StatsAccumulator>, Vec<EncodedBlock>)>> = wave
+        type BlockResult = (Vec<StatsAccumulator>, Checks, Vec<EncodedBlock>);
+        let results: Vec<Result<BlockResult>> = wave
             .par_iter()
             .map(|w| {
-                let bands = compute_block(&plan, *w)?;
+                let (bands, mut block_checks) = compute_block(&plan, *w)?;
                 let mut block_stats = Vec::with_capacity(bands.len());
                 let mut tiles = Vec::new();
                 for (i, data) in bands.iter().enumerate() {
                     encode_tiles(&writer, i + 1, *w, tile, data, &mut tiles)?;
                     preview.record(i, *w, data.view());
                     block_stats.push(StatsAccumulator::from_values(data.iter()));
+                    if let Producer::Index(index) = &plan.bands[i].producer {
+                        block_checks.index[i] =
+                            RangeCount::of(data.iter().copied(), 1.0, index.valid_range);
+                    }
                 }
-                Ok((block_stats, tiles))
+                Ok((block_stats, block_checks, tiles))
             })
             .collect();
         // Append in block order: the file's bytes do not depend on which thread finished first.
         for r in results {
-            let (block_stats, tiles) = r?;
+            let (block_stats, block_checks, tiles) = r?;
             for encoded in tiles {
                 writer.write_encoded(encoded)?;
             }
             for (acc, part) in stats.iter_mut().zip(block_stats.iter()) {
                 acc.merge(part);
             }
+            checks.merge(&block_checks);
         }
+        // Stop as soon as the counts prove a refusal; the temporary files are removed.
+        checks.verdict(&plan, total, false)?;
         done += wave.len();
         bar.advance(done, blocks.len());
     }
     writer.finish()?;
     bar.finish();
+    let late = checks.verdict(&plan, total, true)?;
+    for w in &late {
+        eprintln!("warning: {w}");
+    }
+    warnings.extend(late);
 
-    let total = (plan.target.width * plan.target.height) as u64;
     let bands: Vec<BandMetadata> = plan
         .bands
         .iter()
@@ -207,7 +228,7 @@ fn run(
             source: b.source.clone(),
             date: options.date.clone(),
             stats: acc.finish(total),
-            extra: b.extra.clone(),
+            extra: checks.band_records(&plan, i, b.extra.clone()),
         })
         .collect();
     let metadata = StackMetadata {
@@ -233,6 +254,7 @@ fn run(
         block_size: block,
         concurrency,
         seconds: started.elapsed().as_secs_f64(),
+        warnings,
     })
 }
 
@@ -277,22 +299,33 @@ fn choose_blocks(
     Ok((block, concurrency))
 }
 
-/// Compute every band of the stack over block `w`.
-fn compute_block(plan: &StackPlan, w: Window) -> Result<Vec<Array2<f32>>> {
+/// Compute every band of the stack over block `w`, with the block's plausibility counts
+/// (index counts are filled in by the caller).
+fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Checks)> {
+    let mut checks = Checks::new(plan);
     let mut terrain_out: Vec<Option<Array2<f32>>> = Vec::new();
     if !plan.terrain.is_empty() {
         let padded = w.grow(plan.halo);
         let z = if plan.dsm_on_target {
-            plan.dsm.read_window(1, padded)?
+            plan.dsm.read_window(plan.dsm_band, padded)?
         } else {
             align::resample_window(
                 plan.dsm.as_ref(),
-                1,
+                plan.dsm_band,
                 &plan.target,
                 padded,
                 plan.recipe.resampling,
             )?
         };
+        let core = z.slice(s![
+            plan.halo..plan.halo + w.height,
+            plan.halo..plan.halo + w.width
+        ]);
+        checks.dsm = RangeCount::of(
+            core.iter().copied(),
+            plan.recipe.z_factor,
+            ELEVATION_RANGE_M,
+        );
         let cells = plan.target.cell_sizes(padded.row, padded.height)?;
         terrain_out = terrain::compute(
             &plan.terrain,
@@ -307,7 +340,13 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<Vec<Array2<f32>>> {
         .collect();
     }
     let reflectance = if plan.needs_spectral() {
-        Some(read_reflectance(plan, w)?)
+        let r = read_reflectance(plan, w)?;
+        for (count, input) in checks.reflectance.iter_mut().zip(&plan.spectral) {
+            if let Some(a) = r.get(&input.band.role) {
+                *count = RangeCount::of(a.iter().copied(), 1.0, REFLECTANCE_RANGE);
+            }
+        }
+        Some(r)
     } else {
         None
     };
@@ -331,7 +370,116 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<Vec<Array2<f32>>> {
         };
         out.push(data);
     }
-    Ok(out)
+    Ok((out, checks))
+}
+
+/// Plausibility counts of a block or of the whole stack (see `stack::plausibility`).
+#[derive(Clone, Debug)]
+struct Checks {
+    /// DSM cells (after the z-factor) against the plausible elevations.
+    dsm: RangeCount,
+    /// Per spectral input (the plan's order), reflectance against the plausible range.
+    reflectance: Vec<RangeCount>,
+    /// Per band of the stack; counted for index bands only, against the index's range.
+    index: Vec<RangeCount>,
+}
+
+impl Checks {
+    fn new(plan: &StackPlan) -> Checks {
+        Checks {
+            dsm: RangeCount::default(),
+            reflectance: vec![RangeCount::default(); plan.spectral.len()],
+            index: vec![RangeCount::default(); plan.bands.len()],
+        }
+    }
+
+    fn merge(&mut self, other: &Checks) {
+        self.dsm.merge(&other.dsm);
+        for (a, b) in self.reflectance.iter_mut().zip(&other.reflectance) {
+            a.merge(b);
+        }
+        for (a, b) in self.index.iter_mut().zip(&other.index) {
+            a.merge(b);
+        }
+    }
+
+    /// Refuse the build when the counts so far prove it; warnings once `complete`.
+    fn verdict(&self, plan: &StackPlan, grid_cells: u64, complete: bool) -> Result<Vec<String>> {
+        let mut warnings = Vec::new();
+        if !plan.terrain.is_empty() {
+            warnings.extend(plausibility::check_elevations(
+                &plan.recipe.dsm,
+                &self.dsm,
+                plan.recipe.allow_any_elevation,
+                complete,
+            )?);
+        }
+        if plan.needs_spectral() {
+            for (count, input) in self.reflectance.iter().zip(&plan.spectral) {
+                warnings.extend(plausibility::check_reflectance(
+                    &input.band.path,
+                    input.band.role.name(),
+                    input.band.band,
+                    count,
+                    grid_cells,
+                    plan.recipe.allow_any_reflectance,
+                    complete,
+                )?);
+            }
+        }
+        if complete {
+            for (count, band) in self.index.iter().zip(&plan.bands) {
+                if let Producer::Index(index) = &band.producer {
+                    if count.outside > 0 {
+                        let (lo, hi) = index.valid_range;
+                        warnings.push(format!(
+                            "band {}: {} cells ({}) lie outside the index's valid range {lo} to {hi} \
+                             (reflectance outside 0–1 in its bands); recorded in stack.json",
+                            band.name,
+                            count.outside,
+                            plausibility::percent(count.fraction())
+                        ));
+                    }
+                }
+            }
+        }
+        Ok(warnings)
+    }
+
+    /// Band `i`'s sidecar fields with its plausibility record added: the valid-range count
+    /// of an index, the reflectance-range count of a reflectance band, the elevation-range
+    /// count of the elevation band.
+    fn band_records(
+        &self,
+        plan: &StackPlan,
+        i: usize,
+        mut extra: serde_json::Map<String, serde_json::Value>,
+    ) -> serde_json::Map<String, serde_json::Value> {
+        match &plan.bands[i].producer {
+            Producer::Index(index) => {
+                extra.insert(
+                    "outside_valid_range".into(),
+                    self.index[i].record(index.valid_range),
+                );
+            }
+            Producer::Reflectance(role) => {
+                if let Some(k) = plan.spectral.iter().position(|s| &s.band.role == role) {
+                    extra.insert(
+                        "outside_plausible_range".into(),
+                        self.reflectance[k].record(REFLECTANCE_RANGE),
+                    );
+                }
+            }
+            Producer::Terrain(_) if plan.bands[i].feature == "elevation" => {
+                extra.insert(
+                    "outside_plausible_range".into(),
+                    self.dsm.record(ELEVATION_RANGE_M),
+                );
+            }
+            _ => {}
+        }
+        extra
+    }
 }
 
 /// Reflectance of every mapped band over block `w`, resampled onto the target grid and

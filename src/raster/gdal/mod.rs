@@ -248,8 +248,14 @@ impl RasterSource for GdalSource {
                 let empty = mask
                     .as_ref()
                     .is_some_and(|m| m[i * inside.width + j] == 0.0);
-                let is_nodata = empty || v.is_nan() || nodata.is_some_and(|nd| v == nd);
-                dst[c0 + j] = if is_nodata { f32::NAN } else { v as f32 };
+                // ±inf (or a float64 beyond the float32 range) reads as nodata too.
+                let is_nodata = empty || nodata.is_some_and(|nd| v == nd);
+                let x = v as f32;
+                dst[c0 + j] = if is_nodata || !x.is_finite() {
+                    f32::NAN
+                } else {
+                    x
+                };
             }
         }
         Ok(out)
