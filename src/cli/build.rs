@@ -26,7 +26,7 @@ pub struct Args {
     #[arg(long, value_name = "FILE")]
     pub ortho: Option<PathBuf>,
     /// Which band of --ortho holds which role, e.g. blue=1,green=2,red=3,rededge=4,nir=5
-    /// (optionally alpha=N for a coverage band).
+    /// (optionally alpha=N for a coverage band, extra:NAME=N for a band of your own).
     #[arg(long, value_name = "ROLE=N,...")]
     pub bands: Option<String>,
     /// One band from its own file: ROLE=FILE or ROLE=FILE:BAND (repeatable).
