@@ -12,7 +12,7 @@ Checks, each against an independent computation:
   (np.nanmean, np.nanmin, np.nanmax, max - min, np.nanstd with ddof=0, np.nanargmax into
   the ascending dates), with NaN exactly where every date is NaN;
 - the shifts in batch-report.json match the demo generator's known shifts (site.json
-  `shift_m`) within a quarter of a cell.
+  `shift_m`) within a quarter of a cell, and the default alignment applied them.
 Exit status 1 with a message on the first failed check.
 """
 import json
@@ -122,6 +122,9 @@ def main(root, site_path):
         got = f["shift"]
         if abs(got["dx"] - dx) > 0.25 * cell or abs(got["dy"] - dy) > 0.25 * cell:
             fail(f"{f['id']}: shift ({got['dx']:.3f}, {got['dy']:.3f}) vs known ({dx}, {dy})")
+        # The demo's shifts are 3-4 cells with clear peaks: the default (auto) applies them.
+        if not (got["applied"] and got["confident"]):
+            fail(f"{f['id']}: shift not applied under {report['alignment']['mode']}: {got['reason']}")
         print(f"{f['id']}: shift ({got['dx']:+.3f}, {got['dy']:+.3f}) m, known ({dx:+.2f}, {dy:+.2f}) m")
     print("batch cross-check passed")
 

@@ -488,3 +488,94 @@ fn demo_shifts_are_recovered_within_a_quarter_cell() {
         assert!(peak > 0.05, "{date}: weak correlation peak {peak}");
     }
 }
+
+#[test]
+fn misaligned_flights_are_aligned_by_default_and_the_choice_is_reported() {
+    let tmp = tempfile::tempdir().unwrap();
+    let manifest = make_site(tmp.path(), 128, "");
+    // Default (auto): the known shifts of 2.7 and 5.2 cells are confident and applied.
+    let auto = tmp.path().join("auto");
+    let out = batch(&manifest, &["--out", auto.to_str().unwrap()]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let r = report(&auto, "batch-report.json");
+    assert_eq!(r["alignment"]["mode"], "auto");
+    assert_eq!(r["alignment"]["min_shift_cells"], 0.2);
+    for f in r["flights"].as_array().unwrap() {
+        if f["id"] != "spring" {
+            assert_eq!(f["shift"]["applied"], true, "{f}");
+            assert_eq!(f["shift"]["confident"], true, "{f}");
+        }
+    }
+    assert_eq!(r["temporal"]["status"], "built");
+    // --align off: nothing applied, the temporal stack is written as the flights are, and
+    // the report says so.
+    let off = tmp.path().join("off");
+    let out = batch(
+        &manifest,
+        &["--out", off.to_str().unwrap(), "--align", "off"],
+    );
+    assert!(out.status.success());
+    let r = report(&off, "batch-report.json");
+    assert_eq!(r["alignment"]["mode"], "off");
+    assert!(r["flights"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .all(|f| f["shift"].is_null() || f["shift"]["applied"] == false));
+    assert_eq!(r["temporal"]["status"], "built");
+    // A flight that shares nothing with the reference (its DSM replaced by unrelated
+    // pseudo-random relief): its estimate is not confident, so auto refuses the
+    // multi-temporal stack until a choice is made.
+    let grid = terrastack::raster::open(&tmp.path().join("summer/dsm.tif"))
+        .unwrap()
+        .grid()
+        .clone();
+    let mut state = 0x5851_f42d_4c95_7f2du64;
+    let z = Array2::from_shape_fn((grid.height, grid.width), |_| {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        100.0 + (state >> 40) as f32 / (1u64 << 24) as f32
+    });
+    write_geotiff(
+        &tmp.path().join("summer/dsm.tif"),
+        &grid,
+        &[z.view()],
+        &["elevation"],
+        &WriteOptions::default(),
+    )
+    .unwrap();
+    let doubt = tmp.path().join("doubt");
+    let out = batch(&manifest, &["--out", doubt.to_str().unwrap()]);
+    assert!(!out.status.success());
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        stderr.contains("summer") && stderr.contains("--align off"),
+        "{stderr}"
+    );
+    let r = report(&doubt, "batch-report.json");
+    let summer = r["flights"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|f| f["id"] == "summer")
+        .unwrap();
+    assert_eq!(summer["shift"]["confident"], false, "{summer}");
+    assert_eq!(summer["shift"]["applied"], false);
+    assert_eq!(r["temporal"]["status"], "failed");
+    assert!(!doubt.join("temporal/stack.json").exists());
+    // The explicit choice builds it.
+    let out = batch(
+        &manifest,
+        &["--out", doubt.to_str().unwrap(), "--align", "off"],
+    );
+    assert!(out.status.success());
+    assert_eq!(
+        report(&doubt, "batch-report.json")["temporal"]["status"],
+        "built"
+    );
+}

@@ -97,7 +97,7 @@ timeout 60 bash -c 'until sinfo -h -o %T 2>/dev/null | grep -Eq "^(idle|mixed)";
 sinfo
 
 export TERRASTACK="$BIN" MANIFEST="$REPO/sample-dsm/flights.toml" OUT_ROOT="$SR/out"
-export TERRASTACK_BATCH_FLAGS="--align-shifts" TERRASTACK_MEMORY=1G
+export TERRASTACK_BATCH_FLAGS="--align on" TERRASTACK_MEMORY=1G
 say "submitting the two-task array"
 cd "$SR/jobs"
 timeout 900 sbatch --wait --array=0-1 --output="$SR/jobs/array-%A_%a.log" \
@@ -133,7 +133,7 @@ assert r['temporal']['status'] == 'built', r['temporal']
 cd "$REPO"
 
 say "local run of the same manifest for comparison"
-"$BIN" batch "$MANIFEST" --out "$SR/local" --align-shifts --jobs 2 --quiet
+"$BIN" batch "$MANIFEST" --out "$SR/local" --align on --jobs 2 --quiet
 python3 - "$OUT_ROOT" "$SR/local" <<'PY' || die "the Slurm run differs from the local run"
 import sys
 from pathlib import Path

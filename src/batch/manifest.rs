@@ -7,6 +7,7 @@
 //! reference = "may"              # flight the others are registered against (default: earliest date)
 //! temporal = true                # also write the multi-temporal stack (default true)
 //! shift_layer = "dsm"            # layer for shift estimation: "dsm" or "nir" (default "dsm")
+//! align = "auto"                 # apply shifts: "auto" (confident and > 0.2 cell), "on", "off"
 //!
 //! [batch.recipe.features]        # inline recipe keys: the same tables as a recipe file;
 //! list = ["slope", "tpi", "ndvi"]  # they override the recipe file key by key
@@ -70,6 +71,7 @@ struct BatchSection {
     reference: Option<String>,
     temporal: Option<bool>,
     shift_layer: Option<String>,
+    align: Option<String>,
 }
 
 /// The optional `[grid]` table: a common grid given explicitly, key by key.
@@ -119,6 +121,9 @@ pub struct Manifest {
     /// Whether to write the multi-temporal stack.
     pub temporal: bool,
     pub shift_layer: ShiftLayer,
+    /// Whether flights are built on the common grid moved by their shifts
+    /// (`batch.align`, default auto; `--align` overrides it).
+    pub align: super::shift::AlignMode,
     pub grid: GridSpec,
     /// Flights in manifest order.
     pub flights: Vec<Flight>,
@@ -280,6 +285,12 @@ impl Manifest {
                     "set batch.shift_layer = \"dsm\" (elevations) or \"nir\" (near-infrared band)",
                 )),
             };
+        let align = match file.batch.align.as_deref() {
+            None => super::shift::AlignMode::Auto,
+            Some(text) => {
+                super::shift::AlignMode::parse("batch.align", text).map_err(|e| e.in_file(path))?
+            }
+        };
         if let Some(g) = &file.grid {
             check_grid_spec(g).map_err(|p| bad(p, "fix the [grid] table: epsg = CODE, resolution = CELL SIZE (> 0), bounds = [xmin, ymin, xmax, ymax]"))?;
         }
@@ -363,6 +374,7 @@ impl Manifest {
             reference,
             temporal,
             shift_layer,
+            align,
             grid: file.grid.unwrap_or_default(),
             flights,
         })

@@ -46,10 +46,11 @@ use ledger::{sha256_file, sha256_hex, InputHash, LedgerRecord, ShiftRecord, LEDG
 pub use manifest::Manifest;
 use manifest::{Flight, ShiftLayer};
 use report::{
-    BatchReport, FlightReport, ReferenceReplaced, ShiftReport, Status, TemporalReport,
-    REPORT_FORMAT,
+    AlignmentReport, BatchReport, FlightReport, ReferenceReplaced, ShiftReport, Status,
+    TemporalReport, REPORT_FORMAT,
 };
 pub use shard::Shard;
+pub use shift::AlignMode;
 use temporal::DatedStack;
 
 /// Folder of the flights' stacks inside the output root.
@@ -67,8 +68,9 @@ pub struct BatchOptions {
     pub shard: Shard,
     /// Output root instead of the manifest's.
     pub out: Option<PathBuf>,
-    /// Build each flight on the common grid moved by its estimated shift.
-    pub align_shifts: bool,
+    /// Whether to build flights on the common grid moved by their estimated shifts;
+    /// `None` takes the manifest's `batch.align` (default auto, see `shift::AlignMode`).
+    pub align: Option<AlignMode>,
     /// Worker threads in all; `None` = one per core.
     pub threads: Option<usize>,
     /// Memory budget of the whole batch in bytes.
@@ -83,7 +85,7 @@ impl Default for BatchOptions {
             jobs: 1,
             shard: Shard::ALL,
             out: None,
-            align_shifts: false,
+            align: None,
             threads: None,
             memory_bytes: 2 << 30,
             quiet: false,
@@ -153,7 +155,7 @@ impl FlightWork for StackWork {
     ) -> Result<(f64, f64, f64)> {
         let pick = |f: &Flight| -> Result<(PathBuf, usize)> {
             match layer {
-                ShiftLayer::Dsm => Ok((f.recipe.dsm.clone(), 1)),
+                ShiftLayer::Dsm => Ok((f.recipe.dsm.clone(), f.recipe.dsm_band.unwrap_or(1))),
                 ShiftLayer::Nir => f.nir_band().ok_or_else(|| {
                     Error::usage(format!(
                         "flight {:?} maps no nir band, so shifts cannot be estimated on it",
@@ -251,13 +253,16 @@ pub fn run(
                 .map_err(|e| e.in_file(&manifest.path))
         }
     };
-    let report_of = |flights: Vec<FlightReport>, temporal: Option<TemporalReport>| BatchReport {
+    let report_of = |flights: Vec<FlightReport>,
+                     temporal: Option<TemporalReport>,
+                     alignment: Option<AlignmentReport>| BatchReport {
         format: REPORT_FORMAT.into(),
         manifest: manifest.path.clone(),
         out: root.clone(),
         shard: options.shard.to_string(),
         reference: reference.unwrap_or(requested).id.clone(),
         reference_replaced: reference_replaced.clone(),
+        alignment,
         flights,
         temporal,
     };
@@ -285,7 +290,7 @@ pub fn run(
                     })),
                 })
                 .collect();
-            report_of(flights, None).store(&root, options.shard)?;
+            report_of(flights, None, None).store(&root, options.shard)?;
             return Err(e);
         }
     };
@@ -309,12 +314,14 @@ pub fn run(
             .map(|n| n.get())
             .unwrap_or(1)
     });
+    let align = options.align.unwrap_or(manifest.align);
     let ctx = Context {
         manifest,
         reference,
         root: &root,
         grid: &grid,
-        options,
+        align,
+        min_peak: shift::CONFIDENCE_FACTOR * shift::chance_peak_on(&grid),
         work,
         hashes: Mutex::new(HashMap::new()),
         threads: (total_threads / jobs).max(1),
@@ -369,15 +376,30 @@ pub fn run(
     let mut reports = results.into_inner().expect("results lock");
     reports.sort_by(|a, b| a.id.cmp(&b.id));
 
+    let (alignment, unresolved) = ctx.alignment(&reports);
     let temporal = if options.shard.is_all()
         && manifest.temporal
         && reports.iter().all(|r| r.status != Status::Failed)
     {
-        Some(ctx.temporal())
+        Some(match unresolved {
+            // Misaligned dates would be stacked cell by cell: refuse until the user chooses.
+            Some(problem) => TemporalReport {
+                status: Status::Failed,
+                seconds: 0.0,
+                bands: None,
+                dir: root.join(TEMPORAL_DIR),
+                error: Some(format!(
+                    "{problem}\n  fix: give --align on to apply the estimates anyway, or --align off \
+                     to stack the flights as they are (batch.align in the manifest); or check the \
+                     flights' overlap and set batch.shift_layer to another layer"
+                )),
+            },
+            None => ctx.temporal(),
+        })
     } else {
         None
     };
-    let report = report_of(reports, temporal);
+    let report = report_of(reports, temporal, Some(alignment));
     report.store(&root, options.shard)?;
     Ok(report)
 }
@@ -389,7 +411,10 @@ struct Context<'a> {
     reference: &'a Flight,
     root: &'a Path,
     grid: &'a Grid,
-    options: &'a BatchOptions,
+    /// The alignment mode of this run (options, else the manifest's).
+    align: AlignMode,
+    /// Correlation peak a shift needs to be confident (see `shift::CONFIDENCE_FACTOR`).
+    min_peak: f64,
     work: &'a dyn FlightWork,
     /// SHA-256 of every file hashed in this run, so each is read once.
     hashes: Mutex<HashMap<PathBuf, String>>,
@@ -483,7 +508,7 @@ impl Context<'_> {
                 .shift(reference, flight, self.manifest.shift_layer, self.grid)
             {
                 Ok((dx, dy, peak)) => Some(ShiftRecord { dx, dy, peak }),
-                Err(e) if !self.options.align_shifts => {
+                Err(e) if self.align != AlignMode::On => {
                     rep.shift_error = Some(e.to_string());
                     None
                 }
@@ -495,19 +520,24 @@ impl Context<'_> {
                 }
             }
         };
-        let applied = self.options.align_shifts && shift.is_some();
+        let decision = shift.map(|s| self.decide(&s));
+        let applied = decision.as_ref().is_some_and(|d| d.0);
         let grid = match (applied, shift) {
             (true, Some(s)) => manifest::shifted_grid(self.grid, s.dx, s.dy),
             _ => self.grid.clone(),
         };
-        rep.shift = shift.map(|s| ShiftReport {
-            dx: s.dx,
-            dy: s.dy,
-            dx_cells: s.dx / self.grid.res_x(),
-            dy_cells: s.dy / self.grid.res_y(),
-            peak: s.peak,
-            applied,
-        });
+        rep.shift = shift
+            .zip(decision)
+            .map(|(s, (applied, confident, reason))| ShiftReport {
+                dx: s.dx,
+                dy: s.dy,
+                dx_cells: s.dx / self.grid.res_x(),
+                dy_cells: s.dy / self.grid.res_y(),
+                peak: s.peak,
+                confident,
+                applied,
+                reason,
+            });
         let parameters = serde_json::json!({
             "recipe": flight.recipe,
             "grid": {
@@ -561,6 +591,107 @@ impl Context<'_> {
         rep.status = Status::Built;
         rep.bands = Some(bands);
         Ok(())
+    }
+
+    /// Whether to apply shift `s` in this run's mode: (applied, confident, reason).
+    fn decide(&self, s: &ShiftRecord) -> (bool, bool, String) {
+        let cells = (s.dx / self.grid.res_x()).hypot(s.dy / self.grid.res_y());
+        let confident = s.peak >= self.min_peak;
+        let size = format!(
+            "{cells:.2} cells, peak {:.3} (confident from {:.3})",
+            s.peak, self.min_peak
+        );
+        match self.align {
+            AlignMode::On => (true, confident, format!("applied (--align on): {size}")),
+            AlignMode::Off => (
+                false,
+                confident,
+                format!("not applied (--align off): {size}"),
+            ),
+            AlignMode::Auto if cells <= shift::MIN_APPLIED_SHIFT_CELLS => (
+                false,
+                confident,
+                format!(
+                    "not applied: {size}, within {} cell",
+                    shift::MIN_APPLIED_SHIFT_CELLS
+                ),
+            ),
+            AlignMode::Auto if !confident => (
+                false,
+                false,
+                format!("not applied: {size}, the estimate is not confident"),
+            ),
+            AlignMode::Auto => (true, true, format!("applied: {size}")),
+        }
+    }
+
+    /// The alignment line of the report, and in `auto` mode the reason the multi-temporal
+    /// stack must wait for a choice: a flight whose shift is longer than the threshold
+    /// but doubtful, or could not be estimated.
+    fn alignment(&self, reports: &[FlightReport]) -> (AlignmentReport, Option<String>) {
+        let shifted: Vec<&FlightReport> = reports
+            .iter()
+            .filter(|r| r.id != self.manifest.reference)
+            .collect();
+        let applied = shifted
+            .iter()
+            .filter(|r| r.shift.as_ref().is_some_and(|s| s.applied))
+            .count();
+        let doubtful: Vec<String> = shifted
+            .iter()
+            .filter(|r| r.status != Status::Failed)
+            .filter_map(|r| match &r.shift {
+                Some(s)
+                    if !s.confident
+                        && s.dx_cells.hypot(s.dy_cells) > shift::MIN_APPLIED_SHIFT_CELLS =>
+                {
+                    Some(format!(
+                        "{} ({:.2} cells, peak {:.3})",
+                        r.id,
+                        s.dx_cells.hypot(s.dy_cells),
+                        s.peak
+                    ))
+                }
+                None if r.shift_error.is_some() => Some(format!("{} (shift not estimated)", r.id)),
+                _ => None,
+            })
+            .collect();
+        let unresolved = (self.align == AlignMode::Auto && !doubtful.is_empty()).then(|| {
+            format!(
+                "the flights' alignment is in doubt for {}: stacking them cell by cell could mix \
+                 different ground",
+                doubtful.join(", ")
+            )
+        });
+        let summary = match self.align {
+            AlignMode::On => format!(
+                "every estimated shift applied ({applied} of {} flights)",
+                shifted.len()
+            ),
+            AlignMode::Off => {
+                "no shift applied (--align off): the multi-temporal stack holds the flights as they are"
+                    .to_string()
+            }
+            AlignMode::Auto if unresolved.is_some() => format!(
+                "{applied} of {} flights aligned; multi-temporal stack refused until a choice is made for {}",
+                shifted.len(),
+                doubtful.join(", ")
+            ),
+            AlignMode::Auto => format!(
+                "{applied} of {} flights aligned (shifts over {} cell with a confident estimate are applied)",
+                shifted.len(),
+                shift::MIN_APPLIED_SHIFT_CELLS
+            ),
+        };
+        (
+            AlignmentReport {
+                mode: self.align.as_str().into(),
+                min_shift_cells: shift::MIN_APPLIED_SHIFT_CELLS,
+                min_peak: self.min_peak,
+                summary,
+            },
+            unresolved,
+        )
     }
 
     /// Build (or skip) the multi-temporal stack from every flight's finished stack.
@@ -687,6 +818,8 @@ mod tests {
     struct FakeWork {
         builds: AtomicUsize,
         grid: Grid,
+        /// Correlation peak of every estimated shift.
+        peak: f64,
     }
 
     impl FakeWork {
@@ -700,6 +833,7 @@ mod tests {
                     Crs::from_epsg(32633),
                 )
                 .unwrap(),
+                peak: 0.9,
             }
         }
     }
@@ -736,7 +870,7 @@ mod tests {
             _l: ShiftLayer,
             _g: &Grid,
         ) -> Result<(f64, f64, f64)> {
-            Ok((0.5, -1.0, 0.9))
+            Ok((0.5, -1.0, self.peak))
         }
     }
 
@@ -760,6 +894,7 @@ mod tests {
         BatchOptions {
             quiet: true,
             jobs: 2,
+            align: Some(AlignMode::Off),
             ..Default::default()
         }
     }
@@ -802,7 +937,7 @@ mod tests {
         assert_eq!(r4.flights[1].status, Status::Built);
         // Aligning shifts changes the parameters of the shifted flights, not the reference.
         let aligned = BatchOptions {
-            align_shifts: true,
+            align: Some(AlignMode::On),
             ..quiet()
         };
         let r5 = run(&m, &aligned, &work).unwrap();
@@ -818,6 +953,53 @@ mod tests {
         // Origin moved by (+0.5 east, −1.0 north): 500.5, 799.0.
         assert!(json.contains("500.5") && json.contains("799.0"), "{json}");
         assert!(m.out.join("batch-report.json").exists());
+    }
+
+    #[test]
+    fn auto_alignment_applies_confident_shifts_and_refuses_doubtful_stacks() {
+        let (tmp, m) = site(&["a", "b"]);
+        let auto = BatchOptions {
+            align: None,
+            ..quiet()
+        };
+        // The fake shift is 2.24 cells (1 east, 2 north on 0.5 m cells) with peak 0.9: the
+        // chance peak of a 40 x 30 window is about 0.2, so the estimate is confident.
+        let r = run(&m, &auto, &FakeWork::new()).unwrap();
+        let sh = r.flights[1].shift.as_ref().unwrap();
+        assert!(sh.applied && sh.confident, "{sh:?}");
+        let a = r.alignment.as_ref().unwrap();
+        assert_eq!(a.mode, "auto");
+        assert!(
+            a.summary.contains("1 of 1 flights aligned"),
+            "{}",
+            a.summary
+        );
+        assert!(r.table().contains("alignment (auto)"));
+        // A weak peak: not applied, and the multi-temporal stack waits for a choice.
+        let text = std::fs::read_to_string(&m.path)
+            .unwrap()
+            .replace("temporal = false", "temporal = true");
+        std::fs::write(&m.path, text).unwrap();
+        let m = Manifest::load(&m.path).unwrap();
+        let weak = FakeWork {
+            peak: 0.01,
+            ..FakeWork::new()
+        };
+        let fresh = BatchOptions {
+            out: Some(tmp.path().join("weak")),
+            ..auto
+        };
+        let r = run(&m, &fresh, &weak).unwrap();
+        let sh = r.flights[1].shift.as_ref().unwrap();
+        assert!(!sh.applied && !sh.confident, "{sh:?}");
+        let t = r.temporal.as_ref().unwrap();
+        assert_eq!(t.status, Status::Failed);
+        let e = t.error.as_deref().unwrap();
+        assert!(
+            e.contains("b (2.24 cells") && e.contains("--align off"),
+            "{e}"
+        );
+        assert!(!tmp.path().join("weak/temporal/stack.json").exists());
     }
 
     #[test]

@@ -50,8 +50,27 @@ pub struct ShiftReport {
     pub dy_cells: f64,
     /// Correlation peak height (see `shift::CellShift::peak`).
     pub peak: f64,
+    /// Whether the peak clears the confidence threshold (`alignment.min_peak`).
+    #[serde(default)]
+    pub confident: bool,
     /// Whether the flight was built on the common grid moved by this offset.
     pub applied: bool,
+    /// Why it was or was not applied, in words.
+    #[serde(default)]
+    pub reason: String,
+}
+
+/// How shifts were applied in this run, and what that means for the multi-temporal stack.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct AlignmentReport {
+    /// `auto`, `on` or `off` (see `shift::AlignMode`).
+    pub mode: String,
+    /// `auto` applies shifts longer than this, in cells of the common grid.
+    pub min_shift_cells: f64,
+    /// `auto` applies shifts whose correlation peak is at least this high.
+    pub min_peak: f64,
+    /// What was done, in one sentence.
+    pub summary: String,
 }
 
 /// One flight's line of the report.
@@ -105,6 +124,9 @@ pub struct BatchReport {
     /// flight (the earliest readable one); null otherwise.
     #[serde(default)]
     pub reference_replaced: Option<ReferenceReplaced>,
+    /// How shifts were applied (null in reports written before alignment was reported).
+    #[serde(default)]
+    pub alignment: Option<AlignmentReport>,
     pub flights: Vec<FlightReport>,
     /// Null when not made in this run (sharded runs, `temporal = false`, or a failed flight).
     pub temporal: Option<TemporalReport>,
@@ -158,7 +180,13 @@ impl BatchReport {
                     "{:+.3},{:+.3}{}",
                     sh.dx,
                     sh.dy,
-                    if sh.applied { "*" } else { "" }
+                    if sh.applied {
+                        "*"
+                    } else if !sh.confident {
+                        "?"
+                    } else {
+                        ""
+                    }
                 ),
                 None if f.id == self.reference => "reference".into(),
                 None => "-".into(),
@@ -194,6 +222,16 @@ impl BatchReport {
                 s,
                 "* shift applied to the flight's grid (east, north in CRS units)"
             );
+        }
+        if self
+            .flights
+            .iter()
+            .any(|f| f.shift.as_ref().is_some_and(|s| !s.confident))
+        {
+            let _ = writeln!(s, "? estimate not confident (weak correlation peak)");
+        }
+        if let Some(a) = &self.alignment {
+            let _ = writeln!(s, "alignment ({}): {}", a.mode, a.summary);
         }
         for f in &self.flights {
             if let Some(e) = &f.error {
@@ -231,6 +269,12 @@ mod tests {
             shard: "0/1".into(),
             reference: "may".into(),
             reference_replaced: None,
+            alignment: Some(AlignmentReport {
+                mode: "auto".into(),
+                min_shift_cells: 0.2,
+                min_peak: 0.04,
+                summary: "1 of 1 flights aligned".into(),
+            }),
             flights: vec![
                 FlightReport {
                     id: "may".into(),
@@ -256,7 +300,9 @@ mod tests {
                         dx_cells: 3.0,
                         dy_cells: -2.0,
                         peak: 0.4,
+                        confident: true,
                         applied: true,
+                        reason: "applied".into(),
                     }),
                     shift_error: None,
                     error: Some("b/dsm.tif: not a TIFF file".into()),
@@ -282,6 +328,10 @@ mod tests {
             lines[2]
         );
         assert!(t.contains("june failed: b/dsm.tif: not a TIFF file"));
+        assert!(
+            t.contains("alignment (auto): 1 of 1 flights aligned"),
+            "{t}"
+        );
         assert_eq!(report().failed().len(), 1);
     }
 

@@ -30,6 +30,15 @@
 //!
 //! Cost: four 2-D FFTs of the window (O(n log n) in the window's cell count n); memory
 //! about 48 bytes per cell.
+//!
+//! Whether to apply a shift ([`AlignMode`]): by default (`auto`) a flight is built on the
+//! common grid moved by its shift when the shift is larger than [`MIN_APPLIED_SHIFT_CELLS`]
+//! and the estimate is confident: its peak is at least [`CONFIDENCE_FACTOR`] times the
+//! height the largest peak reaches by chance between unrelated images
+//! ([`chance_peak`]). For unrelated images the whitened spectrum has random phases, so
+//! each value of `C` is a sum of many independent terms with standard deviation
+//! `s = √(Σ W²) / Σ W`, and the largest of the `N` cells of the window is about
+//! `s·√(2 ln N)` (the expected maximum of N independent normal values; common practice).
 
 use std::path::Path;
 
@@ -151,6 +160,87 @@ pub fn phase_correlation(reference: ArrayView2<f32>, moving: ArrayView2<f32>) ->
 
 /// Width σ of the Gaussian frequency weight, in cycles per cell.
 pub const WEIGHT_SIGMA: f64 = 0.15;
+
+/// Shifts up to this length, in cells of the common grid, are left unapplied by `auto`
+/// alignment. Change detection between co-registered images needs registration better
+/// than about a fifth of a cell (Dai & Khorram 1998, IEEE Trans. Geosci. Remote Sens.
+/// 36(5); from memory); smaller shifts are within the estimate's own error.
+pub const MIN_APPLIED_SHIFT_CELLS: f64 = 0.2;
+
+/// A peak this many times [`chance_peak`] is a confident estimate (common practice: a
+/// detection threshold of a few times the noise level).
+pub const CONFIDENCE_FACTOR: f64 = 3.0;
+
+/// Whether a batch builds flights on the common grid moved by their estimated shifts.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum AlignMode {
+    /// Apply a shift larger than [`MIN_APPLIED_SHIFT_CELLS`] when its estimate is
+    /// confident; refuse the multi-temporal stack while a flight's shift is larger but
+    /// doubtful, or could not be estimated.
+    Auto,
+    /// Apply every estimated shift (a flight whose shift cannot be estimated fails).
+    On,
+    /// Apply none: the multi-temporal stack is written as the flights are.
+    Off,
+}
+
+impl AlignMode {
+    /// Parse `auto`, `on` or `off`; `what` names the option in errors.
+    pub fn parse(what: &str, text: &str) -> Result<AlignMode> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "auto" => Ok(AlignMode::Auto),
+            "on" => Ok(AlignMode::On),
+            "off" => Ok(AlignMode::Off),
+            other => Err(Error::usage(format!("{what} {other:?} is not auto, on or off"))
+                .with_fix("auto applies confident shifts larger than 0.2 cell; on applies every estimate; off applies none")),
+        }
+    }
+
+    pub fn as_str(self) -> &'static str {
+        match self {
+            AlignMode::Auto => "auto",
+            AlignMode::On => "on",
+            AlignMode::Off => "off",
+        }
+    }
+}
+
+/// Height of the largest correlation peak expected by chance between two unrelated images
+/// of `rows` x `cols` cells (see the module doc): `√(Σ W²) / Σ W · √(2 ln N)` over the
+/// same frequency weights [`phase_correlation`] uses.
+pub fn chance_peak(rows: usize, cols: usize) -> f64 {
+    let freq = |k: usize, len: usize| -> Option<f64> {
+        if len % 2 == 0 && k == len / 2 {
+            None
+        } else if k > len / 2 {
+            Some((k as f64 - len as f64) / len as f64)
+        } else {
+            Some(k as f64 / len as f64)
+        }
+    };
+    let two_s2 = 2.0 * WEIGHT_SIGMA * WEIGHT_SIGMA;
+    let (mut sum, mut sum2) = (0.0f64, 0.0f64);
+    for r in 0..rows {
+        for c in 0..cols {
+            if let (Some(fr), Some(fc)) = (freq(r, rows), freq(c, cols)) {
+                let w = (-(fr * fr + fc * fc) / two_s2).exp();
+                sum += w;
+                sum2 += w * w;
+            }
+        }
+    }
+    let n = (rows * cols).max(2) as f64;
+    if sum == 0.0 {
+        return 1.0;
+    }
+    sum2.sqrt() / sum * (2.0 * n.ln()).sqrt()
+}
+
+/// [`chance_peak`] on the window shifts are estimated on for `grid`.
+pub fn chance_peak_on(grid: &Grid) -> f64 {
+    let w = central_window(grid);
+    chance_peak(w.height, w.width)
+}
 
 /// The maximum of the real part of `C(y, x) = Σ S(k, l) e^{2πi(k·y/rows + l·x/cols)}` over
 /// the lattice `centre ± half` in steps of `step` (rows, cols), as (y, x, value): the
@@ -390,6 +480,44 @@ mod tests {
             (s.dcol + 2.3).abs() < 0.25 && (s.drow - 3.6).abs() < 0.25,
             "{s:?}"
         );
+    }
+
+    #[test]
+    fn chance_peak_bounds_unrelated_images_and_shifted_ones_clear_it() {
+        // Unrelated images (independent pseudo-random noise): the peak stays below the
+        // chance level times 1.5 in every trial; a shifted copy of the surface clears the
+        // confidence threshold by far.
+        let (rows, cols) = (96, 96);
+        let chance = chance_peak(rows, cols);
+        let mut state = 0x1234_5678_9abc_def1u64;
+        let mut noise = || {
+            Array2::from_shape_fn((rows, cols), |_| {
+                state ^= state << 13;
+                state ^= state >> 7;
+                state ^= state << 17;
+                (state >> 40) as f32 / (1u64 << 24) as f32
+            })
+        };
+        for _ in 0..8 {
+            let (a, b) = (noise(), noise());
+            let s = phase_correlation(a.view(), b.view()).unwrap();
+            assert!(s.peak < 1.5 * chance, "peak {} chance {chance}", s.peak);
+        }
+        let a = sampled(rows, cols, 0.0, 0.0);
+        let b = sampled(rows, cols, 1.3, -0.6);
+        let s = phase_correlation(a.view(), b.view()).unwrap();
+        assert!(
+            s.peak > CONFIDENCE_FACTOR * chance,
+            "peak {} chance {chance}",
+            s.peak
+        );
+        // The chance level falls as the window grows (about 1/side).
+        assert!(chance_peak(512, 512) < chance_peak(64, 64) / 4.0);
+        assert_eq!(
+            AlignMode::parse("--align", "Auto").unwrap(),
+            AlignMode::Auto
+        );
+        assert!(AlignMode::parse("--align", "yes").is_err());
     }
 
     #[test]

@@ -3,7 +3,9 @@
 
 use std::path::PathBuf;
 
-use terrastack::batch::{self, manifest::Manifest, shard::Shard, BatchOptions, StackWork};
+use terrastack::batch::{
+    self, manifest::Manifest, shard::Shard, AlignMode, BatchOptions, StackWork,
+};
 use terrastack::stack::output::parse_memory;
 use terrastack::{Error, Result};
 
@@ -22,8 +24,14 @@ pub struct Args {
     /// Output root (default: the manifest's batch.out).
     #[arg(long, value_name = "DIR")]
     pub out: Option<PathBuf>,
-    /// Build every flight on the common grid moved by its estimated shift against the
-    /// reference flight.
+    /// Apply the shifts estimated against the reference flight (building each flight on
+    /// the common grid moved by its shift): auto (default, or the manifest's batch.align)
+    /// applies shifts over 0.2 cell whose estimate is confident, and refuses the
+    /// multi-temporal stack while a larger shift is doubtful; on applies every estimate;
+    /// off applies none.
+    #[arg(long, value_name = "auto|on|off", conflicts_with = "align_shifts")]
+    pub align: Option<String>,
+    /// The same as --align on.
     #[arg(long)]
     pub align_shifts: bool,
     /// Worker threads in all (default: one per core).
@@ -58,7 +66,11 @@ pub fn run(args: Args) -> Result<()> {
         jobs: args.jobs,
         shard,
         out: args.out,
-        align_shifts: args.align_shifts,
+        align: match (&args.align, args.align_shifts) {
+            (Some(text), _) => Some(AlignMode::parse("--align", text)?),
+            (None, true) => Some(AlignMode::On),
+            (None, false) => None,
+        },
         threads: args.threads,
         memory_bytes,
         quiet: args.quiet,

@@ -15,11 +15,18 @@ pub struct Args {
     /// Digital surface model (float elevations; GeoTIFF, or any GDAL format with the gdal feature).
     #[arg(long, value_name = "FILE")]
     pub dsm: Option<PathBuf>,
+    /// Band of the DSM file that holds elevations (needed when the file has several bands).
+    #[arg(long, value_name = "N")]
+    pub dsm_band: Option<usize>,
+    /// Build even when elevations lie outside −500 m to 9000 m (after --z-factor), which
+    /// is otherwise refused.
+    #[arg(long)]
+    pub allow_any_elevation: bool,
     /// Multispectral orthomosaic with several bands (use with --bands).
     #[arg(long, value_name = "FILE")]
     pub ortho: Option<PathBuf>,
     /// Which band of --ortho holds which role, e.g. blue=1,green=2,red=3,rededge=4,nir=5
-    /// (optionally alpha=N for a coverage band).
+    /// (optionally alpha=N for a coverage band, extra:NAME=N for a band of your own).
     #[arg(long, value_name = "ROLE=N,...")]
     pub bands: Option<String>,
     /// One band from its own file: ROLE=FILE or ROLE=FILE:BAND (repeatable).
@@ -63,6 +70,10 @@ pub struct Args {
     /// Reflectance offset, same form as the scale.
     #[arg(long, value_name = "O", allow_hyphen_values = true)]
     pub reflectance_offset: Option<String>,
+    /// Build even when more than 1% of a band's cells have reflectance outside −0.05 to
+    /// 1.5 (after scale and offset), which is otherwise refused.
+    #[arg(long)]
+    pub allow_any_reflectance: bool,
     /// Treat cells where every orthomosaic band is 0 as outside the flown area.
     #[arg(long)]
     pub zero_is_nodata: bool,
@@ -115,6 +126,9 @@ pub fn run(args: Args) -> Result<()> {
     let recipe_file = args.recipe.as_deref().map(RecipeFile::load).transpose()?;
     let flags = RecipeFlags {
         dsm: args.dsm,
+        dsm_band: args.dsm_band,
+        allow_any_elevation: args.allow_any_elevation,
+        allow_any_reflectance: args.allow_any_reflectance,
         ortho: args.ortho,
         bands: args.bands,
         band_files: args.band,

@@ -1,8 +1,8 @@
 //! `terrastack demo`: builds the stack of every flight of the bundled demo site
 //! (`sample-dsm/`, invented data) and prints where the outputs are and a band table.
 //!
-//! Then it runs the season's batch manifest (`sample-dsm/flights.toml`) with shift
-//! alignment into `batch/`: every flight on one common grid plus the multi-temporal
+//! Then it runs the season's batch manifest (`sample-dsm/flights.toml`) with automatic
+//! shift alignment (`batch.align = "auto"`) into `batch/`: every flight on one common grid plus the multi-temporal
 //! stack. It also samples the reference flight's stack at the site's labelled circles into a
 //! training table with five stratified folds (`training.csv`). The demo replaces what it
 //! built before in its own output folder, so it can be run again and again.
@@ -148,14 +148,15 @@ pub fn run(args: Args) -> Result<()> {
             jobs: 1,
             shard: Shard::ALL,
             out: Some(args.out.join("batch")),
-            align_shifts: true,
+            align: None, // the manifest's choice: auto
+
             threads: None,
             memory_bytes: 2 << 30,
             quiet: args.quiet,
         };
         println!();
         println!(
-            "batch {} (shifts estimated and applied):",
+            "batch {} (shifts estimated; applied where larger than 0.2 cell and confident):",
             manifest_path.display()
         );
         let report = batch::run(&manifest, &options, &StackWork)?;

@@ -1,7 +1,7 @@
 //! Band math: user expressions over band roles, compiled once, evaluated block by block.
 //!
-//! An expression names bands by their role (`nir`, `red`, `rededge`, `green`, `blue`, or an
-//! extra band's own name) and combines them with numbers, arithmetic, comparisons, logic,
+//! An expression names bands by their role (`nir`, `red`, `rededge`, `green`, `blue`, or
+//! the NAME of a band declared as `extra:NAME` in the band map) and combines them with numbers, arithmetic, comparisons, logic,
 //! a conditional and a few functions:
 //!
 //! ```text
@@ -523,7 +523,7 @@ impl Parser<'_> {
                 if RESERVED_NAMES.contains(&word.as_str()) {
                     return Err(self.err(format!("`{word}` is a keyword and cannot stand here")));
                 }
-                let role = Role::parse(&word).map_err(|e| {
+                let role = Role::named(&word).map_err(|e| {
                     let hint = match &e {
                         Error::Usage { fix: Some(f), .. } => format!(" ({f})"),
                         _ => String::new(),

@@ -22,6 +22,13 @@ pub struct SpectralIndex {
     pub reference: &'static str,
     /// Roles the formula reads, in the order `cell` receives them.
     pub roles: &'static [Role],
+    /// The values the index can take, from its definition: the range of the formula over
+    /// reflectances in [0, 1] (derived from the formula; a test checks it on a lattice of
+    /// the unit cube), ±inf for an unbounded side. Two formulas are unbounded on the cube
+    /// because their denominator can vanish: EVI takes the valid range of the MODIS EVI
+    /// product, [−1, 1] (Huete et al. 2002; from memory); VARI has no published range
+    /// and is left unbounded. Cells outside are counted per band in `stack.json`.
+    pub valid_range: (f64, f64),
     /// The formula on one cell's reflectances (in `roles` order).
     cell: fn(&[f64]) -> f64,
 }
@@ -51,6 +58,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "(N − R) / (N + R)",
         reference: "Rouse, Haas, Schell & Deering 1974, Monitoring vegetation systems in the Great Plains with ERTS, NASA SP-351",
         roles: &[N, R],
+        valid_range: (-1.0, 1.0),
         cell: |v| nd(v[0], v[1]),
     },
     SpectralIndex {
@@ -58,6 +66,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "(N − G) / (N + G)",
         reference: "Gitelson, Kaufman & Merzlyak 1996, Remote Sensing of Environment 58(3)",
         roles: &[N, G],
+        valid_range: (-1.0, 1.0),
         cell: |v| nd(v[0], v[1]),
     },
     SpectralIndex {
@@ -65,6 +74,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "(N − RE) / (N + RE)",
         reference: "Barnes et al. 2000, Proc. 5th Int. Conf. on Precision Agriculture",
         roles: &[N, RE],
+        valid_range: (-1.0, 1.0),
         cell: |v| nd(v[0], v[1]),
     },
     SpectralIndex {
@@ -72,6 +82,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "(1 + L)(N − R) / (N + R + L), L = 0.5",
         reference: "Huete 1988, Remote Sensing of Environment 25(3)",
         roles: &[N, R],
+        valid_range: (-1.0, 1.0), // (1 + L)·(±1)/(1 + L) at N, R = 1, 0 and 0, 1
         cell: |v| (1.0 + SAVI_L) * (v[0] - v[1]) / (v[0] + v[1] + SAVI_L),
     },
     SpectralIndex {
@@ -79,6 +90,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "(N − R) / (N + R + 0.16)",
         reference: "Rondeaux, Steven & Baret 1996, Remote Sensing of Environment 55(2)",
         roles: &[N, R],
+        valid_range: (-1.0 / (1.0 + OSAVI_X), 1.0 / (1.0 + OSAVI_X)), // ±1/(1 + 0.16) at N, R = 1, 0 and 0, 1
         cell: |v| (v[0] - v[1]) / (v[0] + v[1] + OSAVI_X),
     },
     SpectralIndex {
@@ -86,6 +98,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "(2N + 1 − √((2N + 1)² − 8(N − R))) / 2",
         reference: "Qi, Chehbouni, Huete, Kerr & Sorooshian 1994, Remote Sensing of Environment 48(2)",
         roles: &[N, R],
+        valid_range: (-1.0, 1.0), // (3 − 1)/2 = 1 at N = 1, R = 0; (1 − 3)/2 = −1 at N = 0, R = 1
         cell: |v| {
             let a = 2.0 * v[0] + 1.0;
             (a - (a * a - 8.0 * (v[0] - v[1])).sqrt()) / 2.0
@@ -96,6 +109,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "2.5(N − R) / (N + 6R − 7.5B + 1)",
         reference: "Huete, Didan, Miura, Rodriguez, Gao & Ferreira 2002, Remote Sensing of Environment 83(1-2)",
         roles: &[N, R, B],
+        valid_range: (-1.0, 1.0), // MODIS EVI valid range (from memory): the formula is unbounded
         cell: |v| {
             let (g, c1, c2, l) = EVI_COEFFS;
             g * (v[0] - v[1]) / (v[0] + c1 * v[1] - c2 * v[2] + l)
@@ -106,6 +120,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "2.5(N − R) / (N + 2.4R + 1)",
         reference: "Jiang, Huete, Didan & Miura 2008, Remote Sensing of Environment 112(10)",
         roles: &[N, R],
+        valid_range: (-2.5 / 3.4, 1.25), // 2.5·1/(1 + 1) at N = 1, R = 0; −2.5/(2.4 + 1) at N = 0, R = 1
         cell: |v| {
             let (g, c, l) = EVI2_COEFFS;
             g * (v[0] - v[1]) / (v[0] + c * v[1] + l)
@@ -116,6 +131,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "(G − N) / (G + N)",
         reference: "McFeeters 1996, International Journal of Remote Sensing 17(7)",
         roles: &[G, N],
+        valid_range: (-1.0, 1.0),
         cell: |v| nd(v[0], v[1]),
     },
     SpectralIndex {
@@ -123,6 +139,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "N / RE − 1",
         reference: "Gitelson, Gritz & Merzlyak 2003, Journal of Plant Physiology 160(3); Gitelson et al. 2005, Geophysical Research Letters 32",
         roles: &[N, RE],
+        valid_range: (-1.0, f64::INFINITY), // N = 0 gives −1; RE → 0 is unbounded
         cell: |v| v[0] / v[1] - 1.0,
     },
     SpectralIndex {
@@ -130,6 +147,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "N / G − 1",
         reference: "Gitelson, Gritz & Merzlyak 2003, Journal of Plant Physiology 160(3); Gitelson et al. 2005, Geophysical Research Letters 32",
         roles: &[N, G],
+        valid_range: (-1.0, f64::INFINITY), // N = 0 gives −1; G → 0 is unbounded
         cell: |v| v[0] / v[1] - 1.0,
     },
     SpectralIndex {
@@ -137,6 +155,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "2g − r − b with g = G/(R+G+B), r = R/(R+G+B), b = B/(R+G+B)",
         reference: "Woebbecke, Meyer, Von Bargen & Mortensen 1995, Transactions of the ASAE 38(1)",
         roles: &[R, G, B],
+        valid_range: (-1.0, 2.0), // 3g − 1 with g ∈ [0, 1]
         cell: |v| {
             let sum = v[0] + v[1] + v[2];
             (2.0 * v[1] - v[0] - v[2]) / sum
@@ -147,6 +166,7 @@ static CATALOGUE: [SpectralIndex; 13] = [
         formula: "(G − R) / (G + R − B)",
         reference: "Gitelson, Kaufman, Stark & Rundquist 2002, Remote Sensing of Environment 80(1)",
         roles: &[G, R, B],
+        valid_range: (f64::NEG_INFINITY, f64::INFINITY), // no published range; the formula is unbounded
         cell: |v| (v[0] - v[1]) / (v[0] + v[1] - v[2]),
     },
 ];
@@ -332,6 +352,60 @@ mod tests {
             e.contains("ndvi") && e.contains("vari") && e.contains("`ndxi`"),
             "{e}"
         );
+    }
+
+    #[test]
+    fn valid_ranges_bound_the_formulas_on_the_unit_cube() {
+        // Every index on a lattice of reflectances 0, 0.05, …, 1 (the unit cube of its
+        // roles): inside its valid range, and each finite end reached (the ranges are
+        // derived from the formulas, see `valid_range`). EVI and VARI are unbounded there.
+        let steps: Vec<f64> = (0..=20).map(|i| i as f64 * 0.05).collect();
+        for index in catalogue() {
+            if matches!(index.name, "evi" | "vari") {
+                continue;
+            }
+            let (lo, hi) = index.valid_range;
+            let (mut min, mut max) = (f64::INFINITY, f64::NEG_INFINITY);
+            let n = index.roles.len();
+            let mut point = vec![0usize; n];
+            loop {
+                let v: Vec<f64> = point.iter().map(|&i| steps[i]).collect();
+                let x = index.value(&v);
+                if x.is_finite() {
+                    min = min.min(x);
+                    max = max.max(x);
+                }
+                let mut k = 0;
+                while k < n && point[k] == steps.len() - 1 {
+                    point[k] = 0;
+                    k += 1;
+                }
+                if k == n {
+                    break;
+                }
+                point[k] += 1;
+            }
+            assert!(
+                min >= lo - 1e-12 && max <= hi + 1e-12,
+                "{}: {min}..{max}",
+                index.name
+            );
+            assert!(
+                (min - lo).abs() < 1e-12,
+                "{}: min {min} vs {lo}",
+                index.name
+            );
+            if hi.is_finite() {
+                assert!(
+                    (max - hi).abs() < 1e-12,
+                    "{}: max {max} vs {hi}",
+                    index.name
+                );
+            }
+        }
+        // The cases lie outside: SAVI 1.19 and EVI2 1.74 (unscaled reflectance).
+        assert!(find_index("savi").unwrap().valid_range.1 < 1.19);
+        assert!(find_index("evi2").unwrap().valid_range.1 < 1.74);
     }
 
     #[test]

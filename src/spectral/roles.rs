@@ -1,10 +1,13 @@
 //! Band roles, band maps, reflectance scaling and masks.
 //!
 //! An orthomosaic's bands are known to terrastack by their *role* (blue, green, red,
-//! red-edge, near-infrared, or a named extra band), never by their number. This module
-//! parses the user's band maps (`blue=1,green=2,…,alpha=6` for one multi-band file,
-//! `ROLE=FILE[:BAND]` for one file per band), the reflectance scale and offset options, and
-//! turns stored values of one block into reflectance with every masked cell set to NaN.
+//! red-edge, near-infrared, or a band of the user's own declared as `extra:NAME`), never by
+//! their number. This module parses the user's band maps (`blue=1,green=2,…,alpha=6` for
+//! one multi-band file, `ROLE=FILE[:BAND]` for one file per band), the reflectance scale
+//! and offset options, and turns stored values of one block into reflectance with every
+//! masked cell set to NaN. A role word terrastack does not know is refused with the list of
+//! known roles: only the explicit `extra:` prefix makes a band of one's own, so a typo
+//! (`b=1`, `nri=5`) cannot silently map a band that no index reads.
 //!
 //! Reflectance is `stored · scale + offset` (for example stored 0–10000 with scale 1e-4,
 //! or 0–65535 with scale 1/65535). A cell is masked (NaN in every band) where the file's
@@ -29,8 +32,8 @@ pub enum Role {
     RedEdge,
     /// Near-infrared.
     Nir,
-    /// Any other band the user names (lower-case letters, digits and `_`, starting with a
-    /// letter), usable in band-math expressions.
+    /// A band of the user's own, declared as `extra:NAME` in a band map (NAME: lower-case
+    /// letters, digits and `_`, starting with a letter) and used by NAME in band math.
     Extra(String),
 }
 
@@ -44,52 +47,119 @@ pub const RESERVED_NAMES: &[&str] = &[
     "clamp",
 ];
 
+/// Prefix that declares a band of the user's own in a band map: `extra:swir1=6`.
+pub const EXTRA_PREFIX: &str = "extra:";
+
+/// The role words terrastack knows, for error messages.
+pub const KNOWN_ROLES_TEXT: &str =
+    "blue, green, red, rededge (or red_edge), nir, alpha, or extra:NAME for a band of your own";
+
 impl Role {
-    /// Parse a role name: `blue`, `green`, `red`, `rededge` (also `red_edge`), `nir`, or an
-    /// extra band's name. Case-insensitive. A name one or two letters away from a standard
-    /// role is refused with a suggestion (a typo of `nir` must not become an extra band).
+    /// Parse a role as *declared* in a band map (`--bands`, `--band`, recipe `files`,
+    /// per-role scales): `blue`, `green`, `red`, `rededge` (also `red_edge`), `nir`, or
+    /// `extra:NAME` for a band of the user's own (NAME: lower-case letters, digits and `_`,
+    /// starting with a letter). Case-insensitive. Any other word is refused with the list
+    /// of known roles, so a typo (`b=1`, `nri=5`) can never pass as a band nobody uses.
     pub fn parse(text: &str) -> Result<Role> {
         let t = text.trim().to_ascii_lowercase();
-        let role = match t.as_str() {
+        if let Some(name) = t.strip_prefix(EXTRA_PREFIX) {
+            let name = name.trim();
+            return match Role::standard(name) {
+                Some(r) => Err(Error::usage(format!(
+                    "`{text}`: `{name}` is a standard role, not a band of your own"
+                ))
+                .with_fix(format!("write `{}` without `{EXTRA_PREFIX}`", r.name()))),
+                None => Role::named(name),
+            };
+        }
+        if let Some(r) = Role::standard(&t) {
+            return Ok(r);
+        }
+        let hint = match Role::suggestion(&t) {
+            Some(near) => format!("did you mean `{near}`? Known roles: {KNOWN_ROLES_TEXT}"),
+            None => format!("known roles: {KNOWN_ROLES_TEXT}"),
+        };
+        Err(Error::usage(format!("unknown band role `{}`", text.trim())).with_fix(hint))
+    }
+
+    /// A standard role word (`blue`, …, `nir`, `red_edge`), if `t` is one.
+    fn standard(t: &str) -> Option<Role> {
+        Some(match t {
             "blue" => Role::Blue,
             "green" => Role::Green,
             "red" => Role::Red,
             "rededge" | "red_edge" => Role::RedEdge,
             "nir" => Role::Nir,
-            _ => {
-                let valid_ident = t.chars().next().is_some_and(|c| c.is_ascii_lowercase())
-                    && t.chars()
-                        .all(|c| c.is_ascii_lowercase() || c.is_ascii_digit() || c == '_');
-                if !valid_ident {
-                    return Err(Error::usage(format!(
-                        "`{text}` is not a band role: names use letters, digits and `_` and start with a letter"
-                    ))
-                    .with_fix("use blue, green, red, rededge, nir, or a name of your own such as `swir1`"));
-                }
-                if RESERVED_NAMES.contains(&t.as_str()) {
-                    return Err(Error::usage(format!(
-                        "`{t}` is a reserved word and cannot name a band"
-                    ))
-                    .with_fix("choose another name for the band"));
-                }
-                let extends_standard = STANDARD_ROLES.iter().any(|r| t.starts_with(r.name()));
-                if let Some(near) = STANDARD_ROLES
-                    .iter()
-                    .find(|r| t.len() >= 3 && !extends_standard && edit_distance(r.name(), &t) <= 1)
-                {
-                    return Err(Error::usage(format!("unknown band role `{t}`")).with_fix(
-                        format!(
-                        "did you mean `{}`? (an extra band needs a name that is not one letter \
-                         away from a standard role, e.g. `{}2`)",
-                        near.name(),
-                        near.name()
-                    ),
-                    ));
-                }
-                Role::Extra(t)
-            }
+            _ => return None,
+        })
+    }
+
+    /// The known role closest to an unknown word: an initial (`b`, `g`, `r`, `n`), a
+    /// common long form (`near_infrared`, `re`), or a word one edit away.
+    fn suggestion(t: &str) -> Option<&'static str> {
+        let by_form = match t {
+            "b" => Some("blue"),
+            "g" => Some("green"),
+            "r" => Some("red"),
+            "n" | "ir" | "nearinfrared" | "near_infrared" | "infrared" => Some("nir"),
+            "re" | "redegde" | "edge" => Some("rededge"),
+            "a" | "mask" => Some("alpha"),
+            _ => None,
         };
-        Ok(role)
+        by_form.or_else(|| {
+            ["blue", "green", "red", "rededge", "nir", "alpha"]
+                .into_iter()
+                .find(|r| t.len() >= 3 && edit_distance(r, t) <= 2)
+        })
+    }
+
+    /// A role as *referred to* in a band-math expression: a standard role word, or the
+    /// name of a band declared with `extra:NAME`. A name one or two letters away from a
+    /// standard role is refused with a suggestion; a name that no band declares is caught
+    /// when the plan checks the expression's bands.
+    pub fn named(text: &str) -> Result<Role> {
+        let t = text.trim().to_ascii_lowercase();
+        if let Some(r) = Role::standard(&t) {
+            return Ok(r);
+        }
+        let valid_ident = t.chars().next().is_some_and(|c| c.is_ascii_lowercase())
+            && t.chars()
+                .all(|c| c.is_ascii_lowercase() || c.is_ascii_digit() || c == '_');
+        if !valid_ident {
+            return Err(Error::usage(format!(
+                "`{text}` is not a band name: names use letters, digits and `_` and start with a letter"
+            ))
+            .with_fix("use blue, green, red, rededge, nir, or declare a band of your own as `extra:swir1=N`"));
+        }
+        if RESERVED_NAMES.contains(&t.as_str()) {
+            return Err(
+                Error::usage(format!("`{t}` is a reserved word and cannot name a band"))
+                    .with_fix("choose another name for the band"),
+            );
+        }
+        let extends_standard = STANDARD_ROLES.iter().any(|r| t.starts_with(r.name()));
+        if let Some(near) = STANDARD_ROLES
+            .iter()
+            .find(|r| t.len() >= 3 && !extends_standard && edit_distance(r.name(), &t) <= 1)
+        {
+            return Err(
+                Error::usage(format!("unknown band role `{t}`")).with_fix(format!(
+                    "did you mean `{}`? (a band of your own needs a name that is not one letter \
+                 away from a standard role, e.g. `{}2`)",
+                    near.name(),
+                    near.name()
+                )),
+            );
+        }
+        Ok(Role::Extra(t))
+    }
+
+    /// The role as declared in a band map: the standard word, or `extra:NAME`.
+    pub fn declared(&self) -> String {
+        match self {
+            Role::Extra(name) => format!("{EXTRA_PREFIX}{name}"),
+            other => other.name().to_string(),
+        }
     }
 
     /// The role's name as written on the command line and in band-math expressions.
@@ -436,7 +506,8 @@ impl BandArrays {
                 self.roles_list()
             ))
             .with_fix(format!(
-                "map it with `--bands {role}=N` or `--band {role}=FILE`, or drop {needed_by}"
+                "map it with `--bands {0}=N` or `--band {0}=FILE`, or drop {needed_by}",
+                role.declared()
             ))
         })
     }
@@ -556,25 +627,51 @@ mod tests {
         assert_eq!(Role::parse("NIR").unwrap(), Role::Nir);
         assert_eq!(Role::parse("red_edge").unwrap(), Role::RedEdge);
         assert_eq!(Role::parse("rededge").unwrap().name(), "rededge");
-        assert_eq!(Role::parse("swir1").unwrap(), Role::Extra("swir1".into()));
+        assert_eq!(
+            Role::parse("extra:swir1").unwrap(),
+            Role::Extra("swir1".into())
+        );
         let e = Role::parse("nri").unwrap_err().to_string();
         assert!(e.contains("did you mean `nir`"), "{e}");
-        assert!(Role::parse("2nir").is_err());
-        // Legitimate extra bands near a standard name are kept.
-        assert_eq!(Role::parse("swir").unwrap(), Role::Extra("swir".into()));
-        assert_eq!(Role::parse("nir2").unwrap(), Role::Extra("nir2".into()));
+        assert!(Role::parse("extra:2nir").is_err());
+        // In band math, declared bands of one's own are referred to by name.
+        assert_eq!(Role::named("swir").unwrap(), Role::Extra("swir".into()));
+        assert_eq!(Role::named("nir2").unwrap(), Role::Extra("nir2".into()));
+        assert!(Role::named("nri").is_err());
         assert!(Role::parse("gren")
             .unwrap_err()
             .to_string()
             .contains("`green`"));
+        assert_eq!(Role::Extra("swir1".into()).declared(), "extra:swir1");
         // Worked by hand: one swap, one substitution, two edits.
         assert_eq!(edit_distance("nir", "nri"), 1);
         assert_eq!(edit_distance("red", "ref"), 1);
         assert_eq!(edit_distance("nir", "swir"), 2);
-        assert!(Role::parse("sqrt")
+        assert!(Role::parse("extra:sqrt")
             .unwrap_err()
             .to_string()
             .contains("reserved"));
+    }
+
+    #[test]
+    fn unknown_role_words_are_refused_with_the_known_roles() {
+        // `b=1,g=2,r=3` once passed as three bands of the user's own, giving no index.
+        for (word, near) in [("b", "blue"), ("g", "green"), ("r", "red"), ("swir1", "")] {
+            let e = Role::parse(word).unwrap_err().to_string();
+            assert!(
+                e.contains(&format!("unknown band role `{word}`")) && e.contains("extra:NAME"),
+                "{e}"
+            );
+            if !near.is_empty() {
+                assert!(e.contains(&format!("did you mean `{near}`")), "{e}");
+            }
+        }
+        let e = parse_band_map("b=1,g=2,r=3").unwrap_err().to_string();
+        assert!(e.contains("`b=1`") && e.contains("blue"), "{e}");
+        let e = Role::parse("extra:nir").unwrap_err().to_string();
+        assert!(e.contains("standard role"), "{e}");
+        let m = BandMap::parse("nir=5,extra:swir1=6").unwrap();
+        assert_eq!(m.roles[1], (Role::Extra("swir1".into()), 6));
     }
 
     #[test]

@@ -33,6 +33,7 @@ use crate::raster::SampleType;
 use crate::spectral::{self, BandArrays, MaskOptions};
 use crate::stack::output::{self, OutputDir};
 use crate::stack::plan::{Producer, StackPlan};
+use crate::stack::plausibility::{self, RangeCount, ELEVATION_RANGE_M, REFLECTANCE_RANGE};
 use crate::stack::preview::Preview;
 use crate::stack::recipe::Recipe;
 use crate::stack::sidecar::{
@@ -130,6 +131,8 @@ pub struct BuildReport {
     pub block_size: usize,
     pub concurrency: usize,
     pub seconds: f64,
+    /// Doubts about the inputs that did not stop the build (also printed to stderr).
+    pub warnings: Vec<String>,
 }
 
 /// Build the stack described by `recipe` into `options.out`: `stack.tif`, `preview.png`
@@ -199,30 +202,40 @@ fn run(
             .collect(),
     );
     let sources = hash_sources(&plan)?;
+    let mut warnings = plan.warnings.clone();
+    for w in &warnings {
+        eprintln!("warning: {w}");
+    }
 
+    let total = (plan.target.width * plan.target.height) as u64;
     let mut bar = progress_bar(options.progress, blocks.len());
     let mut stats: Vec<StatsAccumulator> = vec![StatsAccumulator::default(); plan.bands.len()];
+    let mut checks = Checks::new(&plan);
     let mut max_abs_z = 0.0f64;
     let mut done = 0usize;
     for wave in blocks.chunks(concurrency) {
-        type BlockResult = (Vec<StatsAccumulator>, Vec<EncodedBlock>, f64);
+        type BlockResult = (Vec<StatsAccumulator>, Checks, Vec<EncodedBlock>, f64);
         let results: Vec<Result<BlockResult>> = wave
             .par_iter()
             .map(|w| {
-                let (bands, block_max_z) = compute_block(&plan, *w)?;
+                let (bands, mut block_checks, block_max_z) = compute_block(&plan, *w)?;
                 let mut block_stats = Vec::with_capacity(bands.len());
                 let mut tiles = Vec::new();
                 for (i, data) in bands.iter().enumerate() {
                     encode_tiles(&writer, i + 1, *w, tile, data, &mut tiles)?;
                     preview.record(i, *w, data.view());
                     block_stats.push(StatsAccumulator::from_values(data.iter()));
+                    if let Producer::Index(index) = &plan.bands[i].producer {
+                        block_checks.index[i] =
+                            RangeCount::of(data.iter().copied(), 1.0, index.valid_range);
+                    }
                 }
-                Ok((block_stats, tiles, block_max_z))
+                Ok((block_stats, block_checks, tiles, block_max_z))
             })
             .collect();
         // Append in block order: the file's bytes do not depend on which thread finished first.
         for r in results {
-            let (block_stats, tiles, block_max_z) = r?;
+            let (block_stats, block_checks, tiles, block_max_z) = r?;
             max_abs_z = max_abs_z.max(block_max_z);
             for encoded in tiles {
                 writer.write_encoded(encoded)?;
@@ -230,14 +243,21 @@ fn run(
             for (acc, part) in stats.iter_mut().zip(block_stats.iter()) {
                 acc.merge(part);
             }
+            checks.merge(&block_checks);
         }
+        // Stop as soon as the counts prove a refusal; the temporary files are removed.
+        checks.verdict(&plan, total, false)?;
         done += wave.len();
         bar.advance(done, blocks.len());
     }
     writer.finish()?;
     bar.finish();
+    let late = checks.verdict(&plan, total, true)?;
+    for w in &late {
+        eprintln!("warning: {w}");
+    }
+    warnings.extend(late);
 
-    let total = (plan.target.width * plan.target.height) as u64;
     let mut bands: Vec<BandMetadata> = plan
         .bands
         .iter()
@@ -254,7 +274,7 @@ fn run(
             source: b.source.clone(),
             date: options.date.clone(),
             stats: acc.finish(total),
-            extra: b.extra.clone(),
+            extra: checks.band_records(&plan, i, b.extra.clone()),
         })
         .collect();
     for warning in record_precision(&plan, max_abs_z, &mut bands)? {
@@ -283,6 +303,7 @@ fn run(
         block_size: block,
         concurrency,
         seconds: started.elapsed().as_secs_f64(),
+        warnings,
     })
 }
 
@@ -376,6 +397,20 @@ fn write_options_tile(o: &WriteOptions) -> usize {
     }
 }
 
+/// DSM cells of block `w` (the padded block `z` without its halo), after the z-factor,
+/// counted against the plausible elevations.
+fn dsm_range_count<T: Copy + Into<f64>>(plan: &StackPlan, z: &Array2<T>, w: Window) -> RangeCount {
+    let core = z.slice(s![
+        plan.halo..plan.halo + w.height,
+        plan.halo..plan.halo + w.width
+    ]);
+    RangeCount::of(
+        core.iter().copied(),
+        plan.recipe.z_factor,
+        ELEVATION_RANGE_M,
+    )
+}
+
 /// The largest |z| (as stored) among the finite cells of a DSM block, 0 when none.
 fn max_abs<T: terrain::DsmSample>(z: &Array2<T>) -> f64 {
     z.iter()
@@ -384,9 +419,11 @@ fn max_abs<T: terrain::DsmSample>(z: &Array2<T>) -> f64 {
         .fold(0.0, f64::max)
 }
 
-/// Compute every band of the stack over block `w`, and the largest |z| of the DSM block
-/// read for it (as stored; 0 without terrain bands).
-fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, f64)> {
+/// Compute every band of the stack over block `w`, with the block's plausibility counts
+/// (index counts are filled in by the caller) and the largest |z| of the DSM block read
+/// for it (as stored; 0 without terrain bands).
+fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Checks, f64)> {
+    let mut checks = Checks::new(plan);
     let mut terrain_out: Vec<Option<Array2<f32>>> = Vec::new();
     let mut block_max_z = 0.0;
     if !plan.terrain.is_empty() {
@@ -394,8 +431,9 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, f64)>
         let cells = plan.target.cell_sizes(padded.row, padded.height)?;
         let out = if plan.dsm_reads_f64() {
             // float64 (and 32-bit integer) DSMs stay exact until the f32 output.
-            let z = plan.dsm.read_window_f64(1, padded)?;
+            let z = plan.dsm.read_window_f64(plan.dsm_band, padded)?;
             block_max_z = max_abs(&z);
+            checks.dsm = dsm_range_count(plan, &z, w);
             terrain::compute(
                 &plan.terrain,
                 z.view(),
@@ -406,17 +444,18 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, f64)>
             )
         } else {
             let z = if plan.dsm_on_target {
-                plan.dsm.read_window(1, padded)?
+                plan.dsm.read_window(plan.dsm_band, padded)?
             } else {
                 align::resample_window(
                     plan.dsm.as_ref(),
-                    1,
+                    plan.dsm_band,
                     &plan.target,
                     padded,
                     plan.recipe.resampling,
                 )?
             };
             block_max_z = max_abs(&z);
+            checks.dsm = dsm_range_count(plan, &z, w);
             terrain::compute(
                 &plan.terrain,
                 z.view(),
@@ -429,7 +468,13 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, f64)>
         terrain_out = out.into_iter().map(Some).collect();
     }
     let reflectance = if plan.needs_spectral() {
-        Some(read_reflectance(plan, w)?)
+        let r = read_reflectance(plan, w)?;
+        for (count, input) in checks.reflectance.iter_mut().zip(&plan.spectral) {
+            if let Some(a) = r.get(&input.band.role) {
+                *count = RangeCount::of(a.iter().copied(), 1.0, REFLECTANCE_RANGE);
+            }
+        }
+        Some(r)
     } else {
         None
     };
@@ -453,7 +498,7 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, f64)>
         };
         out.push(data);
     }
-    Ok((out, block_max_z))
+    Ok((out, checks, block_max_z))
 }
 
 /// Adds to every curvature band of `bands` its precision record (`precision` in
@@ -469,7 +514,7 @@ fn record_precision(
 ) -> Result<Vec<String>> {
     use terrain::precision::{second_derivative_floor, WARN_SHARE};
     use terrain::DsmSample;
-    let stored = plan.dsm.band_info(1).sample_type;
+    let stored = plan.dsm.band_info(plan.dsm_band).sample_type;
     let (seen, spacing) = if plan.dsm_reads_f64() {
         match stored {
             SampleType::F64 => ("float64", <f64 as DsmSample>::spacing_at(max_abs_z)),
@@ -539,6 +584,115 @@ fn record_precision(
         }
     }
     Ok(warnings)
+}
+
+/// Plausibility counts of a block or of the whole stack (see `stack::plausibility`).
+#[derive(Clone, Debug)]
+struct Checks {
+    /// DSM cells (after the z-factor) against the plausible elevations.
+    dsm: RangeCount,
+    /// Per spectral input (the plan's order), reflectance against the plausible range.
+    reflectance: Vec<RangeCount>,
+    /// Per band of the stack; counted for index bands only, against the index's range.
+    index: Vec<RangeCount>,
+}
+
+impl Checks {
+    fn new(plan: &StackPlan) -> Checks {
+        Checks {
+            dsm: RangeCount::default(),
+            reflectance: vec![RangeCount::default(); plan.spectral.len()],
+            index: vec![RangeCount::default(); plan.bands.len()],
+        }
+    }
+
+    fn merge(&mut self, other: &Checks) {
+        self.dsm.merge(&other.dsm);
+        for (a, b) in self.reflectance.iter_mut().zip(&other.reflectance) {
+            a.merge(b);
+        }
+        for (a, b) in self.index.iter_mut().zip(&other.index) {
+            a.merge(b);
+        }
+    }
+
+    /// Refuse the build when the counts so far prove it; warnings once `complete`.
+    fn verdict(&self, plan: &StackPlan, grid_cells: u64, complete: bool) -> Result<Vec<String>> {
+        let mut warnings = Vec::new();
+        if !plan.terrain.is_empty() {
+            warnings.extend(plausibility::check_elevations(
+                &plan.recipe.dsm,
+                &self.dsm,
+                plan.recipe.allow_any_elevation,
+                complete,
+            )?);
+        }
+        if plan.needs_spectral() {
+            for (count, input) in self.reflectance.iter().zip(&plan.spectral) {
+                warnings.extend(plausibility::check_reflectance(
+                    &input.band.path,
+                    input.band.role.name(),
+                    input.band.band,
+                    count,
+                    grid_cells,
+                    plan.recipe.allow_any_reflectance,
+                    complete,
+                )?);
+            }
+        }
+        if complete {
+            for (count, band) in self.index.iter().zip(&plan.bands) {
+                if let Producer::Index(index) = &band.producer {
+                    if count.outside > 0 {
+                        let (lo, hi) = index.valid_range;
+                        warnings.push(format!(
+                            "band {}: {} cells ({}) lie outside the index's valid range {lo} to {hi} \
+                             (reflectance outside 0–1 in its bands); recorded in stack.json",
+                            band.name,
+                            count.outside,
+                            plausibility::percent(count.fraction())
+                        ));
+                    }
+                }
+            }
+        }
+        Ok(warnings)
+    }
+
+    /// Band `i`'s sidecar fields with its plausibility record added: the valid-range count
+    /// of an index, the reflectance-range count of a reflectance band, the elevation-range
+    /// count of the elevation band.
+    fn band_records(
+        &self,
+        plan: &StackPlan,
+        i: usize,
+        mut extra: serde_json::Map<String, serde_json::Value>,
+    ) -> serde_json::Map<String, serde_json::Value> {
+        match &plan.bands[i].producer {
+            Producer::Index(index) => {
+                extra.insert(
+                    "outside_valid_range".into(),
+                    self.index[i].record(index.valid_range),
+                );
+            }
+            Producer::Reflectance(role) => {
+                if let Some(k) = plan.spectral.iter().position(|s| &s.band.role == role) {
+                    extra.insert(
+                        "outside_plausible_range".into(),
+                        self.reflectance[k].record(REFLECTANCE_RANGE),
+                    );
+                }
+            }
+            Producer::Terrain(_) if plan.bands[i].feature == "elevation" => {
+                extra.insert(
+                    "outside_plausible_range".into(),
+                    self.dsm.record(ELEVATION_RANGE_M),
+                );
+            }
+            _ => {}
+        }
+        extra
+    }
 }
 
 /// Reflectance of every mapped band over block `w`, resampled onto the target grid and

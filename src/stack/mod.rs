@@ -4,6 +4,7 @@
 pub mod executor;
 pub mod output;
 pub mod plan;
+pub mod plausibility;
 pub mod preview;
 pub mod recipe;
 pub mod sidecar;

@@ -15,6 +15,7 @@ use crate::error::{Error, Result};
 use crate::grid::{CrsKind, Grid, Window};
 use crate::raster::{self, RasterSource, SampleType};
 use crate::spectral::{self, BandMap, BandSource, Expression, PerBand, Role, SpectralIndex};
+use crate::stack::plausibility;
 use crate::stack::preview::RampKind;
 use crate::stack::recipe::Recipe;
 use crate::terrain::{self, TerrainFeature, TerrainParams, WindowShape};
@@ -61,6 +62,10 @@ pub struct StackPlan {
     /// The stack's grid (nodata NaN).
     pub target: Grid,
     pub dsm: Arc<dyn RasterSource>,
+    /// Band of the DSM file holding elevations (1-based).
+    pub dsm_band: usize,
+    /// Doubts about the inputs that do not stop the build; printed and kept by the executor.
+    pub warnings: Vec<String>,
     /// True when the DSM already lies on the target grid: its blocks are read, not resampled.
     pub dsm_on_target: bool,
     pub spectral: Vec<SpectralInput>,
@@ -91,8 +96,25 @@ impl StackPlan {
         dsm_grid
             .cell_size_m(0.0)
             .map_err(|e| e.in_file(&recipe.dsm))?;
+        let dsm_band = choose_dsm_band(dsm.as_ref(), recipe.dsm_band)?;
+        let mut warnings: Vec<String> = Vec::new();
+        warnings.extend(nodata_warning(dsm.as_ref(), dsm_band));
+        if dsm.band_info(dsm_band).sample_type == raster::SampleType::U8 {
+            warnings.push(format!(
+                "{}: the DSM's values are 8-bit integers (0–255), which is rare for elevations: \
+                 check that the file is not an image",
+                recipe.dsm.display()
+            ));
+        }
 
         let (spectral_inputs, alpha) = open_spectral(&recipe)?;
+        for input in &spectral_inputs {
+            if let Some(w) = nodata_warning(input.source.as_ref(), input.band.band) {
+                if !warnings.contains(&w) {
+                    warnings.push(w);
+                }
+            }
+        }
         let mut others: Vec<(std::path::PathBuf, Grid)> = Vec::new();
         for input in &spectral_inputs {
             if !others.iter().any(|(p, _)| p == &input.band.path) {
@@ -229,13 +251,15 @@ impl StackPlan {
             }
         }
         for (name, text) in &recipe.expressions {
+            check_expression_name(name)?;
             let expr = Expression::parse(name, text)?;
             if let Some(missing) = expr.roles().into_iter().find(|r| !mapped.contains(r)) {
                 return Err(Error::usage(format!(
                     "expression {name} uses the `{missing}` band, which is not mapped"
                 ))
                 .with_fix(format!(
-                    "map it with --bands {missing}=N or --band {missing}=FILE"
+                    "map it with --bands {0}=N or --band {0}=FILE",
+                    missing.declared()
                 )));
             }
             let mut extra = serde_json::Map::new();
@@ -279,11 +303,18 @@ impl StackPlan {
             .map(|f| f.halo_px(hx, hy))
             .max()
             .unwrap_or(0);
-        let reference_z = reference_elevation(dsm.as_ref())?;
+        let reference_z = reference_elevation(
+            dsm.as_ref(),
+            dsm_band,
+            recipe.z_factor,
+            recipe.allow_any_elevation || terrain_features.is_empty(),
+        )?;
         Ok(StackPlan {
             recipe,
             target,
             dsm,
+            dsm_band,
+            warnings,
             dsm_on_target,
             spectral: spectral_inputs,
             alpha,
@@ -382,7 +413,7 @@ impl StackPlan {
     pub fn dsm_reads_f64(&self) -> bool {
         self.dsm_on_target
             && matches!(
-                self.dsm.band_info(1).sample_type,
+                self.dsm.band_info(self.dsm_band).sample_type,
                 SampleType::F64 | SampleType::I32 | SampleType::U32
             )
     }
@@ -402,6 +433,44 @@ impl StackPlan {
         }
         out
     }
+}
+
+/// Refuse a band-math name that is, or begins with, a built-in word: a terrain feature
+/// word (`slope`, `tpi`, …, so also `slope_horn`, `tpi_r5m`), a catalogue index (`ndvi`,
+/// also the multi-temporal `ndvi_mean`), `reflectance` (`reflectance_nir`) or `indices`.
+/// Such a band would hide a built-in band or be hidden by it.
+fn check_expression_name(name: &str) -> Result<()> {
+    let lower = name.to_ascii_lowercase();
+    if lower.is_empty()
+        || !lower
+            .chars()
+            .next()
+            .is_some_and(|c| c.is_ascii_alphabetic())
+        || !lower.chars().all(|c| c.is_ascii_alphanumeric() || c == '_')
+    {
+        return Err(Error::usage(format!(
+            "band-math name {name:?} must start with a letter and hold only letters, digits and `_`"
+        ))
+        .with_fix("write e.g. --index wet=\"(green - nir) / (green + nir)\""));
+    }
+    let builtin = terrain::FEATURE_WORDS
+        .iter()
+        .map(|(w, _)| *w)
+        .chain(spectral::catalogue().iter().map(|i| i.name))
+        .chain(["reflectance", "indices"]);
+    for word in builtin {
+        if lower == word || lower.starts_with(&format!("{word}_")) {
+            return Err(Error::usage(format!(
+                "band-math name `{name}` collides with the built-in band name `{word}`{}",
+                if lower == word { "" } else { "_…" }
+            ))
+            .with_fix(format!(
+                "choose a name of your own that neither is nor begins with `{word}_` (e.g. `my_{lower}`); \
+                 to get the built-in band, ask for `{word}` in --features"
+            )));
+        }
+    }
+    Ok(())
 }
 
 /// Open the orthomosaic (one file, several roles) and per-band files; check band numbers.
@@ -455,9 +524,21 @@ fn open_spectral(recipe: &Recipe) -> Result<(Vec<SpectralInput>, Option<AlphaBan
             alpha = Some((src, band));
             continue;
         };
-        if sources.iter().any(|s| s.role == role) {
-            return Err(Error::usage(format!("role `{role}` is mapped twice"))
-                .with_fix("map each role once"));
+        if let Some(first) = sources.iter().find(|s| s.role == role) {
+            return Err(Error::usage(format!(
+                "role `{role}` is mapped twice: to band {} of {} and by `--band {spec}`",
+                first.band,
+                first.path.display()
+            ))
+            .with_fix("map each role once (either in --bands or with --band, not both)"));
+        }
+        if let Some(first) = sources.iter().find(|s| s.path == path && s.band == band) {
+            return Err(Error::usage(format!(
+                "band {band} of {} is mapped to two roles, `{}` and `{role}`",
+                path.display(),
+                first.role
+            ))
+            .with_fix("map each band to one role"));
         }
         let src = open_once(&path)?;
         spectral::check_band_exists(&path, band, src.band_count(), &role)?;
@@ -601,9 +682,70 @@ fn smallest_cell(grid: &Grid) -> Result<(f64, f64)> {
     Ok((ax.min(bx), ay.min(by)))
 }
 
+/// The band of the DSM that holds elevations: the one chosen, or the only one. A file with
+/// several bands (an orthomosaic or a photo given as `--dsm`) is refused without a choice.
+fn choose_dsm_band(dsm: &dyn RasterSource, chosen: Option<usize>) -> Result<usize> {
+    match chosen {
+        Some(b) => {
+            raster::check_band(dsm, b).map_err(|e| {
+                e.with_fix("choose the band that holds elevations with --dsm-band N (recipe: inputs.dsm_band)")
+            })?;
+            Ok(b)
+        }
+        None if dsm.band_count() > 1 => {
+            let info = dsm.band_info(1);
+            Err(Error::file(
+                dsm.path(),
+                format!(
+                    "the DSM file has {} bands ({}), but a DSM holds one band of elevations; \
+                     is it an orthomosaic or an image?",
+                    dsm.band_count(),
+                    info.sample_type.name()
+                ),
+            )
+            .with_fix("give the DSM file, or choose the band that holds elevations with --dsm-band N (recipe: inputs.dsm_band; `terrastack info FILE` lists the bands)"))
+        }
+        None => Ok(1),
+    }
+}
+
+/// A warning when band `band`'s nodata value cannot occur in its integer samples (−9999
+/// in uint16, 0.5 in int16): then no cell reads as nodata, and the file's fill cells
+/// probably hold some other value that reads as data.
+fn nodata_warning(source: &dyn RasterSource, band: usize) -> Option<String> {
+    use raster::SampleType::*;
+    let info = source.band_info(band);
+    let nd = info.nodata?;
+    let (lo, hi) = match info.sample_type {
+        U8 => (u8::MIN as f64, u8::MAX as f64),
+        U16 => (u16::MIN as f64, u16::MAX as f64),
+        I16 => (i16::MIN as f64, i16::MAX as f64),
+        U32 => (u32::MIN as f64, u32::MAX as f64),
+        I32 => (i32::MIN as f64, i32::MAX as f64),
+        F32 | F64 => return None,
+    };
+    if nd.is_finite() && nd.fract() == 0.0 && (lo..=hi).contains(&nd) {
+        return None;
+    }
+    Some(format!(
+        "{}: its nodata value {nd} cannot occur in its {} samples, so no cell reads as nodata \
+         (the fill cells probably hold another value); set the file's real nodata value",
+        source.path().display(),
+        info.sample_type.name()
+    ))
+}
+
 /// A whole-metre elevation near the DSM's data: the median of valid cells in a small
-/// window at the centre, else 0. Every block of the raster gets the same value.
-fn reference_elevation(dsm: &dyn RasterSource) -> Result<f64> {
+/// window at the centre, else 0. Every block of the raster gets the same value. Unless
+/// `allow_any` is set, a cell of the window outside the plausible elevations
+/// (`plausibility::ELEVATION_RANGE_M`, after `z_factor`) refuses the DSM before anything
+/// is written (the executor checks every other cell while it streams).
+fn reference_elevation(
+    dsm: &dyn RasterSource,
+    band: usize,
+    z_factor: f64,
+    allow_any: bool,
+) -> Result<f64> {
     let g = dsm.grid();
     let w = 64.min(g.width);
     let h = 64.min(g.height);
@@ -613,7 +755,15 @@ fn reference_elevation(dsm: &dyn RasterSource) -> Result<f64> {
         w,
         h,
     );
-    let data = dsm.read_window(1, win)?;
+    let data = dsm.read_window(band, win)?;
+    if !allow_any {
+        let count = plausibility::RangeCount::of(
+            data.iter().copied(),
+            z_factor,
+            plausibility::ELEVATION_RANGE_M,
+        );
+        plausibility::check_elevations(dsm.path(), &count, false, false)?;
+    }
     let mut valid: Vec<f32> = data.iter().copied().filter(|v| v.is_finite()).collect();
     if valid.is_empty() {
         return Ok(0.0);

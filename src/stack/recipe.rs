@@ -6,12 +6,15 @@
 //! ```toml
 //! [inputs]
 //! dsm = "flight/dsm.tif"
+//! dsm_band = 1                                # needed when the DSM file has several bands
+//! allow_any_elevation = false                 # accept elevations outside −500…9000 m
 //! ortho = "flight/ortho.tif"                  # one multi-band orthomosaic …
 //! bands = "blue=1,green=2,red=3,rededge=4,nir=5"
 //! files = { nir = "flight/nir.tif" }         # … and/or one file per band ("FILE" or "FILE:BAND")
 //! reflectance_scale = 0.0001                  # reflectance = stored · scale + offset
 //! reflectance_offset = 0.0
 //! zero_is_nodata = false                      # all bands 0 → nodata
+//! allow_any_reflectance = false               # accept reflectance outside −0.05…1.5
 //!
 //! [features]
 //! list = ["elevation", "slope", "curvature", "tpi", "ndvi"]   # terrain words and index names
@@ -77,6 +80,12 @@ pub struct RecipeFile {
 #[serde(deny_unknown_fields)]
 pub struct InputsSection {
     pub dsm: Option<PathBuf>,
+    /// Band of the DSM file holding elevations (1-based); required for multi-band files.
+    pub dsm_band: Option<usize>,
+    /// Accept elevations outside the plausible range (see `stack::plausibility`).
+    pub allow_any_elevation: Option<bool>,
+    /// Accept reflectance outside the plausible range (see `stack::plausibility`).
+    pub allow_any_reflectance: Option<bool>,
     pub ortho: Option<PathBuf>,
     pub bands: Option<String>,
     #[serde(default)]
@@ -148,6 +157,9 @@ impl RecipeFile {
 #[derive(Clone, Debug, Default)]
 pub struct RecipeFlags {
     pub dsm: Option<PathBuf>,
+    pub dsm_band: Option<usize>,
+    pub allow_any_elevation: bool,
+    pub allow_any_reflectance: bool,
     pub ortho: Option<PathBuf>,
     pub bands: Option<String>,
     /// `ROLE=FILE[:BAND]` entries.
@@ -172,6 +184,15 @@ pub struct RecipeFlags {
 #[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
 pub struct Recipe {
     pub dsm: PathBuf,
+    /// Band of the DSM file holding elevations (1-based); `None` = the only band.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub dsm_band: Option<usize>,
+    /// Build even when elevations lie outside the plausible range.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub allow_any_elevation: bool,
+    /// Build even when reflectance lies outside the plausible range.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub allow_any_reflectance: bool,
     pub ortho: Option<PathBuf>,
     /// Band map of `ortho` ("blue=1,green=2,…,alpha=6"), parsed by `spectral::BandMap`.
     pub bands: Option<String>,
@@ -276,6 +297,7 @@ impl Recipe {
             )));
         }
         let mut expressions = f.features.expressions.clone();
+        let mut given = std::collections::BTreeSet::new();
         for spec in &flags.expressions {
             let (name, expr) = spec.split_once('=').ok_or_else(|| {
                 Error::usage(format!("--index {spec:?} is not NAME=EXPRESSION"))
@@ -286,6 +308,10 @@ impl Recipe {
                 return Err(Error::usage(format!(
                     "--index name {name:?} must be letters, digits and underscores"
                 )));
+            }
+            if !given.insert(name.to_ascii_lowercase()) {
+                return Err(Error::usage(format!("--index {name} is given twice"))
+                    .with_fix("give each band-math band its own name"));
             }
             expressions.insert(name, expr.trim().to_string());
         }
@@ -325,8 +351,18 @@ impl Recipe {
             .reflectance_offset
             .clone()
             .or_else(|| f.inputs.reflectance_offset.as_ref().map(number_text));
+        let dsm_band = flags.dsm_band.or(f.inputs.dsm_band);
+        if dsm_band == Some(0) {
+            return Err(Error::usage("--dsm-band 0: bands are numbered from 1")
+                .with_fix("give the band holding elevations, e.g. --dsm-band 1"));
+        }
         Ok(Recipe {
             dsm,
+            dsm_band,
+            allow_any_elevation: flags.allow_any_elevation
+                || f.inputs.allow_any_elevation.unwrap_or(false),
+            allow_any_reflectance: flags.allow_any_reflectance
+                || f.inputs.allow_any_reflectance.unwrap_or(false),
             ortho,
             bands,
             band_files,

@@ -86,7 +86,9 @@ pub struct BandMetadata {
     pub date: Option<String>,
     pub stats: BandStats,
     /// Fields for spectral bands and other producers: role, source file, reflectance
-    /// scale and offset, resampling, expression text.
+    /// scale and offset, resampling, expression text; the plausibility records
+    /// `outside_valid_range` (index bands) and `outside_plausible_range` (reflectance and
+    /// elevation bands), see `stack::plausibility`.
     #[serde(flatten)]
     pub extra: serde_json::Map<String, serde_json::Value>,
 }

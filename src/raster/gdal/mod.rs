@@ -208,7 +208,15 @@ impl RasterSource for GdalSource {
     }
 
     fn read_window(&self, band: usize, window: Window) -> Result<Array2<f32>> {
-        Ok(self.read_window_f64(band, window)?.mapv(|v| v as f32))
+        // A float64 beyond the float32 range reads as nodata, like ±inf.
+        Ok(self.read_window_f64(band, window)?.mapv(|v| {
+            let x = v as f32;
+            if x.is_finite() {
+                x
+            } else {
+                f32::NAN
+            }
+        }))
     }
 
     fn read_window_f64(&self, band: usize, window: Window) -> Result<Array2<f64>> {
@@ -281,7 +289,8 @@ impl RasterSource for GdalSource {
                 let empty = mask
                     .as_ref()
                     .is_some_and(|m| m[i * inside.width + j] == 0.0);
-                let is_nodata = empty || v.is_nan() || nodata.is_some_and(|nd| v == nd);
+                // ±inf reads as nodata too.
+                let is_nodata = empty || !v.is_finite() || nodata.is_some_and(|nd| v == nd);
                 dst[c0 + j] = if is_nodata { f64::NAN } else { v };
             }
         }

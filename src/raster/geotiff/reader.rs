@@ -405,7 +405,24 @@ impl GeoTiffReader {
             t[3] -= t[4] * 0.5 + t[5] * 0.5;
         }
         let transform = transform.unwrap_or([0.0, 1.0, 0.0, 0.0, 0.0, 1.0]);
-        let nodata = ifd.ascii(tags::GDAL_NODATA).and_then(|t| parse_nodata(&t));
+        let nodata = match ifd.ascii(tags::GDAL_NODATA) {
+            Some(text) => match parse_nodata(&text) {
+                Some(v) => Some(v),
+                None if text.trim().trim_end_matches('\0').trim().is_empty() => None,
+                None => {
+                    return Err(Error::file(
+                        path,
+                        format!(
+                            "its nodata tag (GDAL_NODATA) reads {:?}, which is not a number, so \
+                             the cells without data cannot be told apart",
+                            text.trim_end_matches('\0')
+                        ),
+                    )
+                    .with_fix("rewrite the file with its real nodata value (GDAL: gdal_edit.py -a_nodata VALUE FILE), or remove the tag (-unsetnodata) if no cell is empty"))
+                }
+            },
+            None => None,
+        };
         let stored = Grid::new(width, height, transform, crs).map_err(|e| e.in_file(path))?;
         // A plain TIFF keeps GDAL's default transform (rows downward, y = row): it has no
         // north to turn to.
@@ -727,16 +744,19 @@ impl GeoTiffReader {
         let mut out = Array2::from_elem((window.height, window.width), f32::NAN);
         // The nodata value as the stored type sees it; a value the type cannot hold
         // matches nothing.
+        // ±inf (stored, or a float64 beyond the float32 range) is no elevation or
+        // reflectance either: it reads as nodata.
         let nodata = self.grid.nodata.and_then(T::nodata_match);
+        let finite = |x: f32| if x.is_finite() { x } else { f32::NAN };
         match nodata {
             Some(nd) => self.copy_window::<T, f32>(band, window, &mut out, |v| {
                 if v.to_f64() == nd {
                     f32::NAN
                 } else {
-                    v.to_f32()
+                    finite(v.to_f32())
                 }
             })?,
-            None => self.copy_window::<T, f32>(band, window, &mut out, |v| v.to_f32())?,
+            None => self.copy_window::<T, f32>(band, window, &mut out, |v| finite(v.to_f32()))?,
         }
         Ok(out)
     }
@@ -746,7 +766,8 @@ impl GeoTiffReader {
         let nodata = self.grid.nodata.and_then(T::nodata_match);
         self.copy_window::<T, f64>(band, window, &mut out, |v| {
             let x = v.to_f64();
-            if Some(x) == nodata {
+            // ±inf reads as nodata, as in `read_f32`.
+            if Some(x) == nodata || !x.is_finite() {
                 f64::NAN
             } else {
                 x
