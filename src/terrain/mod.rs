@@ -1137,6 +1137,29 @@ mod tests {
     }
 
     #[test]
+    fn window_radius_must_span_one_and_a_half_cells() {
+        // The rule of MIN_RADIUS_CELLS: r/h ≥ 1.5 on the coarser axis, decimal tolerance.
+        assert!(validate_window_radius(0.15, "--scales", 0.1, 0.1).is_ok());
+        assert!(validate_window_radius(5.0, "--scales", 0.1, 0.1).is_ok());
+        let e = validate_window_radius(0.05, "--scales", 0.1, 0.1)
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("--scales") && e.contains("0.500 cells"), "{e}");
+        // Unequal cells: the coarser axis decides (0.2 m / 0.2 m = 1 cell).
+        assert!(validate_window_radius(0.2, "`tpi@0.2`", 0.1, 0.2).is_err());
+        for bad in [0.0, -5.0, f64::NAN, f64::INFINITY] {
+            let e = validate_window_radius(bad, "--scales", 0.1, 0.1)
+                .unwrap_err()
+                .to_string();
+            assert!(e.contains("not a positive number of metres"), "{bad}: {e}");
+        }
+        assert!(matches!(
+            check_radius_value(-1.0, "--scales"),
+            Err(Error::Usage { .. })
+        ));
+    }
+
+    #[test]
     fn window_and_halo_sizes() {
         let t = TerrainFeature::Tpi { radius_m: 0.5 };
         // 0.5 m at 0.05 m cells is exactly 10 cells (decimal input, tolerance 1e-9).
