@@ -37,8 +37,14 @@ pub struct Args {
     /// scale plus reflectance and every index the mapped bands allow.
     #[arg(long, value_name = "LIST", value_delimiter = ',')]
     pub features: Option<Vec<String>>,
-    /// Window radii in metres for windowed features, comma-separated (default 1,5).
-    #[arg(long, value_name = "METRES,...", value_delimiter = ',')]
+    /// Window radii in metres for windowed features, comma-separated (default 1,5); each
+    /// must span at least 1.5 cells of the grid on both axes.
+    #[arg(
+        long,
+        value_name = "METRES,...",
+        value_delimiter = ',',
+        allow_negative_numbers = true
+    )]
     pub scales: Option<Vec<f64>>,
     /// Band math of your own: NAME=EXPRESSION over role names (repeatable).
     #[arg(long = "index", value_name = "NAME=EXPR")]

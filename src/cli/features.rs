@@ -19,7 +19,8 @@ pub fn run(args: Args) -> Result<()> {
             .iter()
             .map(|d| {
                 json!({ "word": d.word, "feature": d.feature, "kind": "terrain", "units": d.units,
-                        "method": d.method, "formula": d.formula, "reference": d.reference })
+                        "method": d.method, "formula": d.formula, "reference": d.reference,
+                        "edges": d.edges })
             })
             .collect();
         rows.push(json!({ "word": "reflectance", "feature": "reflectance", "kind": "spectral",
@@ -35,12 +36,17 @@ pub fn run(args: Args) -> Result<()> {
         );
         return Ok(());
     }
-    println!("Terrain features (windowed ones are built at every --scales radius, in metres):");
+    println!("Terrain features (windowed ones are built at every --scales radius, in metres;");
+    println!(
+        "a radius must span at least {} cells of the grid on both axes):",
+        terrain::MIN_RADIUS_CELLS
+    );
     println!();
     for d in &terrain_docs {
         println!("  {:<24} {:<9} {}", d.word, d.units, d.method);
         println!("  {:<24} {}", "", d.formula);
         println!("  {:<24} {}", "", d.reference);
+        println!("  {:<24} edges and holes: {}", "", d.edges);
         println!();
     }
     println!("Spectral features (reflectance 0–1; `indices` asks for every index the mapped bands allow):");

@@ -184,6 +184,7 @@ impl StackPlan {
             shape,
         };
         let (hx, hy) = smallest_cell(&target)?;
+        let (hx_max, hy_max) = largest_cell(&target)?;
         let mut terrain_features: Vec<TerrainFeature> = Vec::new();
         let mut bands: Vec<BandPlan> = Vec::new();
         for word in &recipe.features {
@@ -232,19 +233,37 @@ impl StackPlan {
                         }
                     })?;
                 for feature in expanded {
+                    if let Some(r) = feature.scale_m() {
+                        let origin = if w.contains('@') {
+                            format!("`{w}` in the feature list")
+                        } else {
+                            "--scales, or scales_m in the recipe".to_string()
+                        };
+                        terrain::validate_window_radius(r, &origin, hx_max, hy_max)?;
+                    }
                     let (wx, wy) = feature.window_px(hx, hy);
                     check_window_fits(&feature, (wx, wy), (hx, hy), &target)?;
+                    let mut extra = serde_json::Map::new();
+                    let method = feature.method_with_shape(shape);
+                    extra.insert(
+                        "edge_rule".into(),
+                        terrain::catalogue::edge_rule(
+                            feature.feature_key(),
+                            method.as_deref().unwrap_or(""),
+                        )
+                        .into(),
+                    );
                     bands.push(BandPlan {
                         producer: Producer::Terrain(terrain_features.len()),
                         name: feature.band_name(),
                         feature: feature.feature_key().to_string(),
-                        method: feature.method_with_shape(shape),
+                        method,
                         scale_m: feature.scale_m(),
                         window_px: feature.scale_m().map(|_| 2 * wx.max(wy) + 1),
                         units: feature.units().to_string(),
                         source: "dsm".into(),
                         ramp: ramp_for(feature.feature_key()),
-                        extra: serde_json::Map::new(),
+                        extra,
                     });
                     terrain_features.push(feature);
                 }
@@ -733,6 +752,25 @@ fn nodata_warning(source: &dyn RasterSource, band: usize) -> Option<String> {
         source.path().display(),
         info.sample_type.name()
     ))
+}
+
+/// The largest cell sizes (metres) of the grid: on geographic grids cells are widest at
+/// the row nearest the equator (the first or last row, or the equator's own row when the
+/// grid spans it); projected grids have one cell size.
+fn largest_cell(grid: &Grid) -> Result<(f64, f64)> {
+    let last = (grid.height - 1) as f64;
+    let t = &grid.transform;
+    let equator = if t[5] != 0.0 {
+        (-t[3] / t[5] - 0.5).clamp(0.0, last)
+    } else {
+        0.0
+    };
+    let mut best = (0.0f64, 0.0f64);
+    for row in [0.0, equator, last] {
+        let (x, y) = grid.cell_size_m(row)?;
+        best = (best.0.max(x), best.1.max(y));
+    }
+    Ok(best)
 }
 
 /// A whole-metre elevation near the DSM's data: the median of valid cells in a small

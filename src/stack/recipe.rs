@@ -62,6 +62,18 @@ pub const DEFAULT_FEATURES: &[&str] = &[
 /// Default window radii in metres.
 pub const DEFAULT_SCALES_M: &[f64] = &[1.0, 5.0];
 
+/// Where the window radii of a recipe come from, for error messages: the flag, the recipe
+/// file's key, or the default.
+pub fn scales_origin(from_flag: bool, from_file: bool) -> &'static str {
+    if from_flag {
+        "--scales"
+    } else if from_file {
+        "scales_m in the recipe"
+    } else {
+        "the default --scales 1,5"
+    }
+}
+
 /// The recipe file as written (every key optional).
 #[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields)]
@@ -261,15 +273,14 @@ impl Recipe {
             return Err(Error::usage("the feature list is empty")
                 .with_fix("name at least one feature; `terrastack features` lists them"));
         }
+        let scales_origin = scales_origin(flags.scales_m.is_some(), f.features.scales_m.is_some());
         let scales_m = flags
             .scales_m
             .clone()
             .or_else(|| f.features.scales_m.clone())
             .unwrap_or_else(|| DEFAULT_SCALES_M.to_vec());
-        if let Some(bad) = scales_m.iter().find(|s| !s.is_finite() || **s <= 0.0) {
-            return Err(Error::usage(format!(
-                "scale {bad} m is not a positive number of metres"
-            )));
+        for &s in &scales_m {
+            crate::terrain::check_radius_value(s, scales_origin)?;
         }
         let window = flags
             .window

@@ -17,9 +17,11 @@ pub struct FeatureDoc {
     pub method: &'static str,
     pub formula: &'static str,
     pub reference: &'static str,
+    /// What the value is where the raster's edge or a nodata hole cuts the window off.
+    pub edges: &'static str,
 }
 
-const fn doc(
+fn doc(
     word: &'static str,
     feature: &'static str,
     units: &'static str,
@@ -34,6 +36,7 @@ const fn doc(
         method,
         formula,
         reference,
+        edges: edge_rule(feature, method),
     }
 }
 
@@ -42,6 +45,39 @@ const ZT: &str = "Zevenbergen & Thorne 1987, Earth Surf. Process. Landforms 12 (
 const EY: &str = "Evans 1979; Young 1978; see Florinsky 2016 (from memory)";
 const WOOD: &str = "Wood 1996, PhD thesis, University of Leicester (from memory)";
 const CURV: &str = "Florinsky 2016, Digital Terrain Analysis in Soil Science and Geology, 2nd ed.; Minár et al. 2020, Earth-Science Reviews 211, 103414 (from memory)";
+
+/// Edge rule of the 3x3 estimators and TRI.
+pub const EDGES_3X3: &str =
+    "all nine cells of the 3x3 window must be valid, else NaN (no cut windows)";
+/// Edge rule of the multi-scale quadratic fit.
+pub const EDGES_FIT: &str = "every cell of the fit window must be valid, else NaN (no cut windows)";
+/// Edge rule of TPI.
+pub const EDGES_TPI: &str = "z minus the centre value of the least-squares plane through the window's valid cells: equal to z − mean on a full window, 0 on any plane where the raster's edge or nodata cuts the window; NaN below the valid fraction or if the valid cells are collinear";
+/// Edge rule of DEV.
+pub const EDGES_DEV: &str = "numerator as tpi (plane through the valid cells, 0 on any plane, cut or not), divided by the std of the valid cells; NaN below the valid fraction";
+/// Edge rule of plain roughness.
+pub const EDGES_STD: &str = "std of the valid cells only: on a slope a window cut by the edge or nodata reads lower than a full one (not corrected); NaN below the valid fraction";
+/// Edge rule of detrended roughness.
+pub const EDGES_DETRENDED: &str = "residuals from the plane through the valid cells: 0 on any plane, cut or not; NaN below the valid fraction";
+/// Edge rule of VRM.
+pub const EDGES_VRM: &str = "normals of the valid cells (each needs its full 3x3 window): 0 on any plane, cut or not; NaN below the valid fraction";
+/// Edge rule of relative elevation and local relief.
+pub const EDGES_EXTREMA: &str = "minimum and maximum of the valid cells only: on a slope a window cut by the edge or nodata reads lower than a full one (not corrected); NaN below the valid fraction";
+
+/// The edge rule of a feature key and method (see [`FeatureDoc::edges`]).
+pub fn edge_rule(feature: &str, method: &str) -> &'static str {
+    match (feature, method) {
+        ("elevation", _) => "pointwise: no window",
+        (_, "quadratic") => EDGES_FIT,
+        ("tpi", _) => EDGES_TPI,
+        ("dev", _) => EDGES_DEV,
+        ("roughness", m) if m.starts_with("detrended") => EDGES_DETRENDED,
+        ("roughness", _) => EDGES_STD,
+        ("vrm", _) => EDGES_VRM,
+        ("relative_elevation" | "local_relief", _) => EDGES_EXTREMA,
+        _ => EDGES_3X3,
+    }
+}
 
 /// Every terrain feature terrastack computes, one entry per word and method.
 pub fn catalogue() -> Vec<FeatureDoc> {

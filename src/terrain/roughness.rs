@@ -15,8 +15,14 @@
 //!   must be valid.
 //!
 //! Windowed results are NaN with fewer than `min_valid_fraction` × window cells valid.
+//!
+//! Windows cut off by the raster's edge or by nodata: roughness is the standard deviation
+//! of the cells present, so on a slope a cut window reads lower than a full one (on a
+//! plane it measures the gradient times the spread of the valid cells' offsets); this is
+//! documented in the catalogue and in `stack.json`, not corrected. Detrended roughness
+//! fits its plane to the valid cells, so it is 0 on every plane, cut or not.
 
-use super::position::{enough, variance_numerator};
+use super::position::{enough, exact_or_f64, variance_numerator};
 use super::window_sums::{CellSums, Z_QUANTUM_M};
 
 /// Standard deviation of elevation in the window, metres.
@@ -25,17 +31,6 @@ pub fn std_dev(cells: u64, s: &CellSums, min_valid_fraction: f64) -> f64 {
         return f64::NAN;
     }
     variance_numerator(s.n, s.s[0], s.s2).sqrt() / s.n as f64 * Z_QUANTUM_M
-}
-
-fn exact_or_f64(a: i128, b: i128, c: i128, d: i128) -> f64 {
-    // a·b − c·d exactly when it fits, else in f64.
-    match (a.checked_mul(b), c.checked_mul(d)) {
-        (Some(x), Some(y)) => match x.checked_sub(y) {
-            Some(v) => v as f64,
-            None => x as f64 - y as f64,
-        },
-        _ => a as f64 * b as f64 - c as f64 * d as f64,
-    }
 }
 
 /// Standard deviation of residuals from the window's least-squares plane, metres.
