@@ -16,7 +16,7 @@ Steps:
    band map and the reflectance scale are given) and `--memory 2G`.
 3. Read the run's `stack.json` and compute the SAME bands, in the same order, with
    numpy/scipy + rasterio the way an analyst would write it: whole arrays in memory,
-   Horn slope, northness/eastness, Evans–Young curvatures (METHODS.md), disc window
+   Horn slope, northness/eastness, Evans–Young curvatures (docs/methods.md), disc window
    statistics with the 0.75 valid fraction through FFT convolution of z, z² and the valid
    mask with a disc kernel (scipy.signal.fftconvolve), the disc minimum through
    scipy.ndimage.minimum_filter with a disc footprint, the orthomosaic resampled with

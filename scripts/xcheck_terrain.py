@@ -15,7 +15,7 @@ A rectangular hole of nodata is punched into the DEM (written with nodata -32768
 the valid-fraction masking of windowed statistics is exercised as well.
 
 References are computed here with numpy and scipy only, written independently of the Rust
-code from the formulas in METHODS.md:
+code from the formulas in docs/methods.md:
 - metres per degree on WGS84 at each row's centre latitude (M and N radii of curvature);
 - Horn 1981 slope and aspect (degrees; aspect clockwise from north, downslope; NaN flat);
 - disc TPI (z - mean) and roughness (population std) at radii of 200 m and 400 m with
@@ -43,7 +43,7 @@ HOLE = (slice(120, 150), slice(200, 240))  # rows, cols of the punched hole
 
 
 def metres_per_degree(lat_deg):
-    """WGS84 metres per degree of latitude and of longitude (METHODS.md formulas)."""
+    """WGS84 metres per degree of latitude and of longitude (docs/methods.md formulas)."""
     a = 6378137.0
     f = 1.0 / 298.257223563
     e2 = f * (2.0 - f)

@@ -965,7 +965,7 @@ mod tests {
     #[test]
     fn target_grid_geographic_resolution_at_centre_latitude() {
         // 1000 x 1000 cells of 1e-6° whose centre latitude is 36.6°: 0.5 m cells become
-        // 0.5/89475.76° wide and 0.5/110970.16° tall (METHODS.md worked metres per degree).
+        // 0.5/89475.76° wide and 0.5/110970.16° tall (docs/methods.md worked metres per degree).
         let d = 1e-6;
         let dsm = Grid::new(
             1000,

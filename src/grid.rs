@@ -6,7 +6,7 @@
 //!
 //! Cell sizes in metres come from the CRS: projected units are converted (metres, feet);
 //! on geographic grids the WGS84 ellipsoid's metres per degree are taken at each row's
-//! latitude (see `METHODS.md`, "Metres per degree").
+//! latitude (see `docs/methods.md`, "Metres per degree").
 
 use serde::{Deserialize, Serialize};
 
@@ -631,7 +631,7 @@ mod tests {
 
     #[test]
     fn metres_per_degree_worked_value() {
-        // Worked in METHODS.md ("Metres per degree"): at 36.6° 110970.16 m and 89475.76 m.
+        // Worked in docs/methods.md ("Metres per degree"): at 36.6° 110970.16 m and 89475.76 m.
         let (lat, lon) = metres_per_degree(36.6);
         assert_relative_eq!(lat, 110_970.16, epsilon = 0.01);
         assert_relative_eq!(lon, 89_475.76, epsilon = 0.01);

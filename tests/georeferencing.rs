@@ -228,7 +228,7 @@ fn four_orientations_give_bit_identical_layers() {
 fn south_up_plane_has_its_true_aspect() {
     // The plane z = 0.3x + 0.4y (x east, y north, metres) stored south-up and east-to-west:
     // slope atan(0.5) = 26.5651°, aspect 216.8699°, northness cos(216.8699°) = −0.8,
-    // eastness −0.6 (worked in METHODS.md, "First derivatives"), not the mirrored 323.13°.
+    // eastness −0.6 (worked in docs/methods.md, "First derivatives"), not the mirrored 323.13°.
     let tmp = tempdir();
     let grid = utm_grid(20, 16, 0.5);
     let plane = Array2::from_shape_fn((16, 20), |(r, c)| {

@@ -20,7 +20,7 @@ const N: usize = 121;
 const BASE: f64 = 1500.0;
 
 /// Sphere cap z = √(R² − x² − y²) + 1500 m (R = 37 m), centred on the grid, at 5 cm cells
-/// (closed form, METHODS.md), and its exact mean curvature 1/R everywhere.
+/// (closed form, docs/methods.md), and its exact mean curvature 1/R everywhere.
 fn cap() -> Array2<f64> {
     let c = (N as f64 - 1.0) / 2.0;
     Array2::from_shape_fn((N, N), |(i, j)| {

@@ -6,7 +6,7 @@
 //! `--ignored`, and without the variable it fails.
 //!
 //! Sources: numpy (Horn slope and aspect with per-row WGS84 metres per degree) and
-//! scipy.ndimage.correlate (disc TPI and roughness), both written from METHODS.md
+//! scipy.ndimage.correlate (disc TPI and roughness), both written from docs/methods.md
 //! independently of the Rust code; the DEM ships with matplotlib.
 
 use std::path::{Path, PathBuf};

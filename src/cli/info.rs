@@ -458,7 +458,7 @@ mod tests {
     #[test]
     fn geographic_cell_size_at_centre_row() {
         // 1 arc-second cells centred on 36.6° N: 30.8251 m x 24.8544 m from the worked
-        // metres-per-degree values of METHODS.md (110970.16 and 89475.76 m per degree).
+        // metres-per-degree values of docs/methods.md (110970.16 and 89475.76 m per degree).
         let dir = tempfile::tempdir().unwrap();
         let d = 1.0 / 3600.0;
         let grid = Grid::new(

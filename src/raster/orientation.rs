@@ -1,6 +1,6 @@
 //! Reading any stored orientation as the north-up, west-to-east grid terrastack works on.
 //!
-//! Every kernel takes x east and y north with rows running south (`METHODS.md`, "Axes").
+//! Every kernel takes x east and y north with rows running south (`docs/methods.md`, "Axes").
 //! A file may store its rows south to north (a positive y cell size in the geotransform,
 //! "south-up"), its columns east to west (a negative x cell size), or both, with a
 //! transform that describes it exactly. Readers normalise this when a file is opened:

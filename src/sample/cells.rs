@@ -6,7 +6,7 @@
 //! lookups). Circle membership is measured in metres: `(Δx·mx)² + (Δy·my)² ≤ r²`, with
 //! `mx`, `my` the metres per CRS unit east and north at the sample (the linear unit on
 //! projected grids; WGS84 metres per degree at the sample's latitude on geographic grids,
-//! see METHODS.md "Metres per degree"), boundary included. Polygon membership is the
+//! see docs/methods.md "Metres per degree"), boundary included. Polygon membership is the
 //! crossing-number (even-odd) rule with a ray towards +x, so a centre exactly on a left
 //! edge is inside and on a right edge outside; holes are rings like any other, and the
 //! polygons of a multipolygon are united.
@@ -251,7 +251,7 @@ mod tests {
     #[test]
     fn circle_on_geographic_grid_is_metric() {
         // 1 arc-second cells at ~36.6°: 30.83 m north-south and 24.85 m east-west per
-        // cell (METHODS.md worked value: 110970.16 and 89475.76 m per degree). A 40 m
+        // cell (docs/methods.md worked value: 110970.16 and 89475.76 m per degree). A 40 m
         // radius reaches 1 cell north/south (30.8 m) and 1 cell east/west (24.9 m; 2 cells
         // would be 49.7 m), plus the four diagonal cells at 39.6 m: 9 cells.
         let d = 1.0 / 3600.0;

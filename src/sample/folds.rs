@@ -14,7 +14,7 @@
 //! samples of a block share its fold; minority-class samples follow their block, so
 //! per-class *sample* counts per fold are only as balanced as the blocks allow. On
 //! geographic grids the block side is converted to degrees with WGS84 metres per degree at
-//! the stack's central latitude (METHODS.md "Metres per degree").
+//! the stack's central latitude (docs/methods.md "Metres per degree").
 //!
 //! Fold numbers are 0-based here; the table writes them 1-based.
 

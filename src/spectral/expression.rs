@@ -935,7 +935,7 @@ mod tests {
 
     #[test]
     fn ndvi_expression_matches_catalogue() {
-        // The catalogue's ndvi (checked against METHODS.md worked values) computed through
+        // The catalogue's ndvi (checked against docs/methods.md worked values) computed through
         // band math must agree to f32 rounding.
         let mut b = BandArrays::new();
         b.insert(Role::Nir, array![[0.40f32, 0.3, 0.0, f32::NAN]])

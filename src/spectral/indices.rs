@@ -1,7 +1,7 @@
 //! The catalogue of published spectral indices.
 //!
 //! Each [`SpectralIndex`] holds its formula with the published coefficients, the paper it
-//! comes from and the roles it needs (see `METHODS.md`, "Spectral indices"). Inputs are
+//! comes from and the roles it needs (see `docs/methods.md`, "Spectral indices"). Inputs are
 //! reflectance (0–1). Arithmetic is done in f64 per cell and rounded once to f32. A cell
 //! whose inputs include NaN, or whose result is not finite (a zero denominator, the square
 //! root of a negative number), is NaN: an index never yields ±inf.
@@ -250,7 +250,7 @@ mod tests {
     use ndarray::array;
 
     fn worked_bands() -> BandArrays {
-        // METHODS.md, "Spectral indices": B = 0.04, G = 0.08, R = 0.05, RE = 0.20, N = 0.40.
+        // docs/methods.md, "Spectral indices": B = 0.04, G = 0.08, R = 0.05, RE = 0.20, N = 0.40.
         let mut b = BandArrays::new();
         for (role, v) in [(B, 0.04f32), (G, 0.08), (R, 0.05), (RE, 0.20), (N, 0.40)] {
             b.insert(role, Array2::from_elem((2, 3), v)).unwrap();
@@ -260,7 +260,7 @@ mod tests {
 
     #[test]
     fn worked_values_from_methods_sheet() {
-        // Worked values in METHODS.md ("Worked with B = 0.04 …"), 4 decimals, so ±5e-5.
+        // Worked values in docs/methods.md ("Worked with B = 0.04 …"), 4 decimals, so ±5e-5.
         let expected = [
             ("ndvi", 0.7778),
             ("gndvi", 0.6667),

@@ -1,7 +1,7 @@
 //! The stack's JSON sidecar (`stack.json`, format `terrastack-stack/1`) and per-band
 //! statistics.
 //!
-//! The layout is the contract of DESIGN.md ("The stack"): other tools read it, so fields
+//! The layout is the contract of docs/design.md ("The stack"): other tools read it, so fields
 //! are only ever added. Statistics are exact (every valid cell, no sampling) and
 //! deterministic: each block keeps its own partial sums, and partials are merged in block
 //! order, never in the order threads finish.
@@ -70,7 +70,7 @@ pub struct BandMetadata {
     pub index: usize,
     /// Band name, also the band description in `stack.tif`.
     pub name: String,
-    /// One of DESIGN.md's feature keys (slope, tpi, ndvi, reflectance, expression, …).
+    /// One of docs/design.md's feature keys (slope, tpi, ndvi, reflectance, expression, …).
     pub feature: String,
     /// Estimator or variant ("horn", "disc", …); null when there is only one.
     pub method: Option<String>,

@@ -1,7 +1,7 @@
 //! The catalogue of terrain features: word, units, method, formula and reference, for the
 //! `features` command and the stack's documentation.
 //!
-//! Citations are given from memory (METHODS.md notes the same); check volume and page
+//! Citations are given from memory (docs/methods.md notes the same); check volume and page
 //! numbers before quoting them.
 
 use serde::Serialize;
@@ -11,7 +11,7 @@ use serde::Serialize;
 pub struct FeatureDoc {
     /// The feature word accepted by `--features` (with its method suffix, if any).
     pub word: &'static str,
-    /// The DESIGN.md `feature` value.
+    /// The docs/design.md `feature` value.
     pub feature: &'static str,
     pub units: &'static str,
     pub method: &'static str,

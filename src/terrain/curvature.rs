@@ -2,7 +2,7 @@
 //!
 //! Florinsky 2016 (Digital Terrain Analysis in Soil Science and Geology, 2nd ed.) and
 //! Minár et al. 2020 (Earth-Science Reviews 211, 103414), citations from memory, with the
-//! sign convention of METHODS.md: convex (a dome) is positive. Units 1/m (Gaussian 1/m²).
+//! sign convention of docs/methods.md: convex (a dome) is positive. Units 1/m (Gaussian 1/m²).
 //! With g = p² + q² and w = 1 + g:
 //! - profile kn = −(p²r + 2pqs + q²t) / (g·w^(3/2))
 //! - tangential kt = −(q²r − 2pqs + p²t) / (g·w^(1/2))
@@ -108,7 +108,7 @@ mod tests {
 
     #[test]
     fn worked_sphere_cap() {
-        // METHODS.md worked: R = 37 m at (3, 4): kn = kt = H = 1/R = 0.027027, K = 1/R²,
+        // docs/methods.md worked: R = 37 m at (3, 4): kn = kt = H = 1/R = 0.027027, K = 1/R²,
         // kc = 1/ρ = 0.2 with ρ = 5 m.
         let d = sphere(37.0, 3.0, 4.0);
         assert_relative_eq!(profile(&d), 1.0 / 37.0, epsilon = 1e-12);
@@ -120,7 +120,7 @@ mod tests {
 
     #[test]
     fn worked_bowl() {
-        // METHODS.md worked: bowl z = (x² + y²)/(2R), R = 100 m, at (30, 40):
+        // docs/methods.md worked: bowl z = (x² + y²)/(2R), R = 100 m, at (30, 40):
         // kn = −0.0071554, kt = −0.0089443, kc = −0.0200, H = −0.0080498, K = 6.4e-5.
         let d = Pqrst {
             p: 0.3,
@@ -138,7 +138,7 @@ mod tests {
 
     #[test]
     fn worked_gaussian_hill() {
-        // METHODS.md worked: z = 100·exp(−ρ²/(2·50²)) at (50, 0): kn = 0, kt = 0.0154323,
+        // docs/methods.md worked: z = 100·exp(−ρ²/(2·50²)) at (50, 0): kn = 0, kt = 0.0154323,
         // H = 0.0077162, K = 0. Derivatives in closed form: with e = exp(−1/2),
         // p = −100·x/σ²·e, r = 100·e·(x²/σ⁴ − 1/σ²) = 0 at x = σ, t = −100·e/σ², s = q = 0.
         let sig2 = 2500.0;
@@ -259,7 +259,7 @@ mod tests {
 
     #[test]
     fn worked_values_survive_the_undefined_rule_at_high_elevation() {
-        // METHODS.md worked values through the layers, on f64 DSMs 1500 m up with 5 cm
+        // docs/methods.md worked values through the layers, on f64 DSMs 1500 m up with 5 cm
         // cells: the bowl z = (x² + y²)/200 at (30, 40) is exact for Evans–Young
         // (kn = −0.0071554, kt = −0.0089443, kc = −0.0200, H = −0.0080498, K = 6.4e-5);
         // the sphere cap R = 37 m at (3, 4) (kn = kt = H = 1/R, kc = 0.2, K = 1/R²) is

@@ -9,7 +9,7 @@
 //! z7 z8 z9
 //! ```
 //!
-//! Estimators (formulas as in METHODS.md):
+//! Estimators (formulas as in docs/methods.md):
 //! - Horn 1981 (Proc. IEEE 69(1), from memory): p, q from weighted differences. Horn gives
 //!   no second derivatives; a Horn set carries the Evans–Young r, s, t.
 //! - Zevenbergen & Thorne 1987 (Earth Surf. Process. Landforms 12, from memory): partial
@@ -104,7 +104,7 @@ pub fn pqrst_3x3(w: &[f64; 9], hx: f64, hy: f64, method: SlopeMethod) -> Option<
 /// σ̂² = RSS/3 is the elevation noise left by the least-squares quadratic through the nine
 /// cells (9 cells, 6 coefficients), v·σ²/h² the variance of the estimator's p per unit
 /// elevation noise (Horn 3/16, Zevenbergen–Thorne 1/2, Evans–Young 1/6: sums of squared
-/// weights; METHODS.md's 0.433, 0.707, 0.408 are their roots) and k =
+/// weights; docs/methods.md's 0.433, 0.707, 0.408 are their roots) and k =
 /// [`curvature::GRADIENT_SIGNIFICANCE`]. NaN when a cell is not finite.
 pub fn gradient_floor_3x3(w: &[f64; 9], hx: f64, hy: f64, method: SlopeMethod) -> f64 {
     let [z1, z2, z3, z4, z5, z6, z7, z8, z9] = *w;
@@ -297,7 +297,7 @@ pub fn horn_pq_region(
     (p, q)
 }
 
-/// A pointwise function of the partial derivatives (METHODS.md formulas, in
+/// A pointwise function of the partial derivatives (docs/methods.md formulas, in
 /// [`super::slope`] and [`super::curvature`]).
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum Pointwise {
@@ -681,7 +681,7 @@ mod tests {
 
     #[test]
     fn plane_is_exact_for_every_estimator() {
-        // Closed form: z = 0.3x + 0.4y has p = 0.3, q = 0.4, r = s = t = 0 (METHODS.md).
+        // Closed form: z = 0.3x + 0.4y has p = 0.3, q = 0.4, r = s = t = 0 (docs/methods.md).
         for m in [
             SlopeMethod::Horn,
             SlopeMethod::ZevenbergenThorne,
@@ -701,7 +701,7 @@ mod tests {
     fn quadratic_surface_is_exact_for_zt_and_ey() {
         // Closed form: z = a x² + b y² + c xy + d x + e y: p = 2a x0 + c y0 + d,
         // q = 2b y0 + c x0 + e, r = 2a, t = 2b, s = c. Both ZT and EY are exact on
-        // quadratics (METHODS.md: an exactness test); unequal hx, hy catch axis mix-ups.
+        // quadratics (docs/methods.md: an exactness test); unequal hx, hy catch axis mix-ups.
         let (a, b, c, d, e) = (0.02, -0.03, 0.05, 0.3, -0.7);
         let f = |x: f64, y: f64| a * x * x + b * y * y + c * x * y + d * x + e * y;
         let (x0, y0, hx, hy) = (3.0, 4.0, 0.7, 1.3);
@@ -720,7 +720,7 @@ mod tests {
 
     #[test]
     fn horn_weights_match_hand_computation() {
-        // Hand computation from Horn's formula (METHODS.md) on a 3x3 of integers 1..9:
+        // Hand computation from Horn's formula (docs/methods.md) on a 3x3 of integers 1..9:
         // p = ((3 + 12 + 9) − (1 + 8 + 7)) / 8 = 1, q = ((1 + 4 + 3) − (7 + 16 + 9)) / 8 = −3.
         let w = [1.0, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0, 8.0, 9.0];
         let d = pqrst_3x3(&w, 1.0, 1.0, SlopeMethod::Horn).unwrap();
@@ -738,7 +738,7 @@ mod tests {
     #[test]
     fn fused_pass_equals_cell_by_cell_evaluation() {
         // Reference: pqrst_3x3, gradient_floor_3x3 and the pointwise functions cell by cell
-        // (the scalar form of the METHODS.md formulas); the row loops (the AVX2 build on a
+        // (the scalar form of the docs/methods.md formulas); the row loops (the AVX2 build on a
         // CPU that has it) must give the same bits, NaN included, on a random surface with
         // holes, infinities, a z-factor and geographic rows.
         use crate::terrain::test_support::{random_dem, SplitMix64};

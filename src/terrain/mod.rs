@@ -6,7 +6,7 @@
 //! [`TerrainFeature`]s in one pass, sharing intermediates: one set of 3x3 partial
 //! derivatives per estimator, one set of exact window sums per window radius and shape.
 //!
-//! Conventions (METHODS.md): x east, y north, rows increase southward; slope and aspect in
+//! Conventions (docs/methods.md): x east, y north, rows increase southward; slope and aspect in
 //! degrees, aspect clockwise from north towards the downslope direction; curvatures in 1/m,
 //! convex positive; heights in metres.
 //!
@@ -363,7 +363,7 @@ impl TerrainFeature {
         }
     }
 
-    /// The DESIGN.md `feature` value: "slope", "tpi", "roughness", ...
+    /// The docs/design.md `feature` value: "slope", "tpi", "roughness", ...
     pub fn feature_key(&self) -> &'static str {
         use TerrainFeature::*;
         match self {

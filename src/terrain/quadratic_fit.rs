@@ -4,7 +4,7 @@
 //! Fit z = A·i² + B·j² + C·i·j + D·i + E·j + F over the (2kx+1) x (2ky+1) cells around the
 //! centre, i = column offset (east), j = row offset (south), with kx = ⌊r/hx⌋ and
 //! ky = ⌊r/hy⌋ (at least 1) at the centre row. On the symmetric window the normal equations
-//! split (METHODS.md): D = Σi·z/Σi², E = Σj·z/Σj², C = Σij·z/Σi²j², and A, B, F solve
+//! split (docs/methods.md): D = Σi·z/Σi², E = Σj·z/Σj², C = Σij·z/Σi²j², and A, B, F solve
 //! [[Σi⁴, Σi²j², Σi²], [Σi²j², Σj⁴, Σj²], [Σi², Σj², N]]·[A, B, F] = [Σi²z, Σj²z, Σz],
 //! where the coordinate sums are closed forms (Σ_{−k..k} i² = k(k+1)(2k+1)/3,
 //! Σ i⁴ = k(k+1)(2k+1)(3k²+3k−1)/15). With x = i·hx and y = −j·hy (y north):
@@ -288,7 +288,7 @@ mod tests {
 
     #[test]
     fn three_by_three_fit_is_evans_young() {
-        // METHODS.md: with n = 3 the fit reproduces Evans–Young.
+        // docs/methods.md: with n = 3 the fit reproduces Evans–Young.
         let mut rng = SplitMix64::new(21);
         let dem = random_dem(&mut rng, 12, 12, 0.0).mapv(|v| v as f64);
         let cells = CellSizes::uniform(1.3, 0.7, 12);

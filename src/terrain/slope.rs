@@ -1,7 +1,7 @@
 //! Slope, aspect, northness and eastness from first derivatives p = ∂z/∂x, q = ∂z/∂y.
 //!
 //! - slope = atan(√(p² + q²)), degrees, 0 on a flat cell (the gradient-magnitude form of
-//!   Horn 1981 and Zevenbergen & Thorne 1987; formulas as in METHODS.md).
+//!   Horn 1981 and Zevenbergen & Thorne 1987; formulas as in docs/methods.md).
 //! - aspect = the downslope direction, degrees clockwise from north in [0, 360):
 //!   atan2(−p, −q) mod 360. NaN on a flat cell (p = q = 0).
 //! - northness = cos(aspect), eastness = sin(aspect), both 0 on a flat cell.
@@ -64,7 +64,7 @@ mod tests {
 
     #[test]
     fn worked_plane() {
-        // METHODS.md worked value: z = 0.3x + 0.4y has slope atan(0.5) = 26.5651° and
+        // docs/methods.md worked value: z = 0.3x + 0.4y has slope atan(0.5) = 26.5651° and
         // aspect 216.8699° (downhill to the south-west).
         let d = pq(0.3, 0.4);
         assert_relative_eq!(slope_deg(&d), 26.5651, epsilon = 1e-4);

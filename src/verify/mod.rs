@@ -1,13 +1,13 @@
 //! Verification of terrain formulas against closed-form surfaces.
 //!
 //! Each surface z(x, y) has exact partial derivatives p, q, r, s, t, hence exact slope,
-//! aspect and curvatures (METHODS.md formulas). Each surface is sampled as f32 at several
+//! aspect and curvatures (docs/methods.md formulas). Each surface is sampled as f32 at several
 //! cell sizes, each half the previous; every estimator's output is compared with the exact
 //! values over the interior, giving the maximum and RMS error per cell size and the
 //! observed order of convergence log2(e(h)/e(h/2)) of the maximum error. A check passes
 //! when its error at the finest cell size is within its stated tolerance and, for
 //! convergence checks, the observed order of the first halving is at least 1.5 (all 3x3
-//! estimators are second order: Florinsky 1998, Int. J. GIS 12(1), from memory; METHODS.md
+//! estimators are second order: Florinsky 1998, Int. J. GIS 12(1), from memory; docs/methods.md
 //! "Order of accuracy"). Exactness checks (quadratic surfaces, planes) need only the
 //! tolerance, which then covers f32 rounding of the sampled elevations.
 //!
@@ -722,7 +722,7 @@ mod tests {
 
     #[test]
     fn surfaces_match_methods_worked_values() {
-        // METHODS.md worked values through the exact derivatives of the surfaces: the
+        // docs/methods.md worked values through the exact derivatives of the surfaces: the
         // Gaussian hill at (50, 0): slope 50.4992°, aspect 90°, kt = 0.0154323.
         let hill = surfaces()
             .into_iter()

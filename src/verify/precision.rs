@@ -1,7 +1,7 @@
 //! Storage precision against truncation error: which one limits curvature for a given
 //! cell size and site elevation.
 //!
-//! A sphere cap z = √(R² − x² − y²) + E (R = 37 m, the METHODS.md worked surface; mean
+//! A sphere cap z = √(R² − x² − y²) + E (R = 37 m, the docs/methods.md worked surface; mean
 //! curvature 1/R everywhere) is sampled at 3x3 windows around fixed points 3–20 m from the
 //! top, at several cell sizes h and site elevations E, and its Evans–Young mean curvature
 //! is computed three ways:
@@ -22,7 +22,7 @@ use crate::terrain::derivatives::pqrst_3x3;
 use crate::terrain::precision::second_derivative_floor;
 use crate::terrain::{compute, curvature, DsmSample, SlopeMethod, TerrainFeature, TerrainParams};
 
-/// Sphere radius, metres (METHODS.md worked surface).
+/// Sphere radius, metres (docs/methods.md worked surface).
 pub const R: f64 = 37.0;
 
 /// One line of the precision table.
