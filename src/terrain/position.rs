@@ -74,7 +74,7 @@ pub fn centre_offset_numerator(zc: i64, s: &CellSums) -> Option<f64> {
     let u = exact_or_f64(n, p.sxz, p.sx, sz);
     let v = exact_or_f64(n, p.syz, p.sy, sz);
     let det = a * c - b * b;
-    if !(det > 0.0) {
+    if det.is_nan() || det <= 0.0 {
         return None;
     }
     let (sx, sy) = (p.sx as f64, p.sy as f64);
