@@ -1,7 +1,7 @@
 //! Curvatures of the land surface from partial derivatives p, q, r, s, t.
 //!
 //! Florinsky 2016 (Digital Terrain Analysis in Soil Science and Geology, 2nd ed.) and
-//! Minár et al. 2020 (Earth-Science Reviews 211, 103414), citations from memory, with the
+//! Minár et al. 2020 (Earth-Science Reviews 211, 103414; see docs/methods.md), with the
 //! sign convention of docs/methods.md: convex (a dome) is positive. Units 1/m (Gaussian 1/m²).
 //! With g = p² + q² and w = 1 + g:
 //! - profile kn = −(p²r + 2pqs + q²t) / (g·w^(3/2))

@@ -10,9 +10,9 @@
 //! ```
 //!
 //! Estimators (formulas as in docs/methods.md):
-//! - Horn 1981 (Proc. IEEE 69(1), from memory): p, q from weighted differences. Horn gives
+//! - Horn 1981 (Proc. IEEE 69(1), doi:10.1109/PROC.1981.11918): p, q from weighted differences. Horn gives
 //!   no second derivatives; a Horn set carries the Evans–Young r, s, t.
-//! - Zevenbergen & Thorne 1987 (Earth Surf. Process. Landforms 12, from memory): partial
+//! - Zevenbergen & Thorne 1987 (Earth Surf. Process. Landforms 12, doi:10.1002/esp.3290120107): partial
 //!   quartic through the nine points.
 //! - Evans 1979 / Young 1978 (see Florinsky 2016): least-squares quadratic on the nine points.
 //!

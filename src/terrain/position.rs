@@ -1,7 +1,7 @@
 //! Topographic position: TPI, DEV, relative elevation and local relief at radius r metres.
 //!
 //! - TPI = z − the window's local level, metres, positive on crests (Weiss 2001, poster,
-//!   ESRI User Conference; Guisan et al. 1999, Plant Ecology 143; from memory). The local
+//!   ESRI User Conference; Guisan et al. 1999, Plant Ecology 143, 107–122). The local
 //!   level is the value at the centre of the least-squares plane z = a + b·dx + c·dy fitted
 //!   to the window's valid cells (dx, dy cell offsets from the centre). On a window whose
 //!   valid cells are symmetric about the centre (Σdx = Σdy = 0, e.g. every full window of
@@ -10,8 +10,8 @@
 //!   mean alone is biased by the local gradient times the offset of the valid cells'
 //!   centroid (about −0.13 m next to an edge on an ordinary slope); the plane's value is
 //!   not, so TPI is 0 on every plane, cut or not.
-//! - DEV = (z − local level) / std over the window's valid cells (Gallant & Wilson 2000,
-//!   in Terrain Analysis, Wiley; De Reu et al. 2013, Geomorphology 186; from memory),
+//! - DEV = (z − local level) / std over the window's valid cells (Wilson & Gallant 2000,
+//!   Terrain Analysis, Wiley; De Reu et al. 2013, Geomorphology 186, 39–49),
 //!   unitless, the numerator as TPI's. Where the window is flat (std = 0) DEV is 0.
 //! - relative elevation = z − window minimum; local relief = window maximum − minimum,
 //!   metres, over the valid cells only: a cut window on a slope reads lower than a full

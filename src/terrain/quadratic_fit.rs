@@ -1,5 +1,5 @@
 //! Multi-scale derivatives from a least-squares quadratic fitted over an n x n window
-//! (Wood 1996, PhD thesis, University of Leicester, from memory).
+//! (Wood 1996, PhD thesis, University of Leicester).
 //!
 //! Fit z = A·i² + B·j² + C·i·j + D·i + E·j + F over the (2kx+1) x (2ky+1) cells around the
 //! centre, i = column offset (east), j = row offset (south), with kx = ⌊r/hx⌋ and

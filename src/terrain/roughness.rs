@@ -10,7 +10,7 @@
 //!   V = n·Σdy·z − ΣdyΣz, W = n·Σz² − (Σz)² (all exact integers):
 //!   n²·variance = W − (C·U² − 2B·U·V + A·V²)/(A·C − B²). NaN when the valid cells are
 //!   collinear (A·C = B²).
-//! - TRI (Riley, DeGloria & Elliot 1999, Intermountain Journal of Sciences 5, from memory)
+//! - TRI (Riley, DeGloria & Elliot 1999, Intermountain Journal of Sciences 5, 23–27)
 //!   = √(Σ over the 8 neighbours of (zᵢ − z5)²), metres, on the 3x3 window; all nine cells
 //!   must be valid.
 //!

@@ -22,7 +22,7 @@
 //!   O(ry) = O(r/h) per output cell, contiguous along the row (vectorised).
 //! - Squares (`square_min`) are separable: a 1D running minimum along the rows, then
 //!   along the columns, each by van Herk 1992 (Pattern Recognit. Lett. 13) / Gil & Werman
-//!   1993 (IEEE Trans. PAMI 15), citations from memory: split the line into blocks of
+//!   1993 (IEEE Trans. PAMI 15(5), 504–507): split the line into blocks of
 //!   L = 2w + 1 cells, take prefix minima g and suffix minima h inside each block; the
 //!   window starting at e spans at most two blocks, so its minimum is `min(h[e], g[e + 2w])`.
 //!   Three comparisons per cell whatever the radius: O(1) per cell.

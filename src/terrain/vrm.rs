@@ -1,5 +1,5 @@
 //! Vector ruggedness measure (Sappington, Longshore & Thompson 2007, J. Wildlife
-//! Management 71(5), from memory).
+//! Management 71(5), 1419–1426, doi:10.2193/2005-723).
 //!
 //! Each cell's unit normal is n = (−p, −q, 1)/√(1 + p² + q²) from Horn 1981 derivatives
 //! (the same vector as (sin S sin A, sin S cos A, cos S) of the paper, and well defined on

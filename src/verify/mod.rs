@@ -7,7 +7,7 @@
 //! observed order of convergence log2(e(h)/e(h/2)) of the maximum error. A check passes
 //! when its error at the finest cell size is within its stated tolerance and, for
 //! convergence checks, the observed order of the first halving is at least 1.5 (all 3x3
-//! estimators are second order: Florinsky 1998, Int. J. GIS 12(1), from memory; docs/methods.md
+//! estimators are second order: Florinsky 1998, Int. J. GIS 12(1), 47–61, doi:10.1080/136588198242003; docs/methods.md
 //! "Order of accuracy"). Exactness checks (quadratic surfaces, planes) need only the
 //! tolerance, which then covers f32 rounding of the sampled elevations.
 //!
