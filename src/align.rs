@@ -375,17 +375,44 @@ pub fn resample_window(
     window: Window,
     method: Resampling,
 ) -> Result<Array2<f32>> {
+    resample_with(source, band, target, window, method)
+}
+
+/// [`resample_window`] at float64 precision, for DSMs stored as float64 or 32-bit integers:
+/// the same taps and weights, the source read with `read_window_f64`, and the result kept
+/// in f64, so no elevation is rounded to float32 before the terrain kernels. Reprojection
+/// through GDAL's warper (another CRS, feature `gdal`) still passes through float32.
+pub fn resample_window_f64(
+    source: &dyn RasterSource,
+    band: usize,
+    target: &Grid,
+    window: Window,
+    method: Resampling,
+) -> Result<Array2<f64>> {
+    resample_with(source, band, target, window, method)
+}
+
+/// The resampler at the precision of `T` (f32 or f64).
+fn resample_with<T: Sample>(
+    source: &dyn RasterSource,
+    band: usize,
+    target: &Grid,
+    window: Window,
+    method: Resampling,
+) -> Result<Array2<T>> {
     check_band(source, band)?;
     let sg = source.grid();
     if !sg.crs.same_as(&target.crs) {
-        return warp_other_crs(source, band, target, window, method);
+        return Ok(
+            warp_other_crs(source, band, target, window, method)?.mapv(|v| T::from_f64(v as f64))
+        );
     }
     let tol = 1e-9 * target.res_x().min(target.res_y());
     if sg.same_geometry(target, tol) {
-        return source.read_window(band, window);
+        return T::read(source, band, window);
     }
     if window.is_empty() {
-        return Ok(Array2::from_elem((window.height, window.width), f32::NAN));
+        return Ok(Array2::from_elem((window.height, window.width), T::NAN));
     }
     let (tt, st) = (target.transform, sg.transform);
     let cols = AxisTaps::new(method, window.col, window.width, tt[0], tt[1], st[0], st[1]);
@@ -400,23 +427,58 @@ pub fn resample_window(
     );
     let (c0, nc) = cols.span();
     let (r0, nr) = rows.span();
-    let src = source.read_window(band, Window::new(c0, r0, nc, nr))?;
+    let src = T::read(source, band, Window::new(c0, r0, nc, nr))?;
     Ok(apply_taps(src.view(), c0, r0, &cols, &rows, method))
 }
 
-fn apply_taps(
-    src: ArrayView2<f32>,
+/// A sample precision the resampler works in: taps and sums are f64 either way, and the
+/// result is rounded once to `Self`.
+trait Sample: Copy + Send + Sync + 'static {
+    const NAN: Self;
+    fn to_f64(self) -> f64;
+    fn from_f64(v: f64) -> Self;
+    fn read(source: &dyn RasterSource, band: usize, window: Window) -> Result<Array2<Self>>;
+}
+
+impl Sample for f32 {
+    const NAN: f32 = f32::NAN;
+    fn to_f64(self) -> f64 {
+        self as f64
+    }
+    fn from_f64(v: f64) -> f32 {
+        v as f32
+    }
+    fn read(source: &dyn RasterSource, band: usize, window: Window) -> Result<Array2<f32>> {
+        source.read_window(band, window)
+    }
+}
+
+impl Sample for f64 {
+    const NAN: f64 = f64::NAN;
+    fn to_f64(self) -> f64 {
+        self
+    }
+    fn from_f64(v: f64) -> f64 {
+        v
+    }
+    fn read(source: &dyn RasterSource, band: usize, window: Window) -> Result<Array2<f64>> {
+        source.read_window_f64(band, window)
+    }
+}
+
+fn apply_taps<T: Sample>(
+    src: ArrayView2<T>,
     c0: i64,
     r0: i64,
     cols: &AxisTaps,
     rows: &AxisTaps,
     method: Resampling,
-) -> Array2<f32> {
+) -> Array2<T> {
     let src = src.as_standard_layout();
     let stride = src.ncols();
     let s = src.as_slice().expect("standard layout");
     let (h, w) = (rows.start.len(), cols.start.len());
-    let mut out = Array2::<f32>::from_elem((h, w), f32::NAN);
+    let mut out = Array2::<T>::from_elem((h, w), T::NAN);
     out.axis_iter_mut(ndarray::Axis(0))
         .into_par_iter()
         .enumerate()
@@ -428,8 +490,8 @@ fn apply_taps(
                 let p = base + (cols.start[tj] - c0) as usize;
                 *o = match method {
                     Resampling::Nearest => s[p],
-                    Resampling::Bilinear => interpolate::<2>(s, p, stride, wx, wy),
-                    Resampling::Cubic => interpolate::<4>(s, p, stride, wx, wy),
+                    Resampling::Bilinear => interpolate::<T, 2>(s, p, stride, wx, wy),
+                    Resampling::Cubic => interpolate::<T, 4>(s, p, stride, wx, wy),
                     Resampling::Average => area_mean(s, p, stride, wx, wy),
                 };
             }
@@ -442,7 +504,13 @@ fn apply_taps(
 /// zero-weight cells, and is NaN if a cell with non-zero weight is NaN. Both sums add the
 /// same terms in the same order, so a finite result is the same either way.
 #[inline]
-fn interpolate<const K: usize>(s: &[f32], p: usize, stride: usize, wx: &[f64], wy: &[f64]) -> f32 {
+fn interpolate<T: Sample, const K: usize>(
+    s: &[T],
+    p: usize,
+    stride: usize,
+    wx: &[f64],
+    wy: &[f64],
+) -> T {
     let wx: &[f64; K] = wx.try_into().expect("K taps");
     let wy: &[f64; K] = wy.try_into().expect("K taps");
     let mut sum = 0.0f64;
@@ -450,12 +518,12 @@ fn interpolate<const K: usize>(s: &[f32], p: usize, stride: usize, wx: &[f64], w
         let row = &s[p + a * stride..p + a * stride + K];
         let mut row_sum = 0.0f64;
         for (wb, v) in wx.iter().zip(row) {
-            row_sum += wb * *v as f64;
+            row_sum += wb * v.to_f64();
         }
         sum += wa * row_sum;
     }
     if !sum.is_nan() {
-        return sum as f32;
+        return T::from_f64(sum);
     }
     let mut sum = 0.0f64;
     for (a, &wa) in wy.iter().enumerate() {
@@ -467,37 +535,38 @@ fn interpolate<const K: usize>(s: &[f32], p: usize, stride: usize, wx: &[f64], w
             if wb == 0.0 {
                 continue;
             }
-            let v = s[p + a * stride + b];
+            let v = s[p + a * stride + b].to_f64();
             if v.is_nan() {
-                return f32::NAN;
+                return T::NAN;
             }
-            row_sum += wb * v as f64;
+            row_sum += wb * v;
         }
         sum += wa * row_sum;
     }
-    sum as f32
+    T::from_f64(sum)
 }
 
 /// Area-weighted mean of the valid cells under a footprint; NaN when they cover less than
 /// half of it.
 #[inline]
-fn area_mean(s: &[f32], p: usize, stride: usize, wx: &[f64], wy: &[f64]) -> f32 {
+fn area_mean<T: Sample>(s: &[T], p: usize, stride: usize, wx: &[f64], wy: &[f64]) -> T {
     let (mut sum, mut area, mut total) = (0.0f64, 0.0f64, 0.0f64);
     for (a, &wa) in wy.iter().enumerate() {
         let row = &s[p + a * stride..p + a * stride + wx.len()];
         for (&wb, &v) in wx.iter().zip(row) {
             let wgt = wa * wb;
             total += wgt;
+            let v = v.to_f64();
             if !v.is_nan() {
-                sum += wgt * v as f64;
+                sum += wgt * v;
                 area += wgt;
             }
         }
     }
     if area > 0.0 && area >= 0.5 * total {
-        (sum / area) as f32
+        T::from_f64(sum / area)
     } else {
-        f32::NAN
+        T::NAN
     }
 }
 
@@ -626,6 +695,61 @@ mod tests {
 
     fn utm_grid(w: usize, h: usize, x0: f64, y0: f64, res: f64) -> Grid {
         Grid::new(w, h, [x0, res, 0.0, y0, 0.0, -res], Crs::from_epsg(32633)).unwrap()
+    }
+
+    #[test]
+    fn float64_dsm_is_resampled_without_rounding_to_float32() {
+        // Closed form: bilinear interpolation reproduces a plane exactly, so resampling a
+        // float64 plane at 1500 m onto a grid offset by a third of a cell must give the
+        // plane to f64 rounding. Through float32 the same cells would be off by up to
+        // ulp(1500)/2 = 6.1e-5 m.
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("dsm64.tif");
+        let src_grid = utm_grid(40, 30, 500_000.0, 4_000_000.0, 0.05);
+        let plane = |x: f64, y: f64| {
+            1500.0 + 0.123456789 * (x - 500_000.0) - 0.0987654321 * (y - 4_000_000.0)
+        };
+        let data = Array2::from_shape_fn((30, 40), |(r, c)| {
+            let (x, y) = src_grid.cell_centre(c as f64, r as f64);
+            plane(x, y)
+        });
+        crate::raster::geotiff::write_geotiff(
+            &path,
+            &src_grid,
+            &[data.view()],
+            &["elevation"],
+            &crate::raster::geotiff::WriteOptions {
+                sample_type: crate::raster::SampleType::F64,
+                ..Default::default()
+            },
+        )
+        .unwrap();
+        let source = crate::raster::open(&path).unwrap();
+        let target = utm_grid(
+            30,
+            20,
+            500_000.0 + 0.05 / 3.0,
+            4_000_000.0 - 0.05 / 3.0,
+            0.05,
+        );
+        let w = Window::new(0, 0, 30, 20);
+        let z64 =
+            resample_window_f64(source.as_ref(), 1, &target, w, Resampling::Bilinear).unwrap();
+        let z32 = resample_window(source.as_ref(), 1, &target, w, Resampling::Bilinear).unwrap();
+        let (mut worst64, mut worst32) = (0.0f64, 0.0f64);
+        for ((r, c), &v) in z64.indexed_iter() {
+            let (x, y) = target.cell_centre(c as f64, r as f64);
+            if v.is_nan() {
+                continue;
+            }
+            worst64 = worst64.max((v - plane(x, y)).abs());
+            worst32 = worst32.max((z32[[r, c]] as f64 - plane(x, y)).abs());
+        }
+        assert!(worst64 < 1e-9, "f64 resampling error {worst64}");
+        assert!(
+            worst32 > 1e-6,
+            "the f32 path rounds ({worst32}), or the test proves nothing"
+        );
     }
 
     /// A source whose value at cell centre (x, y) is the plane 2x + 3y + 5.

@@ -30,7 +30,7 @@ fn grid(width: usize, height: usize) -> Grid {
 /// Band `b` of a closed-form test surface, with a few NaN cells (nodata) for floats.
 fn band_f32(width: usize, height: usize, b: usize) -> Array2<f32> {
     Array2::from_shape_fn((height, width), |(r, c)| {
-        if (r * 7 + c * 3 + b) % 97 == 0 {
+        if (r * 7 + c * 3 + b).is_multiple_of(97) {
             f32::NAN
         } else {
             (150.0 + b as f64 * 10.0 + 0.37 * c as f64 - 0.21 * r as f64

@@ -212,7 +212,7 @@ impl AlignMode {
 /// same frequency weights [`phase_correlation`] uses.
 pub fn chance_peak(rows: usize, cols: usize) -> f64 {
     let freq = |k: usize, len: usize| -> Option<f64> {
-        if len % 2 == 0 && k == len / 2 {
+        if len.is_multiple_of(2) && k == len / 2 {
             None
         } else if k > len / 2 {
             Some((k as f64 - len as f64) / len as f64)

@@ -431,7 +431,17 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Check
         let cells = plan.target.cell_sizes(padded.row, padded.height)?;
         let out = if plan.dsm_reads_f64() {
             // float64 (and 32-bit integer) DSMs stay exact until the f32 output.
-            let z = plan.dsm.read_window_f64(plan.dsm_band, padded)?;
+            let z = if plan.dsm_on_target {
+                plan.dsm.read_window_f64(plan.dsm_band, padded)?
+            } else {
+                align::resample_window_f64(
+                    plan.dsm.as_ref(),
+                    plan.dsm_band,
+                    &plan.target,
+                    padded,
+                    plan.recipe.resampling,
+                )?
+            };
             block_max_z = max_abs(&z);
             checks.dsm = dsm_range_count(plan, &z, w);
             terrain::compute(

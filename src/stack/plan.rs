@@ -427,14 +427,13 @@ impl StackPlan {
     }
 
     /// Whether DSM blocks are read as f64 (kept exact through the kernels): for float64
-    /// and 32-bit integer DSMs read on their own grid. Resampled DSMs go through the
-    /// float32 resampler.
+    /// and 32-bit integer DSMs, read on their own grid or resampled in f64
+    /// ([`crate::align::resample_window_f64`]).
     pub fn dsm_reads_f64(&self) -> bool {
-        self.dsm_on_target
-            && matches!(
-                self.dsm.band_info(self.dsm_band).sample_type,
-                SampleType::F64 | SampleType::I32 | SampleType::U32
-            )
+        matches!(
+            self.dsm.band_info(self.dsm_band).sample_type,
+            SampleType::F64 | SampleType::I32 | SampleType::U32
+        )
     }
 
     /// Blocks of the target grid, `block` cells square, row by row from the north-west.

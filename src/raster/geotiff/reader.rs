@@ -567,7 +567,7 @@ impl GeoTiffReader {
                 continue;
             }
             let end = o.checked_add(c);
-            if end.map_or(true, |e| e > self.file_len) {
+            if end.is_none_or(|e| e > self.file_len) {
                 bad += 1;
                 first.get_or_insert((i, end.unwrap_or(u64::MAX)));
             }
