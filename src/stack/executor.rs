@@ -419,6 +419,25 @@ fn max_abs<T: terrain::DsmSample>(z: &Array2<T>) -> f64 {
         .fold(0.0, f64::max)
 }
 
+/// The terrain bands of block `w` from its padded DSM block `z` (with the halo, at the
+/// precision it was read in), with the block's elevation-range count and its largest |z|.
+fn terrain_of_block<T: terrain::DsmSample>(
+    plan: &StackPlan,
+    z: &Array2<T>,
+    w: Window,
+    cells: &crate::grid::CellSizes,
+) -> (Vec<Array2<f32>>, RangeCount, f64) {
+    let out = terrain::compute(
+        &plan.terrain,
+        z.view(),
+        cells,
+        plan.halo,
+        plan.reference_z,
+        &plan.terrain_params,
+    );
+    (out, dsm_range_count(plan, z, w), max_abs(z))
+}
+
 /// Compute every band of the stack over block `w`, with the block's plausibility counts
 /// (index counts are filled in by the caller) and the largest |z| of the DSM block read
 /// for it (as stored; 0 without terrain bands).
@@ -429,8 +448,8 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Check
     if !plan.terrain.is_empty() {
         let padded = w.grow(plan.halo);
         let cells = plan.target.cell_sizes(padded.row, padded.height)?;
-        let out = if plan.dsm_reads_f64() {
-            // float64 (and 32-bit integer) DSMs stay exact until the f32 output.
+        // float64 (and 32-bit integer) DSMs stay exact until the f32 output.
+        let (out, dsm_count, max_z) = if plan.dsm_reads_f64() {
             let z = if plan.dsm_on_target {
                 plan.dsm.read_window_f64(plan.dsm_band, padded)?
             } else {
@@ -442,16 +461,7 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Check
                     plan.recipe.resampling,
                 )?
             };
-            block_max_z = max_abs(&z);
-            checks.dsm = dsm_range_count(plan, &z, w);
-            terrain::compute(
-                &plan.terrain,
-                z.view(),
-                &cells,
-                plan.halo,
-                plan.reference_z,
-                &plan.terrain_params,
-            )
+            terrain_of_block(plan, &z, w, &cells)
         } else {
             let z = if plan.dsm_on_target {
                 plan.dsm.read_window(plan.dsm_band, padded)?
@@ -464,17 +474,10 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Check
                     plan.recipe.resampling,
                 )?
             };
-            block_max_z = max_abs(&z);
-            checks.dsm = dsm_range_count(plan, &z, w);
-            terrain::compute(
-                &plan.terrain,
-                z.view(),
-                &cells,
-                plan.halo,
-                plan.reference_z,
-                &plan.terrain_params,
-            )
+            terrain_of_block(plan, &z, w, &cells)
         };
+        checks.dsm = dsm_count;
+        block_max_z = max_z;
         terrain_out = out.into_iter().map(Some).collect();
     }
     let reflectance = if plan.needs_spectral() {
