@@ -18,7 +18,9 @@ References are computed here with numpy and scipy only, written independently of
 code from the formulas in docs/methods.md:
 - metres per degree on WGS84 at each row's centre latitude (M and N radii of curvature);
 - Horn 1981 slope and aspect (degrees; aspect clockwise from north, downslope; NaN flat);
-- disc TPI (z - mean) and roughness (population std) at radii of 200 m and 400 m with
+- disc TPI (z minus the centre value of the least-squares plane through the window's
+  valid cells, which is z - mean on a full window) and roughness (population std) at
+  radii of 200 m and 400 m with
   scipy.ndimage.correlate on disc footprints built per row (cells whose centres lie within
   r: north-south offset with the centre row's cell height, east-west offset with each
   row's own cell width), windows with fewer than 75 % valid cells masked.
@@ -113,18 +115,42 @@ def disc_stats(zf, valid, r, hx_rows, hy_rows):
     for row in range(rows):
         fp = disc_footprint(r, row, hx_rows, hy_rows)
         groups.setdefault(fp.tobytes() + bytes(str(fp.shape), "ascii"), (fp, []))[1].append(row)
+    vf = valid.astype(np.float64)
     for fp, members in groups.values():
         w = fp.astype(np.float64)
-        cnt = ndimage.correlate(valid.astype(np.float64), w, mode="constant", cval=0.0)
-        s1 = ndimage.correlate(z0, w, mode="constant", cval=0.0)
-        s2 = ndimage.correlate(z0 * z0, w, mode="constant", cval=0.0)
+        # Cell offsets from the window's centre: dx along columns, dy along rows.
+        oy, ox = np.mgrid[-(fp.shape[0] // 2) : fp.shape[0] // 2 + 1, -(fp.shape[1] // 2) : fp.shape[1] // 2 + 1]
+        corr = lambda a, k: ndimage.correlate(a, k, mode="constant", cval=0.0)
+        cnt = corr(vf, w)
+        s1 = corr(z0, w)
+        s2 = corr(z0 * z0, w)
+        # Moments of the valid cells and of z against the offsets, for the least-squares
+        # plane z = a + b·dx + c·dy through the window's valid cells.
+        sx, sy = corr(vf, w * ox), corr(vf, w * oy)
+        sxx, syy, sxy = corr(vf, w * ox * ox), corr(vf, w * oy * oy), corr(vf, w * ox * oy)
+        szx, szy = corr(z0, w * ox), corr(z0, w * oy)
         cells = fp.sum()
         for row in members:
             n = cnt[row]
             ok = (n >= MIN_VALID_FRACTION * cells) & (n >= 1) & valid[row]
             mean = s1[row] / np.maximum(n, 1)
             var = np.maximum(s2[row] / np.maximum(n, 1) - mean**2, 0.0)
-            tpi[row] = np.where(ok, zf[row] - mean, np.nan)
+            # TPI = z minus the plane's value at the centre (docs/methods.md, "Window
+            # statistics"): z - mean where the valid cells are symmetric about the centre.
+            m = np.stack(
+                [
+                    np.stack([n, sx[row], sy[row]], -1),
+                    np.stack([sx[row], sxx[row], sxy[row]], -1),
+                    np.stack([sy[row], sxy[row], syy[row]], -1),
+                ],
+                -2,
+            )
+            rhs = np.stack([s1[row], szx[row], szy[row]], -1)
+            level = np.full(n.shape, np.nan)
+            solvable = ok & (np.abs(np.linalg.det(np.where(ok[:, None, None], m, np.eye(3)))) > 1e-9)
+            if solvable.any():
+                level[solvable] = np.linalg.solve(m[solvable], rhs[solvable][..., None])[..., 0, 0]
+            tpi[row] = np.where(solvable, zf[row] - level, np.nan)
             ok_r = (n >= MIN_VALID_FRACTION * cells) & (n >= 1)
             rough[row] = np.where(ok_r, np.sqrt(var), np.nan)
     return tpi, rough, len(groups)
