@@ -71,21 +71,6 @@ fn write_oriented<T: TiffSample>(
     write_geotiff(path, &stored_grid, &views, names, &opts).unwrap();
 }
 
-/// Every band of a raster as bit patterns.
-fn bits(path: &Path) -> Vec<Vec<u32>> {
-    let src = raster::open(path).unwrap();
-    let w = Window::full(src.grid());
-    (1..=src.band_count())
-        .map(|b| {
-            src.read_window(b, w)
-                .unwrap()
-                .iter()
-                .map(|v| v.to_bits())
-                .collect()
-        })
-        .collect()
-}
-
 /// Every terrain feature word, at two scales, and every spectral layer.
 fn all_features() -> Vec<String> {
     [
@@ -188,7 +173,7 @@ fn four_orientations_give_bit_identical_layers() {
             "{}",
             report.metadata.bands.len()
         );
-        let layers = bits(&out.join("stack.tif"));
+        let layers = band_bits(&out.join("stack.tif"));
         let transform = raster::open(&out.join("stack.tif"))
             .unwrap()
             .grid()

@@ -99,3 +99,19 @@ pub fn p(dir: &Path, name: &str) -> String {
     let path: PathBuf = dir.join(name);
     path.to_string_lossy().into_owned()
 }
+
+/// Every band of a raster as the bit patterns of its f32 values (NaN payloads included),
+/// for bit-identity comparisons.
+pub fn band_bits(path: &Path) -> Vec<Vec<u32>> {
+    let src = terrastack::raster::open(path).unwrap();
+    let w = terrastack::Window::full(src.grid());
+    (1..=src.band_count())
+        .map(|b| {
+            src.read_window(b, w)
+                .unwrap()
+                .iter()
+                .map(|v| v.to_bits())
+                .collect()
+        })
+        .collect()
+}
