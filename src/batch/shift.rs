@@ -102,22 +102,12 @@ pub fn phase_correlation(reference: ArrayView2<f32>, moving: ArrayView2<f32>) ->
             }
         })
         .collect();
-    // Gaussian weight per frequency (cycles per cell, signed); the Nyquist bins of even
-    // sides get no weight so that the weighted spectrum stays Hermitian.
-    let freq = |k: usize, len: usize| -> Option<f64> {
-        if len.is_multiple_of(2) && k == len / 2 {
-            None
-        } else if k > len / 2 {
-            Some((k as f64 - len as f64) / len as f64)
-        } else {
-            Some(k as f64 / len as f64)
-        }
-    };
+    // Gaussian weight per frequency (see `frequency`).
     let two_s2 = 2.0 * WEIGHT_SIGMA * WEIGHT_SIGMA;
     let mut weight_sum = 0.0;
     for r in 0..rows {
         for c in 0..cols {
-            let w = match (freq(r, rows), freq(c, cols)) {
+            let w = match (frequency(r, rows), frequency(c, cols)) {
                 (Some(fr), Some(fc)) => (-(fr * fr + fc * fc) / two_s2).exp(),
                 _ => 0.0,
             };
@@ -207,24 +197,28 @@ impl AlignMode {
     }
 }
 
+/// Signed frequency of FFT bin `k` of a side of `len` cells, in cycles per cell; `None`
+/// for the Nyquist bin of an even side, which gets no weight so that the weighted
+/// spectrum stays Hermitian.
+fn frequency(k: usize, len: usize) -> Option<f64> {
+    if len.is_multiple_of(2) && k == len / 2 {
+        None
+    } else if k > len / 2 {
+        Some((k as f64 - len as f64) / len as f64)
+    } else {
+        Some(k as f64 / len as f64)
+    }
+}
+
 /// Height of the largest correlation peak expected by chance between two unrelated images
 /// of `rows` x `cols` cells (see the module doc): `√(Σ W²) / Σ W · √(2 ln N)` over the
 /// same frequency weights [`phase_correlation`] uses.
 pub fn chance_peak(rows: usize, cols: usize) -> f64 {
-    let freq = |k: usize, len: usize| -> Option<f64> {
-        if len.is_multiple_of(2) && k == len / 2 {
-            None
-        } else if k > len / 2 {
-            Some((k as f64 - len as f64) / len as f64)
-        } else {
-            Some(k as f64 / len as f64)
-        }
-    };
     let two_s2 = 2.0 * WEIGHT_SIGMA * WEIGHT_SIGMA;
     let (mut sum, mut sum2) = (0.0f64, 0.0f64);
     for r in 0..rows {
         for c in 0..cols {
-            if let (Some(fr), Some(fc)) = (freq(r, rows), freq(c, cols)) {
+            if let (Some(fr), Some(fc)) = (frequency(r, rows), frequency(c, cols)) {
                 let w = (-(fr * fr + fc * fc) / two_s2).exp();
                 sum += w;
                 sum2 += w * w;
