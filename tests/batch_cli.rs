@@ -6,17 +6,18 @@
 //! The test site is a closed-form textured surface (many plane waves, see `surface`)
 //! sampled for three flights displaced by known offsets; it is test input, not the demo.
 
+mod util;
+
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
-use std::process::{Command, Stdio};
+use std::process::Stdio;
 use std::time::Duration;
 
 use ndarray::Array2;
 use serde_json::Value;
 use terrastack::raster::geotiff::{write_geotiff, WriteOptions};
 use terrastack::{Crs, Grid};
-
-const BIN: &str = env!("CARGO_BIN_EXE_terrastack");
+use util::{assert_same_files, command, read_json, tempdir, tree};
 
 /// Cell size of the test site in metres.
 const CELL: f64 = 0.1;
@@ -113,7 +114,7 @@ fn make_site(dir: &Path, size: usize, extra_manifest: &str) -> PathBuf {
 }
 
 fn batch(manifest: &Path, args: &[&str]) -> std::process::Output {
-    Command::new(BIN)
+    command()
         .arg("batch")
         .arg(manifest)
         .args(["--quiet", "--memory", "512M"])
@@ -123,7 +124,7 @@ fn batch(manifest: &Path, args: &[&str]) -> std::process::Output {
 }
 
 fn report(root: &Path, name: &str) -> Value {
-    serde_json::from_str(&std::fs::read_to_string(root.join(name)).unwrap()).unwrap()
+    read_json(&root.join(name))
 }
 
 fn statuses(r: &Value) -> BTreeMap<String, String> {
@@ -140,29 +141,9 @@ fn statuses(r: &Value) -> BTreeMap<String, String> {
         .collect()
 }
 
-/// Every file under `root` except the reports, with its bytes.
-fn tree(root: &Path) -> BTreeMap<String, Vec<u8>> {
-    let mut out = BTreeMap::new();
-    let mut stack = vec![root.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        for e in std::fs::read_dir(&d).unwrap() {
-            let p = e.unwrap().path();
-            if p.is_dir() {
-                stack.push(p);
-            } else {
-                let rel = p.strip_prefix(root).unwrap().to_string_lossy().into_owned();
-                if !rel.starts_with("batch-report") {
-                    out.insert(rel, std::fs::read(&p).unwrap());
-                }
-            }
-        }
-    }
-    out
-}
-
 #[test]
 fn killed_batch_resumes_to_the_same_bytes() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     // 520 cells a side: four 512-cell tiles, so tile order in the files is exercised.
     let manifest = make_site(tmp.path(), 520, "");
     let clean = tmp.path().join("clean");
@@ -183,7 +164,7 @@ fn killed_batch_resumes_to_the_same_bytes() {
     // Kill at several moments (SIGKILL), resuming each time, then finish.
     let resumed = tmp.path().join("resumed");
     for delay_ms in [150u64, 500, 900, 1400] {
-        let mut child = Command::new(BIN)
+        let mut child = command()
             .arg("batch")
             .arg(&manifest)
             .args([
@@ -217,17 +198,7 @@ fn killed_batch_resumes_to_the_same_bytes() {
         String::from_utf8_lossy(&out.stderr)
     );
     let after = tree(&resumed);
-    assert_eq!(
-        after.keys().collect::<Vec<_>>(),
-        whole.keys().collect::<Vec<_>>(),
-        "the resumed output root holds other files"
-    );
-    for (name, bytes) in &whole {
-        assert!(
-            after[name] == *bytes,
-            "{name} differs after kill and resume"
-        );
-    }
+    assert_same_files(&after, &whole);
     // A further run changes nothing and skips everything.
     let out = batch(&manifest, &["--out", resumed.to_str().unwrap()]);
     assert!(out.status.success());
@@ -238,7 +209,7 @@ fn killed_batch_resumes_to_the_same_bytes() {
 
 #[test]
 fn changed_input_rebuilds_its_flight_only() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     let manifest = make_site(tmp.path(), 96, "");
     assert!(batch(&manifest, &[]).status.success());
     let root = tmp.path().join("out");
@@ -280,7 +251,7 @@ fn changed_input_rebuilds_its_flight_only() {
 
 #[test]
 fn broken_flight_fails_alone_with_a_named_file() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     let manifest = make_site(tmp.path(), 64, "");
     std::fs::write(
         tmp.path().join("summer/dsm.tif"),
@@ -317,7 +288,7 @@ fn broken_flight_fails_alone_with_a_named_file() {
 
 #[test]
 fn shards_together_equal_a_whole_run() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     let manifest = make_site(tmp.path(), 64, "");
     let whole_root = tmp.path().join("whole");
     assert!(batch(&manifest, &["--out", whole_root.to_str().unwrap()])
@@ -357,7 +328,7 @@ fn shards_together_equal_a_whole_run() {
 
 #[test]
 fn known_shifts_are_recovered_and_applied() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     let manifest = make_site(tmp.path(), 256, "reference = \"spring\"\n");
     // Move the line into the [batch] table: it was appended after the recipe table.
     let text = std::fs::read_to_string(&manifest).unwrap();
@@ -395,23 +366,15 @@ fn known_shifts_are_recovered_and_applied() {
         );
         assert_eq!(f["shift"]["applied"], true);
         // The flight's stack lies on the common grid moved by the estimate.
-        let meta: Value = serde_json::from_str(
-            &std::fs::read_to_string(root.join(format!("flights/{id}/stack.json"))).unwrap(),
-        )
-        .unwrap();
-        let common: Value = serde_json::from_str(
-            &std::fs::read_to_string(root.join("temporal/stack.json")).unwrap(),
-        )
-        .unwrap();
+        let meta: Value = read_json(&root.join(format!("flights/{id}/stack.json")));
+        let common: Value = read_json(&root.join("temporal/stack.json"));
         let t = meta["grid"]["transform"].as_array().unwrap();
         let c = common["grid"]["transform"].as_array().unwrap();
         assert!((t[0].as_f64().unwrap() - c[0].as_f64().unwrap() - got_dx).abs() < 1e-9);
         assert!((t[3].as_f64().unwrap() - c[3].as_f64().unwrap() - got_dy).abs() < 1e-9);
     }
     // Dated bands carry their date; summaries say what they summarise.
-    let common: Value =
-        serde_json::from_str(&std::fs::read_to_string(root.join("temporal/stack.json")).unwrap())
-            .unwrap();
+    let common: Value = read_json(&root.join("temporal/stack.json"));
     let bands = common["bands"].as_array().unwrap();
     let ndvi_summer = bands
         .iter()
@@ -427,7 +390,7 @@ fn known_shifts_are_recovered_and_applied() {
 
 #[test]
 fn bad_manifest_is_a_clear_error() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     let m = tmp.path().join("flights.toml");
     std::fs::write(
         &m,
@@ -451,8 +414,7 @@ fn demo_shifts_are_recovered_within_a_quarter_cell() {
     use terrastack::batch::manifest::{common_grid, Manifest};
     use terrastack::batch::{FlightWork, StackWork};
     let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-dsm");
-    let site: Value =
-        serde_json::from_str(&std::fs::read_to_string(demo.join("site.json")).unwrap()).unwrap();
+    let site: Value = read_json(&demo.join("site.json"));
     let manifest = Manifest::load(&demo.join("flights.toml")).unwrap();
     let work = StackWork;
     let reference = manifest.reference_flight();
@@ -491,7 +453,7 @@ fn demo_shifts_are_recovered_within_a_quarter_cell() {
 
 #[test]
 fn misaligned_flights_are_aligned_by_default_and_the_choice_is_reported() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     let manifest = make_site(tmp.path(), 128, "");
     // Default (auto): the known shifts of 2.7 and 5.2 cells are confident and applied.
     let auto = tmp.path().join("auto");

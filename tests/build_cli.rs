@@ -4,7 +4,7 @@
 mod util;
 
 use std::fs;
-use std::process::{Command, Stdio};
+use std::process::Stdio;
 use std::time::{Duration, Instant};
 
 use terrastack::raster;
@@ -94,9 +94,7 @@ fn existing_stack_is_kept_without_force() {
     let mut forced = args.to_vec();
     forced.extend(["--force", "--features", "slope,tpi"]);
     assert!(run(&forced).status.success(), "{}", stderr(&run(&forced)));
-    let meta: serde_json::Value =
-        serde_json::from_str(&fs::read_to_string(tmp.path().join("out/stack.json")).unwrap())
-            .unwrap();
+    let meta: serde_json::Value = read_json(&tmp.path().join("out/stack.json"));
     assert_eq!(meta["bands"].as_array().unwrap().len(), 3); // slope, tpi at the default 1 and 5 m
 }
 
@@ -106,7 +104,7 @@ fn killed_build_leaves_nothing_that_looks_finished() {
     let grid = utm_grid(3000, 3000, 0.1);
     write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
     let out = tmp.path().join("out");
-    let mut child = Command::new(env!("CARGO_BIN_EXE_terrastack"))
+    let mut child = command()
         .args([
             "build",
             "--dsm",
@@ -313,8 +311,7 @@ fn stack_metadata_matches_the_image() {
         "--quiet",
     ]);
     assert!(o.status.success(), "{}", stderr(&o));
-    let meta: terrastack::stack::sidecar::StackMetadata =
-        serde_json::from_str(&fs::read_to_string(out.join("stack.json")).unwrap()).unwrap();
+    let meta: terrastack::stack::sidecar::StackMetadata = read_json(&out.join("stack.json"));
     assert_eq!(meta.format, "terrastack-stack/1");
     let src = raster::open(&out.join("stack.tif")).unwrap();
     assert_eq!(src.band_count(), meta.bands.len());

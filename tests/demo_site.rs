@@ -5,6 +5,8 @@
 //!
 //! Regenerate the data with `cargo run --release --example make_sample_site -- sample-dsm`.
 
+mod util;
+
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
@@ -12,6 +14,7 @@ use ndarray::Array2;
 use terrastack::demo_site::{self, CoverClass, FlightPlan};
 use terrastack::raster::{self, RasterSource};
 use terrastack::Window;
+use util::{read_json, tempdir};
 
 /// Size budget of everything under `sample-dsm/`, bytes.
 const BUDGET_BYTES: u64 = 12_000_000;
@@ -28,13 +31,12 @@ fn read_band(path: &Path, band: usize) -> (Box<dyn RasterSource>, Array2<f32>) {
 }
 
 fn site_json() -> serde_json::Value {
-    let text = std::fs::read_to_string(committed().join("site.json")).unwrap();
-    serde_json::from_str(&text).unwrap()
+    read_json(&committed().join("site.json"))
 }
 
 #[test]
 fn committed_files_match_a_fresh_generation() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     let summary = demo_site::generate(tmp.path()).unwrap();
     assert_eq!(summary.files.len(), 8);
     assert_eq!(summary.samples, 6 * demo_site::CIRCLES_PER_CLASS);
@@ -284,7 +286,7 @@ fn sample_circles_lie_wholly_in_their_class_on_the_reference_dsm() {
 
 #[test]
 fn unwritable_output_is_a_clear_error() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     let file = tmp.path().join("plain-file");
     std::fs::write(&file, b"not a folder").unwrap();
     let target = file.join("site");

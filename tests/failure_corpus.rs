@@ -314,9 +314,9 @@ fn deep_band_math() {
 
 #[test]
 fn closed_pipe_ends_quietly() {
-    use std::process::{Command, Stdio};
+    use std::process::Stdio;
     for args in [vec!["features"], vec!["features", "--json"], vec!["--help"]] {
-        let mut child = Command::new(env!("CARGO_BIN_EXE_terrastack"))
+        let mut child = util::command()
             .args(&args)
             .stdout(Stdio::piped())
             .stderr(Stdio::piped())

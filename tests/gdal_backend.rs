@@ -5,6 +5,8 @@
 //! by `scripts/xcheck_gdal.py gen`, warping and point transforms against rasterio (which
 //! carries its own GDAL and PROJ).
 
+mod util;
+
 use std::path::{Path, PathBuf};
 
 use gdal::raster::Buffer;
@@ -17,6 +19,7 @@ use terrastack::raster::gdal::{
     crs_from_user, same_crs, transform_points, warp_window, GdalSource,
 };
 use terrastack::raster::{RasterSource, SampleType};
+use util::{read_json, tempdir, xcheck_dir};
 
 fn gtiff<T: gdal::raster::GdalType + Copy>(
     path: &Path,
@@ -46,7 +49,7 @@ fn gtiff<T: gdal::raster::GdalType + Copy>(
 
 #[test]
 fn gtiff_u16_two_bands_geographic_point_space() {
-    let dir = tempfile::tempdir().unwrap();
+    let dir = tempdir();
     let path = dir.path().join("multi.tif");
     let d = 1.0 / 3600.0;
     let b1: Vec<u16> = (0..35).map(|i| 1000 + i as u16).collect();
@@ -98,7 +101,7 @@ fn gtiff_u16_two_bands_geographic_point_space() {
 fn nodata_compared_at_stored_precision() {
     // 16777217 = 2^24 + 1 is not a float32: it rounds to 16777216. A valid cell holding
     // 16777216 must not be taken for the nodata value 16777217.
-    let dir = tempfile::tempdir().unwrap();
+    let dir = tempdir();
     let path = dir.path().join("i32.tif");
     gtiff(
         &path,
@@ -119,7 +122,7 @@ fn nodata_compared_at_stored_precision() {
 fn ascii_grid_from_mem_dataset() {
     // A raster made in GDAL's MEM driver and copied to the ASCII grid format: a
     // non-TIFF format read through the same trait.
-    let dir = tempfile::tempdir().unwrap();
+    let dir = tempdir();
     let path = dir.path().join("grid.asc");
     let mem = DriverManager::get_driver_by_name("MEM").unwrap();
     let mut ds = mem.create_with_band_type::<f32, _>("", 4, 3, 1).unwrap();
@@ -159,7 +162,7 @@ fn ascii_grid_from_mem_dataset() {
 fn alignment_warps_other_crs_through_gdal() {
     // A UTM 32N raster resampled onto a UTM 33N grid by `align::resample_window` goes
     // through `warp_window` (same cells, bit for bit).
-    let dir = tempfile::tempdir().unwrap();
+    let dir = tempdir();
     let path = dir.path().join("z32.tif");
     let data: Vec<f32> = (0..40 * 30)
         .map(|i| (i % 40) as f32 * 0.5 + (i / 40) as f32)
@@ -194,7 +197,7 @@ fn alignment_warps_other_crs_through_gdal() {
 
 #[test]
 fn rotated_raster_refused_naming_file() {
-    let dir = tempfile::tempdir().unwrap();
+    let dir = tempdir();
     let path = dir.path().join("rotated.tif");
     gtiff(
         &path,
@@ -266,16 +269,6 @@ fn known_points_closed_form() {
 
 // ----- cross-check against rasterio -------------------------------------------------
 
-fn xcheck_dir() -> PathBuf {
-    match std::env::var_os("TERRASTACK_XCHECK_DIR") {
-        Some(d) => PathBuf::from(d),
-        None => panic!(
-            "this cross-check needs TERRASTACK_XCHECK_DIR: a folder made by \
-             `python3 scripts/xcheck_gdal.py gen DIR` to compare with rasterio"
-        ),
-    }
-}
-
 fn read_all(path: &Path) -> Array2<f32> {
     let src = GdalSource::open(path).unwrap();
     src.read_window(1, Window::full(src.grid())).unwrap()
@@ -342,9 +335,8 @@ fn max_step(a: &Array2<f32>) -> f64 {
 #[test]
 #[ignore = "cross-check: needs TERRASTACK_XCHECK_DIR from scripts/xcheck_gdal.py (run by scripts/ci/gdal.sh)"]
 fn warp_matches_rasterio() {
-    let dir = xcheck_dir();
-    let doc: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(dir.join("cases.json")).unwrap()).unwrap();
+    let dir = xcheck_dir("python3 scripts/xcheck_gdal.py gen DIR");
+    let doc: serde_json::Value = read_json(&dir.join("cases.json"));
     let src_path = dir.join(doc["source"]["file"].as_str().unwrap());
     let source = GdalSource::open(&src_path).unwrap();
     assert_eq!(source.grid().crs.epsg, Some(32632));
@@ -479,9 +471,8 @@ fn warp_matches_rasterio() {
 #[test]
 #[ignore = "cross-check: needs TERRASTACK_XCHECK_DIR from scripts/xcheck_gdal.py (run by scripts/ci/gdal.sh)"]
 fn points_match_rasterio() {
-    let dir = xcheck_dir();
-    let doc: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(dir.join("cases.json")).unwrap()).unwrap();
+    let dir = xcheck_dir("python3 scripts/xcheck_gdal.py gen DIR");
+    let doc: serde_json::Value = read_json(&dir.join("cases.json"));
     let pts = |k: &str| -> Vec<(f64, f64)> {
         doc["points"][k]
             .as_array()
@@ -627,7 +618,7 @@ fn assert_same_reading(path: &Path) {
 
 #[test]
 fn gdal_and_geotiff_reader_agree_on_gdal_files() {
-    let dir = tempfile::tempdir().unwrap();
+    let dir = tempdir();
     let d = dir.path();
     let utm = [500_000.0, 0.05, 0.0, 5_200_000.0, 0.0, -0.05];
     let geo = [12.5, 1.0 / 36_000.0, 0.0, 47.25, 0.0, -1.0 / 36_000.0];
@@ -727,7 +718,7 @@ fn gdal_and_geotiff_reader_agree_on_gdal_files() {
 #[test]
 fn gdal_and_geotiff_reader_agree_on_terrastack_files() {
     use terrastack::raster::geotiff::{write_geotiff, Compression, Layout, WriteOptions};
-    let dir = tempfile::tempdir().unwrap();
+    let dir = tempdir();
     let grid = Grid::new(
         45,
         27,

@@ -15,16 +15,7 @@ use terrastack::raster::geotiff::{write_geotiff, WriteOptions};
 use util::*;
 
 fn sidecar(dir: &Path) -> Value {
-    serde_json::from_str(&std::fs::read_to_string(dir.join("stack.json")).unwrap()).unwrap()
-}
-
-fn band<'a>(meta: &'a Value, name: &str) -> &'a Value {
-    meta["bands"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|b| b["name"] == name)
-        .unwrap_or_else(|| panic!("no band {name} in {meta}"))
+    read_json(&dir.join("stack.json"))
 }
 
 /// A refused build leaves no stack and no temporary file in its output folder.
@@ -65,7 +56,7 @@ fn infinite_dsm_cells_read_as_nodata() {
     ]);
     assert!(o.status.success(), "{}", stderr(&o));
     let meta = sidecar(Path::new(&out));
-    let elev = band(&meta, "elevation");
+    let elev = sidecar_band(&meta, "elevation");
     // Two of 48 x 40 cells are nodata; min and max are the surface's (util::surface:
     // 200 m plus at most a few metres), not ±inf.
     let valid = elev["stats"]["valid_fraction"].as_f64().unwrap();
@@ -122,7 +113,9 @@ fn multi_band_dsm_needs_a_chosen_band() {
     let meta = sidecar(Path::new(&out));
     assert_eq!(meta["parameters"]["dsm_band"], 2);
     // Band 2 of util::write_ortho is 1500 + 600·1 ± 800.
-    let min = band(&meta, "elevation")["stats"]["min"].as_f64().unwrap();
+    let min = sidecar_band(&meta, "elevation")["stats"]["min"]
+        .as_f64()
+        .unwrap();
     assert!((1300.0..2900.0).contains(&min), "{min}");
     // A band past the file's count is refused, naming the file.
     let o = run(&[
@@ -200,7 +193,7 @@ fn elevations_outside_the_plausible_range_are_refused_unless_accepted() {
     assert!(o.status.success(), "{}", stderr(&o));
     assert!(stderr(&o).contains("warning:"), "{}", stderr(&o));
     let meta = sidecar(Path::new(&out));
-    let rec = &band(&meta, "elevation")["outside_plausible_range"];
+    let rec = &sidecar_band(&meta, "elevation")["outside_plausible_range"];
     assert_eq!(rec["cells"], 1);
     assert_eq!(rec["range"], serde_json::json!([-500.0, 9000.0]));
 }
@@ -324,13 +317,13 @@ fn unscaled_integer_reflectance_is_refused_with_the_flag_to_fix_it() {
     let meta = sidecar(Path::new(&out));
     for name in ["savi", "evi2", "ndvi"] {
         assert_eq!(
-            band(&meta, name)["outside_valid_range"]["cells"],
+            sidecar_band(&meta, name)["outside_valid_range"]["cells"],
             0,
             "{name}"
         );
     }
     assert_eq!(
-        band(&meta, "ndvi")["outside_valid_range"]["range"],
+        sidecar_band(&meta, "ndvi")["outside_valid_range"]["range"],
         serde_json::json!([-1.0, 1.0])
     );
     // Accepted as they are: built, and the indices outside their range are flagged. A red
@@ -351,7 +344,7 @@ fn unscaled_integer_reflectance_is_refused_with_the_flag_to_fix_it() {
     let e = stderr(&o);
     assert!(e.contains("warning:") && e.contains("savi"), "{e}");
     let meta = sidecar(Path::new(&out));
-    let savi = &band(&meta, "savi")["outside_valid_range"];
+    let savi = &sidecar_band(&meta, "savi")["outside_valid_range"];
     assert!(savi["cells"].as_u64().unwrap() > 0, "{savi}");
     assert!(savi["fraction"].as_f64().unwrap() > 0.5, "{savi}");
 }
@@ -401,7 +394,7 @@ fn unknown_band_roles_are_refused_and_own_bands_are_explicit() {
     ]);
     assert!(o.status.success(), "{}", stderr(&o));
     let meta = sidecar(Path::new(&out));
-    assert_eq!(band(&meta, "ratio")["source"], "nir,edge2");
+    assert_eq!(sidecar_band(&meta, "ratio")["source"], "nir,edge2");
 }
 
 #[test]

@@ -11,7 +11,7 @@ mod util;
 use std::collections::BTreeMap;
 use std::fs;
 use std::path::{Path, PathBuf};
-use std::process::{Child, Command, Output, Stdio};
+use std::process::{Child, Output, Stdio};
 use std::time::{Duration, Instant};
 
 use serde_json::Value;
@@ -21,14 +21,8 @@ use terrastack::stack::sidecar::StackMetadata;
 use terrastack::Window;
 use util::*;
 
-const BIN: &str = env!("CARGO_BIN_EXE_terrastack");
-
-fn s(p: &Path) -> &str {
-    p.to_str().unwrap()
-}
-
 fn spawn(args: &[&str]) -> Child {
-    Command::new(BIN)
+    command()
         .args(args)
         .stdout(Stdio::null())
         .stderr(Stdio::piped())
@@ -50,8 +44,7 @@ fn names(dir: &Path) -> Vec<String> {
 /// each band's description is its name, and its minimum, maximum and valid fraction
 /// recomputed from the image equal the sidecar's. Returns the band names.
 fn assert_sidecar_matches_image(dir: &Path) -> Vec<String> {
-    let meta: StackMetadata =
-        serde_json::from_str(&fs::read_to_string(dir.join("stack.json")).unwrap()).unwrap();
+    let meta: StackMetadata = read_json(&dir.join("stack.json"));
     let src = raster::open(&dir.join("stack.tif")).unwrap();
     assert_eq!(src.band_count(), meta.bands.len(), "band count");
     let w = Window::full(src.grid());
@@ -542,30 +535,6 @@ fn batch_site(d: &Path, broken: &str) -> PathBuf {
     manifest
 }
 
-/// Every file under `root` except the reports, with its bytes.
-fn tree(root: &Path) -> BTreeMap<String, Vec<u8>> {
-    let mut out = BTreeMap::new();
-    let mut todo = vec![root.to_path_buf()];
-    while let Some(dir) = todo.pop() {
-        for e in fs::read_dir(&dir).unwrap() {
-            let path = e.unwrap().path();
-            if path.is_dir() {
-                todo.push(path);
-            } else {
-                let rel = path
-                    .strip_prefix(root)
-                    .unwrap()
-                    .to_string_lossy()
-                    .into_owned();
-                if !rel.starts_with("batch-report") {
-                    out.insert(rel, fs::read(&path).unwrap());
-                }
-            }
-        }
-    }
-    out
-}
-
 #[test]
 fn unusable_reference_flight_fails_alone_and_survives_kill() {
     for broken in ["missing", "corrupt"] {
@@ -590,9 +559,7 @@ fn unusable_reference_flight_fails_alone_and_survives_kill() {
             e.contains("spring") && e.contains("1 of 3 flights failed"),
             "{broken}: {e}"
         );
-        let r: Value =
-            serde_json::from_str(&fs::read_to_string(d.join("clean/batch-report.json")).unwrap())
-                .unwrap();
+        let r: Value = read_json(&d.join("clean/batch-report.json"));
         let status: BTreeMap<&str, &str> = r["flights"]
             .as_array()
             .unwrap()
@@ -649,17 +616,7 @@ fn unusable_reference_flight_fails_alone_and_survives_kill() {
         let o = batch("resumed");
         assert_eq!(o.status.code(), Some(1), "{}", stderr(&o));
         let after = tree(&d.join("resumed"));
-        assert_eq!(
-            after.keys().collect::<Vec<_>>(),
-            whole.keys().collect::<Vec<_>>(),
-            "the resumed output root holds other files"
-        );
-        for (name, bytes) in &whole {
-            assert!(
-                after[name] == *bytes,
-                "{name} differs after kill and resume"
-            );
-        }
+        assert_same_files(&after, &whole);
         assert!(d.join("resumed/batch-report.json").exists());
     }
 }

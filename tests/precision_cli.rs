@@ -47,7 +47,7 @@ fn band(dir: &Path, k: usize) -> Array2<f32> {
 }
 
 fn json(dir: &Path) -> serde_json::Value {
-    serde_json::from_str(&std::fs::read_to_string(dir.join("stack.json")).unwrap()).unwrap()
+    read_json(&dir.join("stack.json"))
 }
 
 #[test]

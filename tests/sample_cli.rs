@@ -2,9 +2,11 @@
 //! samples as CSV and GeoJSON, the table read back and checked cell by cell against the
 //! arrays the stack was written from.
 
+mod util;
+
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+use std::process::Output;
 
 use ndarray::Array2;
 use terrastack::raster::geotiff::{write_geotiff, Layout, WriteOptions};
@@ -13,6 +15,7 @@ use terrastack::stack::sidecar::{
     STACK_FORMAT,
 };
 use terrastack::{Crs, Grid};
+use util::{command, s, tempdir};
 
 const W: usize = 300;
 const H: usize = 260;
@@ -99,15 +102,11 @@ fn make_stack_on(root: &Path, g: &Grid) -> PathBuf {
 }
 
 fn terrastack(args: &[&str], threads: &str) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_terrastack"))
+    command()
         .args(args)
         .env("RAYON_NUM_THREADS", threads)
         .output()
         .unwrap()
-}
-
-fn s(p: &Path) -> &str {
-    p.to_str().unwrap()
 }
 
 /// Parsed table: header and rows of fields.
@@ -131,7 +130,7 @@ const CSV: &str = "id,x,y,class,radius_m\n\
 
 #[test]
 fn cell_values_equal_the_written_stack_and_folds_hold_samples_together() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     let stack = make_stack(tmp.path());
     let samples = tmp.path().join("samples.csv");
     std::fs::write(&samples, CSV).unwrap();
@@ -247,7 +246,7 @@ fn cell_values_equal_the_written_stack_and_folds_hold_samples_together() {
 
 #[test]
 fn geojson_polygons_aggregate_to_the_mean_of_their_cells() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     let stack = make_stack(tmp.path());
     let gj = tmp.path().join("plots.geojson");
     std::fs::write(
@@ -304,7 +303,7 @@ fn geojson_polygons_aggregate_to_the_mean_of_their_cells() {
 
 #[test]
 fn bad_input_is_refused_with_file_and_fix() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     let stack = make_stack(tmp.path());
     let samples = tmp.path().join("samples.csv");
     std::fs::write(&samples, CSV).unwrap();
@@ -411,7 +410,7 @@ fn bad_input_is_refused_with_file_and_fix() {
 #[cfg(feature = "gdal")]
 #[test]
 fn lonlat_and_ogr_layers_are_transformed_into_the_stack_crs() {
-    let tmp = tempfile::tempdir().unwrap();
+    let tmp = tempdir();
     // Cell (40, 40) has its north-west corner at (500000, 0).
     let g = Grid::new(
         W,

@@ -69,15 +69,9 @@ fn stack_json_states_the_edge_rule_of_windowed_bands() {
         &["--features", "tpi,roughness,slope", "--scales", "0.5"],
     );
     assert!(o.status.success(), "{}", stderr(&o));
-    let text = std::fs::read_to_string(tmp.path().join("out").join("stack.json")).unwrap();
-    let meta: serde_json::Value = serde_json::from_str(&text).unwrap();
+    let meta: serde_json::Value = read_json(&tmp.path().join("out").join("stack.json"));
     let rule = |name: &str| -> String {
-        meta["bands"]
-            .as_array()
-            .unwrap()
-            .iter()
-            .find(|b| b["name"] == name)
-            .unwrap_or_else(|| panic!("{name} missing"))["edge_rule"]
+        sidecar_band(&meta, name)["edge_rule"]
             .as_str()
             .unwrap()
             .to_string()

@@ -5,27 +5,18 @@
 //! predictors, BigTIFF) must decode to the very values that were written, bit for bit.
 //! Runs under plain `cargo test`.
 
+mod util;
+
 use std::fs::File;
 use std::path::Path;
 
 use ndarray::Array2;
-use terrastack::grid::{Crs, Grid};
 use terrastack::raster::geotiff::{
     write_geotiff, BigTiff, Compression, Interleave, Layout, TiffSample, WriteOptions,
 };
 use tiff::decoder::{Decoder, DecodingResult, Limits};
 use tiff::tags::Tag;
-
-/// A UTM 33N grid with 0.5 m cells.
-fn grid(width: usize, height: usize) -> Grid {
-    Grid::new(
-        width,
-        height,
-        [500_000.0, 0.5, 0.0, 5_000_000.0, 0.0, -0.5],
-        Crs::from_epsg(32633),
-    )
-    .unwrap()
-}
+use util::{tempdir, utm_grid};
 
 /// Band `b` of a closed-form test surface, with a few NaN cells (nodata) for floats.
 fn band_f32(width: usize, height: usize, b: usize) -> Array2<f32> {
@@ -97,13 +88,13 @@ fn decode_bands(path: &Path) -> (usize, usize, Vec<Vec<f64>>) {
 /// Write `bands` with `options`, decode with the `tiff` crate, and compare every sample
 /// with what was written (NaN where NaN was written).
 fn round_trip<T: TiffSample + Into<f64>>(bands: &[Array2<T>], options: &WriteOptions) {
-    let dir = tempfile::tempdir().unwrap();
+    let dir = tempdir();
     let path = dir.path().join("written.tif");
     let (h, w) = bands[0].dim();
     let views: Vec<_> = bands.iter().map(|b| b.view()).collect();
     let names: Vec<String> = (1..=bands.len()).map(|i| format!("band_{i}")).collect();
     let names: Vec<&str> = names.iter().map(String::as_str).collect();
-    write_geotiff(&path, &grid(w, h), &views, &names, options).unwrap();
+    write_geotiff(&path, &utm_grid(w, h, 0.5), &views, &names, options).unwrap();
 
     let (dw, dh, decoded) = decode_bands(&path);
     assert_eq!((dw, dh), (w, h), "{options:?}");

@@ -10,6 +10,8 @@
 //! The test is ignored under plain `cargo test` (a skip shows as a skip); `scripts/ci/io.sh`
 //! runs it with `--ignored`, and without the variable it fails.
 
+mod util;
+
 use std::path::{Path, PathBuf};
 
 use ndarray::Array2;
@@ -535,10 +537,7 @@ fn write_our_files(root: &Path) -> usize {
 #[test]
 #[ignore = "cross-check: needs TERRASTACK_XCHECK_DIR from scripts/xcheck_io.py (run by scripts/ci/io.sh)"]
 fn geotiff_agrees_with_gdal() {
-    let root = std::env::var_os("TERRASTACK_XCHECK_DIR").expect(
-        "this cross-check needs TERRASTACK_XCHECK_DIR=DIR after `python3 scripts/xcheck_io.py gen DIR`",
-    );
-    let root = PathBuf::from(root);
+    let root = util::xcheck_dir("python3 scripts/xcheck_io.py gen DIR");
     let read = read_gdal_files(&root);
     let written = write_our_files(&root);
     println!(

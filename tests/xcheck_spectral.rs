@@ -7,8 +7,9 @@
 //! `TERRASTACK_XCHECK_DIR=DIR cargo test --release --test xcheck_spectral`. The tests are
 //! ignored under plain `cargo test`; `scripts/ci/spectral.sh` runs them with `--ignored`.
 
-use std::fs;
-use std::path::{Path, PathBuf};
+mod util;
+
+use std::path::Path;
 
 use ndarray::Array2;
 use serde_json::Value;
@@ -16,31 +17,10 @@ use serde_json::Value;
 use terrastack::align::{resample_window, MemoryRaster, Resampling};
 use terrastack::grid::{Crs, Grid, Window};
 use terrastack::spectral::{find_index, BandArrays, Expression, Role};
-
-fn xcheck_dir() -> PathBuf {
-    match std::env::var_os("TERRASTACK_XCHECK_DIR") {
-        Some(d) => PathBuf::from(d),
-        None => panic!(
-            "this cross-check needs TERRASTACK_XCHECK_DIR: a folder made by \
-             `python3 scripts/xcheck_spectral.py gen DIR`"
-        ),
-    }
-}
+use util::{read_json, read_raw_f32, xcheck_dir};
 
 fn manifest(dir: &Path) -> Value {
-    let text =
-        fs::read_to_string(dir.join("manifest.json")).expect("manifest.json in the xcheck folder");
-    serde_json::from_str(&text).expect("manifest.json is JSON")
-}
-
-fn read_f32(path: &Path, rows: usize, cols: usize) -> Array2<f32> {
-    let bytes = fs::read(path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
-    assert_eq!(bytes.len(), rows * cols * 4, "{}", path.display());
-    let values: Vec<f32> = bytes
-        .chunks_exact(4)
-        .map(|b| f32::from_le_bytes([b[0], b[1], b[2], b[3]]))
-        .collect();
-    Array2::from_shape_vec((rows, cols), values).expect("shape")
+    read_json(&dir.join("manifest.json"))
 }
 
 fn usize_of(v: &Value) -> usize {
@@ -85,7 +65,7 @@ fn assert_close(what: &str, got: &Array2<f32>, want: &Array2<f32>, rel: f64, abs
 fn bands(dir: &Path, rows: usize, cols: usize) -> BandArrays {
     let mut b = BandArrays::new();
     for role in ["blue", "green", "red", "rededge", "nir"] {
-        let data = read_f32(
+        let data = read_raw_f32(
             &dir.join("spectral").join(format!("{role}.f32")),
             rows,
             cols,
@@ -98,7 +78,7 @@ fn bands(dir: &Path, rows: usize, cols: usize) -> BandArrays {
 #[test]
 #[ignore = "cross-check: needs TERRASTACK_XCHECK_DIR from scripts/xcheck_spectral.py (run by scripts/ci/spectral.sh)"]
 fn indices_match_spyndex() {
-    let dir = xcheck_dir();
+    let dir = xcheck_dir("python3 scripts/xcheck_spectral.py gen DIR");
     let m = manifest(&dir);
     let shape = &m["spectral"]["shape"];
     let (rows, cols) = (usize_of(&shape[0]), usize_of(&shape[1]));
@@ -106,7 +86,7 @@ fn indices_match_spyndex() {
     let indices = m["spectral"]["indices"].as_object().expect("indices");
     assert_eq!(indices.len(), 13);
     for (name, spec) in indices {
-        let want = read_f32(
+        let want = read_raw_f32(
             &dir.join("spectral").join(spec["file"].as_str().unwrap()),
             rows,
             cols,
@@ -126,7 +106,7 @@ fn indices_match_spyndex() {
 #[test]
 #[ignore = "cross-check: needs TERRASTACK_XCHECK_DIR from scripts/xcheck_spectral.py (run by scripts/ci/spectral.sh)"]
 fn expressions_match_numpy() {
-    let dir = xcheck_dir();
+    let dir = xcheck_dir("python3 scripts/xcheck_spectral.py gen DIR");
     let m = manifest(&dir);
     let shape = &m["spectral"]["shape"];
     let (rows, cols) = (usize_of(&shape[0]), usize_of(&shape[1]));
@@ -134,7 +114,7 @@ fn expressions_match_numpy() {
     for spec in m["spectral"]["expressions"].as_array().unwrap() {
         let name = spec["name"].as_str().unwrap();
         let expr = Expression::parse(name, spec["text"].as_str().unwrap()).unwrap();
-        let want = read_f32(
+        let want = read_raw_f32(
             &dir.join("spectral").join(spec["file"].as_str().unwrap()),
             rows,
             cols,
@@ -150,14 +130,14 @@ fn expressions_match_numpy() {
 #[test]
 #[ignore = "cross-check: needs TERRASTACK_XCHECK_DIR from scripts/xcheck_spectral.py (run by scripts/ci/spectral.sh)"]
 fn resampling_matches_gdal_warper() {
-    let dir = xcheck_dir();
+    let dir = xcheck_dir("python3 scripts/xcheck_spectral.py gen DIR");
     let m = manifest(&dir);
     let rs = &m["resample"];
     let s = &rs["source"];
     let (sw, sh) = (usize_of(&s["width"]), usize_of(&s["height"]));
     let crs = Crs::from_epsg(s["epsg"].as_u64().unwrap() as u32);
     let src_grid = Grid::new(sw, sh, transform_of(&s["transform"]), crs.clone()).unwrap();
-    let data = read_f32(
+    let data = read_raw_f32(
         &dir.join("resample").join(s["file"].as_str().unwrap()),
         sh,
         sw,
@@ -168,7 +148,7 @@ fn resampling_matches_gdal_warper() {
         let target = Grid::new(tw, th, transform_of(&case["transform"]), crs.clone()).unwrap();
         let method = Resampling::parse(case["method"].as_str().unwrap()).unwrap();
         let what = format!("{} {}", case["target"].as_str().unwrap(), method.name());
-        let want = read_f32(
+        let want = read_raw_f32(
             &dir.join("resample").join(case["file"].as_str().unwrap()),
             th,
             tw,
@@ -228,7 +208,7 @@ fn resampling_from_geotiff_matches_in_memory() {
     // The same DEM written by GDAL as a tiled, compressed GeoTIFF and read through
     // terrastack's reader: grid and values must equal the raw array's, so every comparison
     // above against GDAL's warper holds for files too. Checked bit for bit on a block.
-    let dir = xcheck_dir();
+    let dir = xcheck_dir("python3 scripts/xcheck_spectral.py gen DIR");
     let m = manifest(&dir);
     let s = &m["resample"]["source"];
     let (sw, sh) = (usize_of(&s["width"]), usize_of(&s["height"]));
@@ -245,7 +225,7 @@ fn resampling_from_geotiff_matches_in_memory() {
         );
     }
     assert_eq!(g.crs.epsg, Some(4326));
-    let raw = read_f32(
+    let raw = read_raw_f32(
         &dir.join("resample").join(s["file"].as_str().unwrap()),
         sh,
         sw,

@@ -9,27 +9,14 @@
 //! scipy.ndimage.correlate (disc TPI and roughness), both written from docs/methods.md
 //! independently of the Rust code; the DEM ships with matplotlib.
 
+mod util;
+
 use std::path::{Path, PathBuf};
 
 use ndarray::{s, Array2};
 use serde_json::Value;
 use terrastack::grid::{Crs, Grid};
 use terrastack::terrain::{compute, Quantity, SlopeMethod, TerrainFeature, TerrainParams};
-
-fn read_f32(path: &Path, rows: usize, cols: usize) -> Array2<f32> {
-    let bytes = std::fs::read(path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
-    assert_eq!(
-        bytes.len(),
-        rows * cols * 4,
-        "{}: unexpected size",
-        path.display()
-    );
-    let v: Vec<f32> = bytes
-        .chunks_exact(4)
-        .map(|b| f32::from_le_bytes([b[0], b[1], b[2], b[3]]))
-        .collect();
-    Array2::from_shape_vec((rows, cols), v).expect("shape")
-}
 
 /// The DEM through terrastack's raster reader when this build has one, else the raw
 /// float32 copy the script writes alongside the GeoTIFF.
@@ -47,7 +34,7 @@ fn load_dem(dir: &Path, m: &Value, rows: usize, cols: usize) -> (Array2<f32>, &'
     match attempt {
         Ok(Some(a)) => (a, "GeoTIFF through terrastack::raster::open"),
         _ => (
-            read_f32(
+            util::read_raw_f32(
                 &dir.join(m["raw_dem"].as_str().expect("raw_dem")),
                 rows,
                 cols,
@@ -94,14 +81,8 @@ fn compare(got: &Array2<f32>, want: &Array2<f32>, angle: bool, tol: f64) -> Tall
 #[test]
 #[ignore = "cross-check: needs TERRASTACK_XCHECK_DIR from scripts/xcheck_terrain.py (run by scripts/ci/terrain.sh)"]
 fn jacksboro_matches_numpy_and_scipy() {
-    let dir = std::env::var("TERRASTACK_XCHECK_DIR").expect(
-        "this cross-check needs TERRASTACK_XCHECK_DIR: a folder made by `python3 scripts/xcheck_terrain.py DIR`",
-    );
-    let dir = PathBuf::from(dir);
-    let m: Value = serde_json::from_str(
-        &std::fs::read_to_string(dir.join("manifest.json")).expect("manifest.json"),
-    )
-    .expect("manifest JSON");
+    let dir = util::xcheck_dir("python3 scripts/xcheck_terrain.py DIR");
+    let m: Value = util::read_json(&dir.join("manifest.json"));
     let rows = m["height"].as_u64().expect("height") as usize;
     let cols = m["width"].as_u64().expect("width") as usize;
     let t: Vec<f64> = m["transform"]
@@ -156,7 +137,8 @@ fn jacksboro_matches_numpy_and_scipy() {
     let out = compute(&feats, padded.view(), &cells, halo, 500.0, &params);
 
     let refs = &m["references"];
-    let want = |name: &str| read_f32(&dir.join(refs[name].as_str().expect(name)), rows, cols);
+    let want =
+        |name: &str| util::read_raw_f32(&dir.join(refs[name].as_str().expect(name)), rows, cols);
     // Tolerances: both sides round to f32 at the end; slope and aspect agree to f32
     // rounding of degrees (~4e-6 at 90°) — allow 1e-4°; windowed statistics differ only
     // by f64 summation order (integer elevations quantise exactly) — allow 1e-4 m.

@@ -174,13 +174,12 @@ impl Flight {
         }
         let ortho = self.recipe.ortho.as_ref()?;
         let bands = self.recipe.bands.as_ref()?;
-        bands.split(',').find_map(|pair| {
-            let (role, n) = pair.split_once('=')?;
-            (role.trim() == "nir")
-                .then(|| n.trim().parse().ok())
-                .flatten()
-                .map(|n| (ortho.clone(), n))
-        })
+        let (_, band) = bands
+            .value()
+            .roles
+            .iter()
+            .find(|(role, _)| *role == crate::spectral::Role::Nir)?;
+        Some((ortho.clone(), *band))
     }
 }
 

@@ -24,17 +24,17 @@
 use std::path::{Path, PathBuf};
 
 use ndarray::{Array2, ArrayView2};
-use rayon::prelude::*;
 
 use crate::error::{Error, Result};
 use crate::grid::{Grid, Window};
-use crate::raster::geotiff::{EncodedBlock, GeoTiffWriter, WriteOptions};
+use crate::raster::geotiff::{GeoTiffWriter, WriteOptions};
 use crate::raster::{self, RasterSource};
 use crate::stack::output::OutputDir;
 use crate::stack::sidecar::{
     BandMetadata, GridMetadata, SoftwareMetadata, SourceMetadata, StackMetadata, StatsAccumulator,
     STACK_FORMAT,
 };
+use crate::stack::tile_sink::OrderedTiles;
 
 use super::ledger::sha256_file;
 
@@ -301,53 +301,43 @@ pub fn write_temporal(
             })
         })
         .collect();
-    // Tiles are computed and compressed in parallel, a wave at a time, and appended in tile
-    // order, so the file's bytes do not depend on which thread finishes first.
+    // Tiles are computed and compressed in parallel, a wave at a time, and appended in
+    // tile order (`stack::tile_sink`), so the file's bytes do not depend on which thread
+    // finishes first. A wave holds one tile per thread: a tile's arrays (every flight's
+    // band of one name and its summaries) are a few MiB at most.
     let mut totals = vec![StatsAccumulator::default(); bands.len()];
-    let wave = rayon::current_num_threads().max(1);
-    for chunk in tiles.chunks(wave) {
-        let results: Vec<Result<(Vec<StatsAccumulator>, Vec<EncodedBlock>)>> = chunk
-            .par_iter()
-            .map(|w| {
-                let mut stats = vec![StatsAccumulator::default(); bands.len()];
-                let mut encoded: Vec<Option<EncodedBlock>> =
-                    (0..bands.len()).map(|_| None).collect();
-                let (tc, tr) = (w.col as usize / tile, w.row as usize / tile);
-                // Dated bands, read one at a time.
-                for (bi, o) in origins.iter().enumerate() {
-                    if let Origin::Dated { flight, band } = o {
-                        let data = readers[*flight].read_window(*band, *w)?;
-                        stats[bi] = StatsAccumulator::from_values(data.iter());
-                        encoded[bi] = Some(writer.encode_block(bi + 1, tc, tr, data.view())?);
-                    }
-                }
-                // Summaries, one common name at a time.
-                for (ni, (_, idx, which)) in common.iter().enumerate() {
-                    let dated: Vec<Array2<f32>> = readers
-                        .iter()
-                        .zip(idx)
-                        .map(|(r, &band)| r.read_window(band, *w))
-                        .collect::<Result<_>>()?;
-                    let views: Vec<ArrayView2<f32>> = dated.iter().map(|a| a.view()).collect();
-                    let sums = summarise(&views, which);
-                    for (bi, o) in origins.iter().enumerate() {
-                        if let Origin::Summary { name, which: wi } = o {
-                            if *name == ni {
-                                stats[bi] = StatsAccumulator::from_values(sums[*wi].iter());
-                                encoded[bi] =
-                                    Some(writer.encode_block(bi + 1, tc, tr, sums[*wi].view())?);
-                            }
-                        }
-                    }
-                }
-                Ok((stats, encoded.into_iter().flatten().collect()))
-            })
-            .collect();
-        for r in results {
-            let (stats, encoded) = r?;
-            for block in encoded {
-                writer.write_encoded(block)?;
+    let mut sink = OrderedTiles::new(&writer, &tiles, rayon::current_num_threads());
+    while let Some(results) = sink.next_wave(|w, encoded| {
+        let mut stats = vec![StatsAccumulator::default(); bands.len()];
+        // Dated bands, read one at a time.
+        for (bi, o) in origins.iter().enumerate() {
+            if let Origin::Dated { flight, band } = o {
+                let data = readers[*flight].read_window(*band, w)?;
+                stats[bi] = StatsAccumulator::from_values(data.iter());
+                encoded.encode(bi + 1, data.view())?;
             }
+        }
+        // Summaries, one common name at a time.
+        for (ni, (_, idx, which)) in common.iter().enumerate() {
+            let dated: Vec<Array2<f32>> = readers
+                .iter()
+                .zip(idx)
+                .map(|(r, &band)| r.read_window(band, w))
+                .collect::<Result<_>>()?;
+            let views: Vec<ArrayView2<f32>> = dated.iter().map(|a| a.view()).collect();
+            let sums = summarise(&views, which);
+            for (bi, o) in origins.iter().enumerate() {
+                if let Origin::Summary { name, which: wi } = o {
+                    if *name == ni {
+                        stats[bi] = StatsAccumulator::from_values(sums[*wi].iter());
+                        encoded.encode(bi + 1, sums[*wi].view())?;
+                    }
+                }
+            }
+        }
+        Ok(stats)
+    })? {
+        for stats in results {
             for (t, p) in totals.iter_mut().zip(stats.iter()) {
                 t.merge(p);
             }

@@ -5,6 +5,7 @@ use std::path::PathBuf;
 
 use terrastack::align::Resampling;
 use terrastack::stack::output::parse_memory;
+use terrastack::stack::settings::{ExtentRule, OutputCompression, WindowShape};
 use terrastack::stack::{
     self, BuildOptions, BuildReport, Progress, Recipe, RecipeFile, RecipeFlags,
 };
@@ -59,11 +60,11 @@ pub struct Args {
     #[arg(long, value_enum, value_name = "KIND")]
     pub resampling: Option<ResamplingArg>,
     /// Extent of the stack: the DSM's, or the intersection of all inputs.
-    #[arg(long, value_name = "dsm|intersection")]
-    pub extent: Option<String>,
+    #[arg(long, value_enum, value_name = "RULE")]
+    pub extent: Option<ExtentRule>,
     /// Window shape of windowed features.
-    #[arg(long, value_name = "disc|square")]
-    pub window: Option<String>,
+    #[arg(long, value_enum, value_name = "SHAPE")]
+    pub window: Option<WindowShape>,
     /// Fraction of a window's cells that must be valid (default 0.75).
     #[arg(long, value_name = "F")]
     pub min_valid: Option<f64>,
@@ -84,8 +85,8 @@ pub struct Args {
     #[arg(long)]
     pub zero_is_nodata: bool,
     /// Compression of stack.tif.
-    #[arg(long, value_name = "deflate|zstd")]
-    pub compression: Option<String>,
+    #[arg(long, value_enum, value_name = "CODEC")]
+    pub compression: Option<OutputCompression>,
     /// Output folder (receives stack.tif, stack.json, preview.png).
     #[arg(long, value_name = "DIR")]
     pub out: PathBuf,

@@ -28,7 +28,7 @@ use crate::align::{self, Resampling};
 use crate::error::{Error, Result};
 use crate::grid::{Grid, Window};
 use crate::input_guard;
-use crate::raster::geotiff::{Compression, EncodedBlock, GeoTiffWriter, WriteOptions};
+use crate::raster::geotiff::{GeoTiffWriter, WriteOptions};
 use crate::raster::SampleType;
 use crate::spectral::{self, BandArrays, MaskOptions};
 use crate::stack::output::{self, OutputDir};
@@ -40,6 +40,7 @@ use crate::stack::sidecar::{
     BandMetadata, GridMetadata, SoftwareMetadata, SourceMetadata, StackMetadata, StatsAccumulator,
     STACK_FORMAT,
 };
+use crate::stack::tile_sink::OrderedTiles;
 use crate::terrain;
 
 /// Memory kept aside from the block budget for readers' caches, the writer and thumbnails.
@@ -172,11 +173,7 @@ fn run(
     let threads = rayon::current_num_threads();
     let tif_path = out.temp_path("stack.tif");
     let write_options = WriteOptions {
-        compression: if plan.recipe.compression == "zstd" {
-            Compression::Zstd
-        } else {
-            Compression::Deflate
-        },
+        compression: plan.recipe.compression.codec(),
         ..WriteOptions::default()
     };
     // Memory that grows with the raster, whatever the block: the writer's tile index and
@@ -212,34 +209,25 @@ fn run(
     let mut stats: Vec<StatsAccumulator> = vec![StatsAccumulator::default(); plan.bands.len()];
     let mut checks = Checks::new(&plan);
     let mut max_abs_z = 0.0f64;
-    let mut done = 0usize;
-    for wave in blocks.chunks(concurrency) {
-        type BlockResult = (Vec<StatsAccumulator>, Checks, Vec<EncodedBlock>, f64);
-        let results: Vec<Result<BlockResult>> = wave
-            .par_iter()
-            .map(|w| {
-                let (bands, mut block_checks, block_max_z) = compute_block(&plan, *w)?;
-                let mut block_stats = Vec::with_capacity(bands.len());
-                let mut tiles = Vec::new();
-                for (i, data) in bands.iter().enumerate() {
-                    encode_tiles(&writer, i + 1, *w, tile, data, &mut tiles)?;
-                    preview.record(i, *w, data.view());
-                    block_stats.push(StatsAccumulator::from_values(data.iter()));
-                    if let Producer::Index(index) = &plan.bands[i].producer {
-                        block_checks.index[i] =
-                            RangeCount::of(data.iter().copied(), 1.0, index.valid_range);
-                    }
-                }
-                Ok((block_stats, block_checks, tiles, block_max_z))
-            })
-            .collect();
-        // Append in block order: the file's bytes do not depend on which thread finished first.
-        for r in results {
-            let (block_stats, block_checks, tiles, block_max_z) = r?;
-            max_abs_z = max_abs_z.max(block_max_z);
-            for encoded in tiles {
-                writer.write_encoded(encoded)?;
+    // Blocks are computed and compressed in parallel, a wave at a time, and appended in
+    // block order (`tile_sink`): the file's bytes do not depend on which thread finished first.
+    let mut sink = OrderedTiles::new(&writer, &blocks, concurrency);
+    while let Some(results) = sink.next_wave(|w, tiles| {
+        let (bands, mut block_checks, block_max_z) = compute_block(&plan, w)?;
+        let mut block_stats = Vec::with_capacity(bands.len());
+        for (i, data) in bands.iter().enumerate() {
+            tiles.encode(i + 1, data.view())?;
+            preview.record(i, w, data.view());
+            block_stats.push(StatsAccumulator::from_values(data.iter()));
+            if let Producer::Index(index) = &plan.bands[i].producer {
+                block_checks.index[i] =
+                    RangeCount::of(data.iter().copied(), 1.0, index.valid_range);
             }
+        }
+        Ok((block_stats, block_checks, block_max_z))
+    })? {
+        for (block_stats, block_checks, block_max_z) in results {
+            max_abs_z = max_abs_z.max(block_max_z);
             for (acc, part) in stats.iter_mut().zip(block_stats.iter()) {
                 acc.merge(part);
             }
@@ -247,8 +235,7 @@ fn run(
         }
         // Stop as soon as the counts prove a refusal; the temporary files are removed.
         checks.verdict(&plan, total, false)?;
-        done += wave.len();
-        bar.advance(done, blocks.len());
+        bar.advance(sink.done(), blocks.len());
     }
     writer.finish()?;
     bar.finish();
@@ -263,18 +250,12 @@ fn run(
         .iter()
         .zip(stats.iter())
         .enumerate()
-        .map(|(i, (b, acc))| BandMetadata {
-            index: i + 1,
-            name: b.name.clone(),
-            feature: b.feature.clone(),
-            method: b.method.clone(),
-            scale_m: b.scale_m,
-            window_px: b.window_px,
-            units: b.units.clone(),
-            source: b.source.clone(),
-            date: options.date.clone(),
-            stats: acc.finish(total),
-            extra: checks.band_records(&plan, i, b.extra.clone()),
+        .map(|(i, (b, acc))| {
+            let mut meta = b.meta.clone();
+            meta.date = options.date.clone();
+            meta.stats = acc.finish(total);
+            meta.extra = checks.band_records(&plan, i, meta.extra);
+            meta
         })
         .collect();
     for warning in record_precision(&plan, max_abs_z, &mut bands)? {
@@ -739,27 +720,6 @@ fn read_reflectance(plan: &StackPlan, w: Window) -> Result<BandArrays> {
             zero_fill: plan.recipe.zero_is_nodata,
         },
     )
-}
-
-/// Encode the tiles of block `w` of band `band` (1-based), in tile order.
-fn encode_tiles(
-    writer: &GeoTiffWriter,
-    band: usize,
-    w: Window,
-    tile: usize,
-    data: &Array2<f32>,
-    out: &mut Vec<EncodedBlock>,
-) -> Result<()> {
-    let (rows, cols) = data.dim();
-    for r0 in (0..rows).step_by(tile) {
-        for c0 in (0..cols).step_by(tile) {
-            let view = data.slice(s![r0..(r0 + tile).min(rows), c0..(c0 + tile).min(cols)]);
-            let tile_col = (w.col as usize + c0) / tile;
-            let tile_row = (w.row as usize + r0) / tile;
-            out.push(writer.encode_block(band, tile_col, tile_row, view)?);
-        }
-    }
-    Ok(())
 }
 
 /// Every input file of a recipe with its role: dsm, ortho, then one-file-per-band inputs

@@ -7,7 +7,9 @@ pub mod plan;
 pub mod plausibility;
 pub mod preview;
 pub mod recipe;
+pub mod settings;
 pub mod sidecar;
+pub mod tile_sink;
 
 pub use executor::{build, BuildOptions, BuildReport, Progress};
 pub use recipe::{Recipe, RecipeFile, RecipeFlags};

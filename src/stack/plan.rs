@@ -10,15 +10,16 @@ use std::collections::BTreeSet;
 use std::path::Path;
 use std::sync::Arc;
 
-use crate::align::{self, ExtentRule, Resampling};
+use crate::align::{self, Resampling};
 use crate::error::{Error, Result};
 use crate::grid::{CrsKind, Grid, Window};
 use crate::raster::{self, RasterSource, SampleType};
-use crate::spectral::{self, BandMap, BandSource, Expression, PerBand, Role, SpectralIndex};
+use crate::spectral::{self, BandSource, Expression, PerBand, Role, SpectralIndex};
 use crate::stack::plausibility;
 use crate::stack::preview::RampKind;
 use crate::stack::recipe::Recipe;
-use crate::terrain::{self, TerrainFeature, TerrainParams, WindowShape};
+use crate::stack::sidecar::{BandMetadata, BandStats};
+use crate::terrain::{self, TerrainFeature, TerrainParams};
 
 /// What computes one band of the stack.
 pub enum Producer {
@@ -32,19 +33,51 @@ pub enum Producer {
     Expression(Expression),
 }
 
-/// One band of the stack: what produces it and how it is described.
+/// One band of the stack: what produces it, its preview ramp, and its `stack.json` record.
+///
+/// The record is the sidecar's own type, filled here with everything the plan knows (name,
+/// feature, method, window, units, source, spectral details in `extra`); the executor adds
+/// the date, the statistics and the plausibility counts. `BandPlan` reads as its record
+/// (`band.name`, `band.units`).
 pub struct BandPlan {
     pub producer: Producer,
-    pub name: String,
-    pub feature: String,
-    pub method: Option<String>,
-    pub scale_m: Option<f64>,
-    pub window_px: Option<usize>,
-    pub units: String,
-    pub source: String,
     pub ramp: RampKind,
-    /// Spectral details for the sidecar (role, file, scale, offset, resampling, expression).
-    pub extra: serde_json::Map<String, serde_json::Value>,
+    pub meta: BandMetadata,
+}
+
+impl std::ops::Deref for BandPlan {
+    type Target = BandMetadata;
+
+    fn deref(&self) -> &BandMetadata {
+        &self.meta
+    }
+}
+
+/// A band's record before it is computed: no date, no statistics yet, numbered later.
+#[allow(clippy::too_many_arguments)]
+fn band_record(
+    name: String,
+    feature: String,
+    method: Option<String>,
+    scale_m: Option<f64>,
+    window_px: Option<usize>,
+    units: &str,
+    source: String,
+    extra: serde_json::Map<String, serde_json::Value>,
+) -> BandMetadata {
+    BandMetadata {
+        index: 0,
+        name,
+        feature,
+        method,
+        scale_m,
+        window_px,
+        units: units.to_string(),
+        source,
+        date: None,
+        stats: BandStats::default(),
+        extra,
+    }
 }
 
 /// One reflectance band to read: its source file (opened once per file) and scaling.
@@ -127,10 +160,7 @@ impl StackPlan {
                 others.push((input.band.path.clone(), input.source.grid().clone()));
             }
         }
-        let extent = match recipe.extent.as_str() {
-            "intersection" => ExtentRule::Intersection,
-            _ => ExtentRule::Dsm,
-        };
+        let extent = recipe.extent;
         let mut target = match grid {
             Some(g) => {
                 if !g.crs.same_as(&dsm_grid.crs) {
@@ -173,11 +203,7 @@ impl StackPlan {
             .iter()
             .map(|s| s.band.role.clone())
             .collect();
-        let shape = if recipe.window == "square" {
-            WindowShape::Square
-        } else {
-            WindowShape::Disc
-        };
+        let shape = recipe.window;
         let terrain_params = TerrainParams {
             min_valid_fraction: recipe.min_valid_fraction,
             z_factor: recipe.z_factor,
@@ -255,15 +281,17 @@ impl StackPlan {
                     );
                     bands.push(BandPlan {
                         producer: Producer::Terrain(terrain_features.len()),
-                        name: feature.band_name(),
-                        feature: feature.feature_key().to_string(),
-                        method,
-                        scale_m: feature.scale_m(),
-                        window_px: feature.scale_m().map(|_| 2 * wx.max(wy) + 1),
-                        units: feature.units().to_string(),
-                        source: "dsm".into(),
                         ramp: ramp_for(feature.feature_key()),
-                        extra,
+                        meta: band_record(
+                            feature.band_name(),
+                            feature.feature_key().to_string(),
+                            method,
+                            feature.scale_m(),
+                            feature.scale_m().map(|_| 2 * wx.max(wy) + 1),
+                            feature.units(),
+                            "dsm".into(),
+                            extra,
+                        ),
                     });
                     terrain_features.push(feature);
                 }
@@ -295,20 +323,25 @@ impl StackPlan {
                 .join(",");
             bands.push(BandPlan {
                 producer: Producer::Expression(expr),
-                name: name.clone(),
-                feature: "expression".into(),
-                method: None,
-                scale_m: None,
-                window_px: None,
-                units: "unitless".into(),
-                source,
                 ramp: RampKind::Diverging,
-                extra,
+                meta: band_record(
+                    name.clone(),
+                    "expression".into(),
+                    None,
+                    None,
+                    None,
+                    "unitless",
+                    source,
+                    extra,
+                ),
             });
         }
         // Same name twice (e.g. "slope" and "slope:horn"): keep the first.
         let mut names = BTreeSet::new();
         bands.retain(|b| names.insert(b.name.clone()));
+        for (i, band) in bands.iter_mut().enumerate() {
+            band.meta.index = i + 1;
+        }
         if bands.is_empty() {
             return Err(Error::usage(
                 "the recipe produces no band (no spectral band is mapped for the spectral words)",
@@ -505,8 +538,8 @@ fn open_spectral(recipe: &Recipe) -> Result<(Vec<SpectralInput>, Option<AlphaBan
         opened.push((path.to_path_buf(), s.clone()));
         Ok(s)
     };
-    if let (Some(ortho), Some(map_text)) = (&recipe.ortho, &recipe.bands) {
-        let map = BandMap::parse(map_text)?;
+    if let (Some(ortho), Some(map)) = (&recipe.ortho, &recipe.bands) {
+        let map = map.value();
         let src = open_once(ortho)?;
         for (role, band) in &map.roles {
             spectral::check_band_exists(ortho, *band, src.band_count(), role)?;
@@ -568,15 +601,16 @@ fn open_spectral(recipe: &Recipe) -> Result<(Vec<SpectralInput>, Option<AlphaBan
             offset: 0.0,
         });
     }
-    let scale = match &recipe.reflectance_scale {
-        Some(t) => PerBand::parse("--reflectance-scale", t)?,
-        None => PerBand::default(),
-    };
-    let offset = match &recipe.reflectance_offset {
-        Some(t) => PerBand::parse("--reflectance-offset", t)?,
-        None => PerBand::default(),
-    };
-    spectral::apply_scaling(&mut sources, &scale, &offset)?;
+    let none = PerBand::default();
+    let scale = recipe
+        .reflectance_scale
+        .as_ref()
+        .map_or(&none, |s| s.value());
+    let offset = recipe
+        .reflectance_offset
+        .as_ref()
+        .map_or(&none, |s| s.value());
+    spectral::apply_scaling(&mut sources, scale, offset)?;
     for band in sources {
         let source = open_once(&band.path)?;
         inputs.push(SpectralInput { source, band });
@@ -825,16 +859,18 @@ fn reflectance_band(input: &SpectralInput, resampling: Resampling) -> BandPlan {
         serde_json::to_value(resampling).unwrap_or_default(),
     );
     BandPlan {
-        name: format!("reflectance_{}", role.name()),
         producer: Producer::Reflectance(role.clone()),
-        feature: "reflectance".into(),
-        method: None,
-        scale_m: None,
-        window_px: None,
-        units: "unitless".into(),
-        source: role.name().to_string(),
         ramp: RampKind::Sequential,
-        extra,
+        meta: band_record(
+            format!("reflectance_{}", role.name()),
+            "reflectance".into(),
+            None,
+            None,
+            None,
+            "unitless",
+            role.name().to_string(),
+            extra,
+        ),
     }
 }
 
@@ -853,19 +889,21 @@ fn index_band(index: &'static SpectralIndex, resampling: Resampling) -> BandPlan
     );
     BandPlan {
         producer: Producer::Index(index),
-        name: index.name.to_string(),
-        feature: index.name.to_string(),
-        method: None,
-        scale_m: None,
-        window_px: None,
-        units: "unitless".into(),
-        source: roles.join(","),
         ramp: if index.name == "ndwi" {
             RampKind::Diverging
         } else {
             RampKind::Sequential
         },
-        extra,
+        meta: band_record(
+            index.name.to_string(),
+            index.name.to_string(),
+            None,
+            None,
+            None,
+            "unitless",
+            roles.join(","),
+            extra,
+        ),
     }
 }
 

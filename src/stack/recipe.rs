@@ -43,6 +43,9 @@ use serde::{Deserialize, Serialize};
 
 use crate::align::Resampling;
 use crate::error::{Error, Result};
+pub use crate::stack::settings::{
+    BandMapSetting, ExtentRule, Given, OutputCompression, ReflectanceScale, WindowShape,
+};
 
 /// The features built when neither flags nor recipe name any: the 3x3 set, position and
 /// roughness at every scale, the reflectance bands and every index the bands allow.
@@ -86,6 +89,9 @@ pub struct RecipeFile {
     pub grid: GridSection,
     #[serde(default)]
     pub output: OutputSection,
+    /// The file it was read from (errors about its values name it); not a key.
+    #[serde(skip)]
+    pub path: Option<PathBuf>,
 }
 
 #[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
@@ -113,7 +119,7 @@ pub struct InputsSection {
 pub struct FeaturesSection {
     pub list: Option<Vec<String>>,
     pub scales_m: Option<Vec<f64>>,
-    pub window: Option<String>,
+    pub window: Option<WindowShape>,
     pub min_valid_fraction: Option<f64>,
     pub z_factor: Option<f64>,
     #[serde(default)]
@@ -124,14 +130,14 @@ pub struct FeaturesSection {
 #[serde(deny_unknown_fields)]
 pub struct GridSection {
     pub resolution_m: Option<f64>,
-    pub extent: Option<String>,
+    pub extent: Option<ExtentRule>,
     pub resampling: Option<Resampling>,
 }
 
 #[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
 #[serde(deny_unknown_fields)]
 pub struct OutputSection {
-    pub compression: Option<String>,
+    pub compression: Option<OutputCompression>,
 }
 
 impl RecipeFile {
@@ -139,10 +145,17 @@ impl RecipeFile {
     pub fn load(path: &Path) -> Result<RecipeFile> {
         let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
         let mut recipe: RecipeFile = toml::from_str(&text).map_err(|e| {
-            Error::file(path, format!("not a valid recipe: {}", e.message().trim())).with_fix(
-                "see the recipe format in the README (tables inputs, features, grid, output)",
+            let at = e
+                .span()
+                .map(|span| line_at(&text, span.start))
+                .unwrap_or_default();
+            Error::file(
+                path,
+                format!("not a valid recipe: {}{at}", e.message().trim()),
             )
+            .with_fix("see the recipe format in the README (tables inputs, features, grid, output)")
         })?;
+        recipe.path = Some(path.to_path_buf());
         let base = path.parent().unwrap_or(Path::new("."));
         let rebase = |p: &mut PathBuf| {
             if p.is_relative() {
@@ -181,15 +194,15 @@ pub struct RecipeFlags {
     /// `NAME=EXPR` entries.
     pub expressions: Vec<String>,
     pub resolution_m: Option<f64>,
-    pub extent: Option<String>,
+    pub extent: Option<ExtentRule>,
     pub resampling: Option<Resampling>,
-    pub window: Option<String>,
+    pub window: Option<WindowShape>,
     pub min_valid_fraction: Option<f64>,
     pub z_factor: Option<f64>,
     pub reflectance_scale: Option<String>,
     pub reflectance_offset: Option<String>,
     pub zero_is_nodata: bool,
-    pub compression: Option<String>,
+    pub compression: Option<OutputCompression>,
 }
 
 /// A fully resolved recipe: every choice explicit. Recorded in `stack.json`.
@@ -206,28 +219,28 @@ pub struct Recipe {
     #[serde(default, skip_serializing_if = "std::ops::Not::not")]
     pub allow_any_reflectance: bool,
     pub ortho: Option<PathBuf>,
-    /// Band map of `ortho` ("blue=1,green=2,…,alpha=6"), parsed by `spectral::BandMap`.
-    pub bands: Option<String>,
+    /// Band map of `ortho` ("blue=1,green=2,…,alpha=6"), recorded as given.
+    pub bands: Option<BandMapSetting>,
     /// One-file-per-band inputs, `ROLE=FILE[:BAND]`.
     pub band_files: Vec<String>,
     /// Reflectance scale: one number, or `ROLE=NUMBER` pairs (`spectral::PerBand`).
-    pub reflectance_scale: Option<String>,
+    pub reflectance_scale: Option<ReflectanceScale>,
     /// Reflectance offset, same form as the scale.
-    pub reflectance_offset: Option<String>,
+    pub reflectance_offset: Option<ReflectanceScale>,
     pub zero_is_nodata: bool,
     /// Feature words and index names, as asked (expanded by the plan).
     pub features: Vec<String>,
     pub scales_m: Vec<f64>,
-    pub window: String,
+    pub window: WindowShape,
     pub min_valid_fraction: f64,
     pub z_factor: f64,
     /// Name → expression text.
     pub expressions: BTreeMap<String, String>,
     /// Target cell size in metres; `None` keeps the DSM's.
     pub resolution_m: Option<f64>,
-    pub extent: String,
+    pub extent: ExtentRule,
     pub resampling: Resampling,
-    pub compression: String,
+    pub compression: OutputCompression,
 }
 
 impl Recipe {
@@ -244,7 +257,7 @@ impl Recipe {
                     .with_fix("pass --dsm FILE, or set inputs.dsm in the recipe")
             })?;
         let ortho = flags.ortho.clone().or_else(|| f.inputs.ortho.clone());
-        let bands = flags.bands.clone().or_else(|| f.inputs.bands.clone());
+        let bands = flags.bands.as_deref().or(f.inputs.bands.as_deref());
         match (&ortho, &bands) {
             (None, Some(_)) => {
                 return Err(Error::usage("--bands names bands of an orthomosaic, but no --ortho was given")
@@ -257,6 +270,13 @@ impl Recipe {
             }
             _ => {}
         }
+        let bands = match bands {
+            Some(text) => {
+                let what = origin(flags.bands.is_some(), "--bands", f, "inputs.bands");
+                Some(Given::parse(&what, text).map_err(|e| named(e, &what))?)
+            }
+            None => None,
+        };
         let band_files: Vec<String> = f
             .inputs
             .files
@@ -282,16 +302,7 @@ impl Recipe {
         for &s in &scales_m {
             crate::terrain::check_radius_value(s, scales_origin)?;
         }
-        let window = flags
-            .window
-            .clone()
-            .or_else(|| f.features.window.clone())
-            .unwrap_or_else(|| "disc".into());
-        if window != "disc" && window != "square" {
-            return Err(Error::usage(format!(
-                "window shape {window:?} is not disc or square"
-            )));
-        }
+        let window = flags.window.or(f.features.window).unwrap_or_default();
         let min_valid_fraction = flags
             .min_valid_fraction
             .or(f.features.min_valid_fraction)
@@ -334,34 +345,25 @@ impl Recipe {
                 )));
             }
         }
-        let extent = flags
-            .extent
-            .clone()
-            .or_else(|| f.grid.extent.clone())
-            .unwrap_or_else(|| "dsm".into());
-        if extent != "dsm" && extent != "intersection" {
-            return Err(Error::usage(format!(
-                "extent {extent:?} is not dsm or intersection"
-            )));
-        }
+        let extent = flags.extent.or(f.grid.extent).unwrap_or_default();
         let compression = flags
             .compression
-            .clone()
-            .or_else(|| f.output.compression.clone())
-            .unwrap_or_else(|| "deflate".into());
-        if compression != "deflate" && compression != "zstd" {
-            return Err(Error::usage(format!(
-                "compression {compression:?} is not deflate or zstd"
-            )));
-        }
-        let reflectance_scale = flags
-            .reflectance_scale
-            .clone()
-            .or_else(|| f.inputs.reflectance_scale.as_ref().map(number_text));
-        let reflectance_offset = flags
-            .reflectance_offset
-            .clone()
-            .or_else(|| f.inputs.reflectance_offset.as_ref().map(number_text));
+            .or(f.output.compression)
+            .unwrap_or_default();
+        let reflectance_scale = per_band(
+            flags.reflectance_scale.as_deref(),
+            "--reflectance-scale",
+            f,
+            f.inputs.reflectance_scale.as_ref(),
+            "inputs.reflectance_scale",
+        )?;
+        let reflectance_offset = per_band(
+            flags.reflectance_offset.as_deref(),
+            "--reflectance-offset",
+            f,
+            f.inputs.reflectance_offset.as_ref(),
+            "inputs.reflectance_offset",
+        )?;
         let dsm_band = flags.dsm_band.or(f.inputs.dsm_band);
         if dsm_band == Some(0) {
             return Err(Error::usage("--dsm-band 0: bands are numbered from 1")
@@ -402,6 +404,57 @@ fn number_text(v: &toml::Value) -> String {
     }
 }
 
+/// How errors name a value: its flag when the flag gave it, else its recipe key (and the
+/// recipe file when known).
+fn origin(from_flag: bool, flag: &str, file: &RecipeFile, key: &str) -> String {
+    match (&file.path, from_flag) {
+        (_, true) => flag.to_string(),
+        (Some(p), false) => format!("{key} in the recipe {}", p.display()),
+        (None, false) => format!("{key} in the recipe"),
+    }
+}
+
+/// `e` with `what` (a flag or recipe key) named in front of its problem, unless it names
+/// it already.
+fn named(e: Error, what: &str) -> Error {
+    match e {
+        Error::Usage { problem, fix } if !problem.contains(what) => Error::Usage {
+            problem: format!("{what}: {problem}"),
+            fix,
+        },
+        other => other,
+    }
+}
+
+/// A reflectance scale or offset from its flag (text) or recipe key (number or text).
+fn per_band(
+    flag_text: Option<&str>,
+    flag: &str,
+    file: &RecipeFile,
+    key_value: Option<&toml::Value>,
+    key: &str,
+) -> Result<Option<ReflectanceScale>> {
+    let text = match (flag_text, key_value) {
+        (Some(t), _) => t.to_string(),
+        (None, Some(v)) => number_text(v),
+        (None, None) => return Ok(None),
+    };
+    let what = origin(flag_text.is_some(), flag, file, key);
+    Given::parse(&what, &text).map(Some)
+}
+
+/// " (line N: `TEXT`)" for the line of `text` holding byte `at`, for parse errors.
+fn line_at(text: &str, at: usize) -> String {
+    let mut at = at.min(text.len());
+    while !text.is_char_boundary(at) {
+        at -= 1;
+    }
+    let start = text[..at].rfind('\n').map_or(0, |i| i + 1);
+    let end = text[at..].find('\n').map_or(text.len(), |i| at + i);
+    let number = text[..at].matches('\n').count() + 1;
+    format!(" (line {number}: `{}`)", text[start..end].trim())
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -417,7 +470,7 @@ mod tests {
     fn defaults_are_explicit() {
         let r = Recipe::resolve(None, &flags_with_dsm()).unwrap();
         assert_eq!(r.scales_m, DEFAULT_SCALES_M);
-        assert_eq!(r.window, "disc");
+        assert_eq!(r.window, WindowShape::Disc);
         assert_eq!(r.min_valid_fraction, 0.75);
         assert_eq!(r.resampling, Resampling::Bilinear);
         assert_eq!(r.features.len(), DEFAULT_FEATURES.len());
@@ -447,7 +500,7 @@ mod tests {
         };
         let r = Recipe::resolve(Some(&file), &flags).unwrap();
         assert_eq!(r.dsm, PathBuf::from("a.tif"));
-        assert_eq!(r.bands.as_deref(), Some("red=3, nir=5"));
+        assert_eq!(r.bands.as_ref().map(|b| b.text()), Some("red=3, nir=5"));
         assert_eq!(r.scales_m, vec![0.5, 3.0]);
         assert_eq!(r.features, vec!["slope"]);
         assert_eq!(r.resampling, Resampling::Cubic);
@@ -479,5 +532,35 @@ mod tests {
         std::fs::write(&p, "[features]\nlsit = [\"slope\"]\n").unwrap();
         let e = RecipeFile::load(&p).unwrap_err().to_string();
         assert!(e.contains("r.toml") && e.contains("lsit"), "{e}");
+    }
+
+    #[test]
+    fn bad_choices_and_texts_name_their_key_and_file() {
+        let tmp = tempfile::tempdir().unwrap();
+        let p = tmp.path().join("r.toml");
+        std::fs::write(&p, "[grid]\nresolution_m = 0.5\nextent = \"everything\"\n").unwrap();
+        let e = RecipeFile::load(&p).unwrap_err().to_string();
+        assert!(
+            e.contains("r.toml") && e.contains("line 3") && e.contains("intersection"),
+            "{e}"
+        );
+        std::fs::write(&p, "[inputs]\northo = \"o.tif\"\nbands = \"red=x\"\n").unwrap();
+        let file = RecipeFile::load(&p).unwrap();
+        let e = Recipe::resolve(Some(&file), &flags_with_dsm())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("inputs.bands in the recipe") && e.contains("r.toml"),
+            "{e}"
+        );
+        let mut flags = flags_with_dsm();
+        flags.reflectance_scale = Some("abc".into());
+        let e = Recipe::resolve(None, &flags).unwrap_err().to_string();
+        assert!(e.contains("--reflectance-scale"), "{e}");
+        std::fs::write(&p, "[inputs]\nreflectance_scale = 0.0001\n").unwrap();
+        let file = RecipeFile::load(&p).unwrap();
+        let r = Recipe::resolve(Some(&file), &flags_with_dsm()).unwrap();
+        let scale = r.reflectance_scale.unwrap();
+        assert_eq!((scale.text(), scale.value().all), ("0.0001", Some(1e-4)));
     }
 }

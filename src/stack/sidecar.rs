@@ -119,8 +119,9 @@ impl Default for SoftwareMetadata {
     }
 }
 
-/// Statistics of a band's valid (non-NaN) cells. All null when no cell is valid.
-#[derive(Clone, Debug, Serialize, Deserialize, PartialEq)]
+/// Statistics of a band's valid (non-NaN) cells. All null when no cell is valid (also the
+/// default, before a band is computed).
+#[derive(Clone, Debug, Default, Serialize, Deserialize, PartialEq)]
 pub struct BandStats {
     pub min: Option<f64>,
     pub max: Option<f64>,
