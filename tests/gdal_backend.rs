@@ -7,7 +7,7 @@
 
 mod util;
 
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 use gdal::raster::Buffer;
 use gdal::spatial_ref::SpatialRef;

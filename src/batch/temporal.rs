@@ -375,9 +375,7 @@ pub fn write_temporal(
         parameters,
         software: SoftwareMetadata::default(),
     };
-    let json_path = dir.temp_path("stack.json");
-    let text = serde_json::to_string_pretty(&metadata).expect("stack metadata serialises") + "\n";
-    std::fs::write(&json_path, text).map_err(|e| Error::io(&json_path, e))?;
+    metadata.write_to(&dir.temp_path("stack.json"))?;
     dir.commit()?;
     Ok(metadata)
 }

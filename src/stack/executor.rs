@@ -272,9 +272,7 @@ fn run(
     };
     let png_path = out.temp_path("preview.png");
     preview.write_png(&png_path)?;
-    let json_path = out.temp_path("stack.json");
-    let text = serde_json::to_string_pretty(&metadata).expect("stack metadata serialises");
-    std::fs::write(&json_path, text + "\n").map_err(|e| Error::io(&json_path, e))?;
+    metadata.write_to(&out.temp_path("stack.json"))?;
     let dir = out.dir().to_path_buf();
     out.commit()?;
     Ok(BuildReport {

@@ -6,8 +6,11 @@
 //! deterministic: each block keeps its own partial sums, and partials are merged in block
 //! order, never in the order threads finish.
 
+use std::path::Path;
+
 use serde::{Deserialize, Serialize};
 
+use crate::error::{Error, Result};
 use crate::grid::{Crs, Grid};
 
 /// The `format` value of this version of the sidecar.
@@ -25,6 +28,15 @@ pub struct StackMetadata {
     /// The resolved recipe the stack was built from.
     pub parameters: serde_json::Value,
     pub software: SoftwareMetadata,
+}
+
+impl StackMetadata {
+    /// Write the sidecar's text (pretty-printed JSON and a final newline) to `path`, the
+    /// temporary path of `stack.json` in an output folder (`stack::output::OutputDir`).
+    pub fn write_to(&self, path: &Path) -> Result<()> {
+        let text = serde_json::to_string_pretty(self).expect("stack metadata serialises");
+        std::fs::write(path, text + "\n").map_err(|e| Error::io(path, e))
+    }
 }
 
 /// Size, transform (GDAL order) and CRS of the stack.
