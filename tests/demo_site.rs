@@ -372,18 +372,29 @@ fn look_alike_classes_part_only_in_height_or_elevation() {
     // water, the track on the lower terrace about 1 m higher, both with 1.5 cm noise.
     let ndvi_jm = jm(&spring_ndvi, "farm_track", "gravel_bar");
     let z_jm = jm(&dsm, "farm_track", "gravel_bar");
-    assert!(ndvi_jm < 0.2 && z_jm > 1.9, "track/bar: NDVI {ndvi_jm}, DSM {z_jm}");
+    assert!(
+        ndvi_jm < 0.2 && z_jm > 1.9,
+        "track/bar: NDVI {ndvi_jm}, DSM {z_jm}"
+    );
     // Willow over wet meadow: spring tables within 8 %, mixed through the gaps, so NDVI
     // JM is small; the 2–4 m canopy against a 0.1 m spring sward puts the DSM apart.
     let ndvi_jm = jm(&spring_ndvi, "wet_meadow", "willow_scrub");
     let z_jm = jm(&dsm, "wet_meadow", "willow_scrub");
-    assert!(ndvi_jm < 0.3 && z_jm > 1.9, "willow/wet: NDVI {ndvi_jm}, DSM {z_jm}");
+    assert!(
+        ndvi_jm < 0.3 && z_jm > 1.9,
+        "willow/wet: NDVI {ndvi_jm}, DSM {z_jm}"
+    );
     // Meadows: spring NDVI 0.70 against 0.65 (tables) with ±0.05 of vigour and the mixed
     // transition overlap (JM well below 2); the summer gap of 0.13 separates them more.
     let (sp, su) = (
         jm(&spring_ndvi, "dry_meadow", "wet_meadow"),
         jm(&summer_ndvi, "dry_meadow", "wet_meadow"),
     );
-    assert!(sp < 1.6 && su > sp, "meadows: spring NDVI JM {sp}, summer {su}");
-    println!("track/bar, willow/wet and meadow JM as designed; meadows spring {sp:.3}, summer {su:.3}");
+    assert!(
+        sp < 1.6 && su > sp,
+        "meadows: spring NDVI JM {sp}, summer {su}"
+    );
+    println!(
+        "track/bar, willow/wet and meadow JM as designed; meadows spring {sp:.3}, summer {su:.3}"
+    );
 }

@@ -517,7 +517,10 @@ fn separability_report_beside_the_table_and_its_refusals() {
     let report: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(&report_path).unwrap()).unwrap();
     assert_eq!(report["format"], "terrastack-separability/1");
-    assert_eq!(report["classes"], serde_json::json!(["bog", "fen", "meadow"]));
+    assert_eq!(
+        report["classes"],
+        serde_json::json!(["bog", "fen", "meadow"])
+    );
     // Three classes: pairs (bog, fen), (bog, meadow), (fen, meadow), one JM each per band.
     assert_eq!(report["pairs"], serde_json::json!([[0, 1], [0, 2], [1, 2]]));
     let bands = report["bands"].as_array().unwrap();

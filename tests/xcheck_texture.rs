@@ -75,14 +75,21 @@ fn glcm_features_equal_scikit_image() {
             for r in 0..h {
                 for c in 0..w {
                     let (g, x) = (got[k][[r, c]], want[(k * h + r) * w + c]);
-                    assert_eq!(g.is_nan(), x.is_nan(), "{name} {feature} ({r}, {c}): {g} vs {x}");
+                    assert_eq!(
+                        g.is_nan(),
+                        x.is_nan(),
+                        "{name} {feature} ({r}, {c}): {g} vs {x}"
+                    );
                     if !x.is_nan() {
                         worst = worst.max((g - x).abs());
                     }
                 }
             }
             // Both sides sum the same terms in another order: agreement to 1e-12.
-            assert!(worst < 1e-12, "{name} {feature}: largest difference {worst:e}");
+            assert!(
+                worst < 1e-12,
+                "{name} {feature}: largest difference {worst:e}"
+            );
             println!("{name} {feature}: equal to scikit-image within {worst:.1e}");
         }
     }

@@ -676,8 +676,11 @@ pub fn run(
         ],
     )?;
     if sep_path.exists() && !force {
-        return Err(Error::file(&sep_path, "the separability report already exists")
-            .with_fix("choose another --out name, or add --force to replace the table and its report"));
+        return Err(
+            Error::file(&sep_path, "the separability report already exists").with_fix(
+                "choose another --out name, or add --force to replace the table and its report",
+            ),
+        );
     }
     let name = out.file_name().map(|n| n.to_string_lossy().into_owned());
     let folder = out.parent().filter(|p| !p.as_os_str().is_empty());

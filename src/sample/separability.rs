@@ -8,9 +8,9 @@
 //! - F = [Σ n_c (m_c − m)² / (k − 1)] / [Σ Σ (x − m_c)² / (n − k)], with p = P(F(k − 1,
 //!   n − k) ≥ F) from the regularised incomplete beta function (Fisher 1925; the same
 //!   statistic as scikit-learn's `f_classif`).
-//! - Bhattacharyya distance of two univariate Gaussians B = (m₁ − m₂)² / (4 (s₁² + s₂²))
-//!   + ½ ln((s₁² + s₂²) / (2 s₁ s₂)), and JM = 2 (1 − e^(−B)), from 0 (same distribution)
-//!   to 2 (no overlap) (Richards 2013, ch. 10).
+//! - Bhattacharyya distance of two univariate Gaussians, B = (m₁ − m₂)² / (4 (s₁² + s₂²))
+//!   plus ½ ln((s₁² + s₂²) / (2 s₁ s₂)), and JM = 2 (1 − e^(−B)), from 0 (same
+//!   distribution) to 2 (no overlap) (Richards 2013).
 //! - Pearson correlation of two bands over the rows valid in both; bands are grouped by
 //!   single linkage: two bands share a group when a chain of pairs with |r| ≥ threshold
 //!   joins them.
@@ -110,7 +110,13 @@ pub fn anova_f(values: &[f64], labels: &[usize], n_classes: usize) -> (f64, f64)
         return (f64::NAN, f64::NAN);
     }
     let mean: Vec<f64> = (0..n_classes)
-        .map(|c| if count[c] > 0 { sum[c] / count[c] as f64 } else { 0.0 })
+        .map(|c| {
+            if count[c] > 0 {
+                sum[c] / count[c] as f64
+            } else {
+                0.0
+            }
+        })
         .collect();
     let grand = sum.iter().sum::<f64>() / n as f64;
     let between: f64 = (0..n_classes)
@@ -188,9 +194,9 @@ pub fn correlated_groups(correlation: &[Vec<f64>], threshold: f64) -> Vec<Vec<us
         }
         i
     }
-    for i in 0..n {
-        for j in i + 1..n {
-            if correlation[i][j].abs() >= threshold {
+    for (i, row) in correlation.iter().enumerate() {
+        for (j, r) in row.iter().enumerate().skip(i + 1) {
+            if r.abs() >= threshold {
                 let (ri, rj) = (root(&mut group, i), root(&mut group, j));
                 group[ri.max(rj)] = ri.min(rj);
             }
@@ -466,8 +472,7 @@ pub fn regularized_beta(x: f64, a: f64, b: f64) -> f64 {
     if x >= 1.0 {
         return 1.0;
     }
-    let ln_front =
-        ln_gamma(a + b) - ln_gamma(a) - ln_gamma(b) + a * x.ln() + b * (1.0 - x).ln();
+    let ln_front = ln_gamma(a + b) - ln_gamma(a) - ln_gamma(b) + a * x.ln() + b * (1.0 - x).ln();
     if x < (a + 1.0) / (a + b + 2.0) {
         ln_front.exp() * beta_fraction(a, b, x) / a
     } else {
@@ -500,8 +505,8 @@ mod tests {
         // p = I_{4/(4+13.5)}(2, 1/2). Closed form for a = 2, b = 1/2 (integrating
         // t^(1)(1−t)^(−1/2)): B·I_x = 4/3 − 2√(1−x) + (2/3)(1−x)^(3/2), B(2, ½) = 4/3.
         let x: f64 = 4.0 / 17.5;
-        let want = (4.0 / 3.0 - 2.0 * (1.0 - x).sqrt() + 2.0 / 3.0 * (1.0 - x).powf(1.5))
-            / (4.0 / 3.0);
+        let want =
+            (4.0 / 3.0 - 2.0 * (1.0 - x).sqrt() + 2.0 / 3.0 * (1.0 - x).powf(1.5)) / (4.0 / 3.0);
         assert!((p - want).abs() < 1e-13, "{p} {want}");
         // One class, or no within-class degrees of freedom: undefined.
         assert!(anova_f(&[1.0, 2.0], &[0, 0], 2).0.is_nan());
@@ -517,7 +522,10 @@ mod tests {
         for &(f, d2) in &[(0.5f64, 3.0f64), (3.0, 10.0), (40.0, 7.0), (1e3, 50.0)] {
             let want = (1.0 + 2.0 * f / d2).powf(-d2 / 2.0);
             let got = f_survival(f, 2.0, d2);
-            assert!((got - want).abs() <= 1e-12 * want.max(1e-300), "{f} {d2}: {got} {want}");
+            assert!(
+                (got - want).abs() <= 1e-12 * want.max(1e-300),
+                "{f} {d2}: {got} {want}"
+            );
         }
         // Γ(n) = (n − 1)!.
         for (n, fact) in [(1.0, 1.0), (5.0, 24.0), (11.0, 3_628_800.0)] {
@@ -574,7 +582,10 @@ mod tests {
         let s = separability(&names, &[h, n, n2], &labels, &classes, 0.9);
         assert_eq!(s.pairs, vec![[0, 1]]);
         assert_eq!(s.best_band_per_pair[0].band.as_deref(), Some("height"));
-        assert_eq!(s.correlated_groups, vec![vec!["ndvi".to_string(), "ndvi2".into()]]);
+        assert_eq!(
+            s.correlated_groups,
+            vec![vec!["ndvi".to_string(), "ndvi2".into()]]
+        );
         assert!(s.bands[0].anova_f > 50.0 && s.bands[1].anova_f < 1.0);
         let text = s.to_string();
         assert!(text.contains("scrub/tall_meadow: height"), "{text}");

@@ -70,8 +70,7 @@ mod tests {
         let sizes = CellSizes::uniform(0.5, 0.5, h);
         for shape in [WindowShape::Square, WindowShape::Disc] {
             let halo = 3;
-            let out = window_std(v.view(), &sizes, shape, 1.2, halo, (h - 6, w - 6), 0.0)
-                .unwrap();
+            let out = window_std(v.view(), &sizes, shape, 1.2, halo, (h - 6, w - 6), 0.0).unwrap();
             for i in 0..h - 6 {
                 for j in 0..w - 6 {
                     let (r, c) = (i + halo, j + halo);
@@ -100,7 +99,10 @@ mod tests {
                         / cells.len() as f64)
                         .sqrt();
                     // Quantisation to 2⁻²⁰ moves each value by at most 2⁻²¹.
-                    assert!((got - want).abs() < 2e-6, "{shape:?} ({i}, {j}): {got} {want}");
+                    assert!(
+                        (got - want).abs() < 2e-6,
+                        "{shape:?} ({i}, {j}): {got} {want}"
+                    );
                 }
             }
         }

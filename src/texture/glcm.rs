@@ -65,7 +65,9 @@ impl Quantiser {
             return Err(Error::usage(format!(
                 "{levels} grey levels: texture needs 2 to {MAX_LEVELS}"
             ))
-            .with_fix(format!("give 2 to {MAX_LEVELS} levels ({DEFAULT_LEVELS} is usual)")));
+            .with_fix(format!(
+                "give 2 to {MAX_LEVELS} levels ({DEFAULT_LEVELS} is usual)"
+            )));
         }
         Ok(Quantiser { lo, hi, levels })
     }
@@ -280,9 +282,15 @@ fn row_features(
     let first = c0 as i64;
     for (s, &off) in states.iter_mut().zip(&offsets) {
         for col in first - kx..=first + kx {
-            column_pairs(levels, off, col, (first - kx, first + kx), r0, r1, |a, b| {
-                s.update(a, b, true)
-            });
+            column_pairs(
+                levels,
+                off,
+                col,
+                (first - kx, first + kx),
+                r0,
+                r1,
+                |a, b| s.update(a, b, true),
+            );
         }
     }
     for i in 0..width {
@@ -294,9 +302,15 @@ fn row_features(
                 column_pairs(levels, off, left, (left, c - 1 + kx), r0, r1, |a, b| {
                     s.update(a, b, false)
                 });
-                column_pairs(levels, off, right - off.1, (c - kx, right), r0, r1, |a, b| {
-                    s.update(a, b, true)
-                });
+                column_pairs(
+                    levels,
+                    off,
+                    right - off.1,
+                    (c - kx, right),
+                    r0,
+                    r1,
+                    |a, b| s.update(a, b, true),
+                );
             }
         }
         let centre = levels[[row, c as usize]];
@@ -347,8 +361,12 @@ pub(crate) fn brute_force(
     let (r, c) = (row as i64, col as i64);
     let (kx, ky) = (win.kx as i64, win.ky as i64);
     let inside = |rr: i64, cc: i64| {
-        (r - ky..=r + ky).contains(&rr) && (c - kx..=c + kx).contains(&cc) && rr >= 0 && cc >= 0
-            && rr < nr && cc < nc
+        (r - ky..=r + ky).contains(&rr)
+            && (c - kx..=c + kx).contains(&cc)
+            && rr >= 0
+            && cc >= 0
+            && rr < nr
+            && cc < nc
     };
     let mut sum = [0.0; 4];
     let mut dirs = 0;
@@ -506,7 +524,10 @@ mod tests {
             distance: 1,
         };
         let f = glcm_features(img.view(), 8, win, 3..4, 3..4);
-        assert_eq!([f[0][[0, 0]], f[1][[0, 0]], f[2][[0, 0]], f[3][[0, 0]]], [0.0, 1.0, 0.0, 1.0]);
+        assert_eq!(
+            [f[0][[0, 0]], f[1][[0, 0]], f[2][[0, 0]], f[3][[0, 0]]],
+            [0.0, 1.0, 0.0, 1.0]
+        );
         // A checkerboard of levels 0 and 1: horizontal and vertical neighbours always
         // differ (contrast 1, homogeneity ½, correlation −1, entropy ln 2: P = ½ on the
         // two off-diagonal cells), diagonal neighbours never (contrast 0, homogeneity 1,
