@@ -12,6 +12,7 @@
 //! - [`raster`]: windowed readers and the GeoTIFF writer (pure Rust; GDAL with `gdal`).
 //! - [`terrain`]: terrain derivatives, one module per family, each citing its method.
 //! - [`spectral`]: band roles, reflectance scaling, the index catalogue, band math.
+//! - [`texture`]: co-occurrence (Haralick) and first-order texture of a band or index.
 //! - [`align`]: resampling every input onto the target grid.
 //! - [`stack`]: the recipe, the block plan, the executor and the stack's metadata.
 //! - [`verify`]: closed-form test surfaces and error tables.
@@ -34,6 +35,7 @@ pub mod sample;
 pub mod spectral;
 pub mod stack;
 pub mod terrain;
+pub mod texture;
 pub mod verify;
 
 pub use error::{Error, Result};

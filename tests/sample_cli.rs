@@ -480,3 +480,71 @@ fn lonlat_and_ogr_layers_are_transformed_into_the_stack_crs() {
     assert_eq!(rows.len(), 4, "{rows:?}");
     assert!(rows.iter().all(|r| r[0] == "c1"));
 }
+
+#[test]
+fn separability_report_beside_the_table_and_its_refusals() {
+    let tmp = tempfile::tempdir().unwrap();
+    let stack = make_stack(tmp.path());
+    let samples = tmp.path().join("samples.csv");
+    std::fs::write(&samples, CSV).unwrap();
+    let out = tmp.path().join("table.csv");
+    let args = |extra: &[&str]| {
+        let mut a = vec![
+            "sample",
+            "--stack",
+            s(&stack),
+            "--samples",
+            s(&samples),
+            "--out",
+            s(&out),
+            "--folds",
+            "2",
+        ];
+        a.extend_from_slice(extra);
+        a.into_iter().map(String::from).collect::<Vec<_>>()
+    };
+    let run = |extra: &[&str]| {
+        let a = args(extra);
+        terrastack(&a.iter().map(|x| x.as_str()).collect::<Vec<_>>(), "2")
+    };
+    let o = run(&[]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert!(stdout.contains("class separability per band"), "{stdout}");
+    assert!(stdout.contains("best band per class pair"), "{stdout}");
+    let report_path = tmp.path().join("table.separability.json");
+    let report: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&report_path).unwrap()).unwrap();
+    assert_eq!(report["format"], "terrastack-separability/1");
+    assert_eq!(
+        report["classes"],
+        serde_json::json!(["bog", "fen", "meadow"])
+    );
+    // Three classes: pairs (bog, fen), (bog, meadow), (fen, meadow), one JM each per band.
+    assert_eq!(report["pairs"], serde_json::json!([[0, 1], [0, 2], [1, 2]]));
+    let bands = report["bands"].as_array().unwrap();
+    assert_eq!(bands.len(), 3);
+    for b in bands {
+        assert_eq!(b["jm"].as_array().unwrap().len(), 3);
+        let f = b["anova_f"].as_f64().unwrap();
+        assert!(f > 0.0, "{b}");
+    }
+    // Rerunning without --force refuses (table first); with it, both are replaced.
+    let o = run(&[]);
+    assert_eq!(o.status.code(), Some(1));
+    std::fs::remove_file(&out).unwrap();
+    let o = run(&[]);
+    assert_eq!(o.status.code(), Some(1));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(err.contains("separability report already exists"), "{err}");
+    assert!(!out.exists(), "no table written when the report is refused");
+    let o = run(&["--force", "--correlation-threshold", "0.5"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let report: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&report_path).unwrap()).unwrap();
+    assert_eq!(report["correlation_threshold"], 0.5);
+    // A threshold that is not a correlation is a usage error.
+    let o = run(&["--force", "--correlation-threshold", "1.5"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("--correlation-threshold"));
+}

@@ -8,7 +8,9 @@
 #      polygon rasterisation (rasterio.features.rasterize, cell-centre rule); means must
 #      equal numpy's; folds must hold samples and blocks together, be stratified and
 #      repeat for a seed;
-#   4. scripts/sample_forest.py trains a random forest on the table with its folds.
+#   4. scripts/sample_forest.py trains a random forest on the table with its folds;
+#   5. scripts/xcheck_separability.py checks the separability reports (F and p against
+#      scikit-learn's f_classif, correlations against numpy.corrcoef).
 # Env: XCHECK_ROOT = scratch folder (required). TERRASTACK = a built binary to use instead
 # of `cargo build --release` (for local runs).
 set -euo pipefail
@@ -210,4 +212,7 @@ EOF
 
 python3 scripts/sample_forest.py "$WORK/points_table.csv"
 python3 scripts/sample_forest.py "$WORK/plots_mean.csv"
+# Separability reports against scikit-learn's f_classif and numpy.corrcoef.
+python3 scripts/xcheck_separability.py "$WORK/points_table.csv"
+python3 scripts/xcheck_separability.py "$WORK/plots_mean.csv"
 echo "sample cross-check passed"

@@ -1,5 +1,6 @@
 //! `terrastack sample`: a classifier-ready training table from a stack and labelled
-//! samples, with cross-validation folds that never split a sample.
+//! samples, with cross-validation folds that never split a sample, and a report of which
+//! bands separate the classes (printed, and written as `TABLE.separability.json`).
 
 use std::path::PathBuf;
 
@@ -58,7 +59,11 @@ pub struct Args {
     /// the stack is in EPSG:4326).
     #[arg(long)]
     pub lonlat: bool,
-    /// Replace an existing table.
+    /// Bands whose |Pearson r| over the table's rows reaches this are listed as one
+    /// correlated group (single linkage) in the separability report.
+    #[arg(long, value_name = "R", default_value_t = sample::separability::DEFAULT_CORRELATION_THRESHOLD)]
+    pub correlation_threshold: f64,
+    /// Replace an existing table (and its separability report).
     #[arg(long)]
     pub force: bool,
 }
@@ -76,6 +81,7 @@ pub fn run(args: Args) -> Result<()> {
         strict: args.strict,
         class_field: args.class_field,
         lonlat: args.lonlat,
+        correlation_threshold: args.correlation_threshold,
     };
     let summary = sample::run(&args.stack, &args.samples, &args.out, args.force, &options)?;
     print!("{summary}");

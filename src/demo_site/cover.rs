@@ -62,10 +62,10 @@ impl CoverClass {
                 "shorter grassland on the two terraces and the far floodplain, mown in late summer"
             }
             CoverClass::WillowScrub => {
-                "willow patches with a 2-4 m canopy, in leaf in summer and thinning by autumn"
+                "willow patches with a 2-4 m canopy over wet meadow, seen through gaps; in leaf in summer and thinning by autumn"
             }
             CoverClass::FarmTrack => {
-                "an unsurfaced farm track on the lower terrace: bare, smooth, raised about 0.15 m"
+                "a farm track on the lower terrace surfaced with gravel from the bar: bare, smooth, raised about 0.15 m"
             }
         }
     }
@@ -165,6 +165,25 @@ fn willow_at(u: f64, v: f64) -> Option<(WillowPatch, f64)> {
 /// metres (before the ragged ±1.5 m boundary noise).
 pub const WET_REACH: f64 = 10.0;
 
+/// Width of the transition between wet and dry meadow, metres: within half of it on
+/// either side of the class boundary the sward is a mixture of both.
+pub const MEADOW_ECOTONE_M: f64 = 6.0;
+
+/// Share of wet-meadow sward at local (u, v) on the meadows, 0 to 1: 0.5 on the boundary
+/// between the classes (so above 0.5 exactly where [`class_at`] says wet meadow, on
+/// meadow ground), falling linearly to 0 at [`MEADOW_ECOTONE_M`]/2 beyond it and rising to
+/// 1 as far inside; 0 on the terraces.
+pub fn wet_fraction(u: f64, v: f64) -> f64 {
+    let below_terrace = v < terrain::scarp_v(0, u) - terrain::SCARP_HALF_WIDTH[0];
+    if !below_terrace {
+        return 0.0;
+    }
+    let n = terrain::across_channel(u, v).abs();
+    let reach = WET_REACH + 1.5 * fbm(u, v, 6.0, 2, 0x3E7);
+    let beyond = n - (terrain::CHANNEL_HALF_WIDTH + terrain::BANK_WIDTH + reach);
+    (0.5 - beyond / MEADOW_ECOTONE_M).clamp(0.0, 1.0)
+}
+
 /// The cover class at local (u, v).
 pub fn class_at(u: f64, v: f64) -> CoverClass {
     let (_, zone) = terrain::ground(u, v);
@@ -260,6 +279,30 @@ mod tests {
         assert_eq!(class_at(70.0, 58.0), CoverClass::DryMeadow);
         let vb = terrain::channel_centre_v(terrain::BAR_CENTRE_U) + 1.0;
         assert_eq!(class_at(terrain::BAR_CENTRE_U, vb), CoverClass::GravelBar);
+    }
+
+    #[test]
+    fn wet_fraction_above_half_exactly_on_wet_meadow() {
+        // The meadow mixture is built around the class boundary: on meadow ground, more
+        // than half wet sward where the class is wet meadow, at most half where dry.
+        let mut mixed = 0;
+        for i in 0..160 {
+            for j in 0..120 {
+                let (u, v) = (i as f64 * 0.5 + 0.25, j as f64 * 0.5 + 0.25);
+                let f = wet_fraction(u, v);
+                match class_at(u, v) {
+                    CoverClass::WetMeadow => assert!(f > 0.5, "({u}, {v}): {f}"),
+                    CoverClass::DryMeadow => assert!(f <= 0.5, "({u}, {v}): {f}"),
+                    _ => continue,
+                }
+                if f > 0.0 && f < 1.0 {
+                    mixed += 1;
+                }
+            }
+        }
+        // A 6 m transition zone along ~2 x 80 m of boundary: a few thousand of the
+        // 19 200 points are mixed.
+        assert!(mixed > 1000, "{mixed}");
     }
 
     #[test]

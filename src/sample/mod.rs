@@ -11,6 +11,8 @@
 //! - [`checks`]: samples outside the stack, overlaps of different classes, small classes.
 //! - [`folds`]: seeded stratified folds, per sample or per spatial block.
 //! - [`table`]: the CSV table and its atomic writing.
+//! - [`separability`]: per band ANOVA F and Jeffries–Matusita distances of the classes,
+//!   groups of correlated bands; printed and written as `TABLE.separability.json`.
 //!
 //! Pixels are read in chunks of 512 x 512 cells aligned to the stack's origin (the
 //! stack's tile size), each chunk only over the bounding box of the sample cells inside
@@ -21,6 +23,7 @@ pub mod cells;
 pub mod checks;
 pub mod folds;
 pub mod inputs;
+pub mod separability;
 pub mod table;
 
 use std::collections::BTreeMap;
@@ -78,6 +81,8 @@ pub struct SampleOptions {
     pub class_field: Option<String>,
     /// Sample coordinates are WGS84 longitude/latitude (transformed through GDAL).
     pub lonlat: bool,
+    /// Bands whose |Pearson r| reaches this are grouped in the separability report.
+    pub correlation_threshold: f64,
 }
 
 impl Default for SampleOptions {
@@ -91,6 +96,7 @@ impl Default for SampleOptions {
             strict: false,
             class_field: None,
             lonlat: false,
+            correlation_threshold: separability::DEFAULT_CORRELATION_THRESHOLD,
         }
     }
 }
@@ -292,6 +298,13 @@ pub fn check_options(options: &SampleOptions) -> Result<()> {
             ))
             .with_fix("give the block side in metres, e.g. --block-size 50"));
         }
+    }
+    let r = options.correlation_threshold;
+    if !(r.is_finite() && r > 0.0 && r <= 1.0) {
+        return Err(Error::usage(format!(
+            "--correlation-threshold {r} is not a correlation in (0, 1]"
+        ))
+        .with_fix("give the |r| above which bands count as redundant, e.g. 0.9"));
     }
     Ok(())
 }
@@ -551,6 +564,15 @@ pub struct SampleSummary {
     /// Samples with rows per class (rows of `classes`) and fold (columns).
     pub per_fold: Vec<Vec<usize>>,
     pub report: CheckReport,
+    /// Which bands separate the classes, as written to `separability_path`.
+    pub separability: separability::Separability,
+    pub separability_path: PathBuf,
+}
+
+/// The separability report written beside table `out`: `NAME.separability.json` for
+/// `NAME.csv` (or any other extension).
+pub fn separability_path(out: &Path) -> PathBuf {
+    out.with_extension("separability.json")
 }
 
 impl fmt::Display for SampleSummary {
@@ -611,7 +633,13 @@ impl fmt::Display for SampleSummary {
             }
             writeln!(f)?;
         }
-        write!(f, "{}", self.report)
+        write!(f, "{}", self.report)?;
+        write!(f, "{}", self.separability)?;
+        writeln!(
+            f,
+            "separability report: {}",
+            self.separability_path.display()
+        )
     }
 }
 
@@ -638,6 +666,22 @@ pub fn run(
         force,
         &[("samples", samples_path), ("stack", &json), ("stack", &tif)],
     )?;
+    let sep_path = separability_path(out);
+    crate::input_guard::refuse_output_over_input(
+        std::slice::from_ref(&sep_path),
+        &[
+            ("samples".to_string(), samples_path.to_path_buf()),
+            ("stack".to_string(), json.clone()),
+            ("stack".to_string(), tif.clone()),
+        ],
+    )?;
+    if sep_path.exists() && !force {
+        return Err(
+            Error::file(&sep_path, "the separability report already exists").with_fix(
+                "choose another --out name, or add --force to replace the table and its report",
+            ),
+        );
+    }
     let name = out.file_name().map(|n| n.to_string_lossy().into_owned());
     let folder = out.parent().filter(|p| !p.as_os_str().is_empty());
     crate::atomic_file::remove_stale_partials(folder.unwrap_or(Path::new(".")), name.as_deref());
@@ -701,6 +745,10 @@ pub fn run(
     let ids: Vec<String> = file.samples.iter().map(|s| s.id.clone()).collect();
     let classes: Vec<String> = file.samples.iter().map(|s| s.class.clone()).collect();
     crate::atomic_file::write_streamed(out, |w| table.write_csv(w, &ids, &classes, &folds))?;
+    let sep = table_separability(&table, &plan, options.correlation_threshold);
+    let sep_json = serde_json::to_vec_pretty(&sep)
+        .map_err(|e| Error::file(&sep_path, format!("cannot encode the report: {e}")))?;
+    crate::atomic_file::write_bytes(&sep_path, &sep_json)?;
     let mut per_fold = vec![vec![0usize; options.folds]; plan.classes.len()];
     for (&c, f) in plan.labels.iter().zip(&folds) {
         if let Some(f) = f {
@@ -735,7 +783,28 @@ pub fn run(
         rows: table.rows.len(),
         per_fold,
         report: plan.report,
+        separability: sep,
+        separability_path: sep_path,
     })
+}
+
+/// Separability of the classes over the rows of `table` (see [`separability`]).
+pub fn table_separability(
+    table: &SampleTable,
+    plan: &SamplePlan,
+    threshold: f64,
+) -> separability::Separability {
+    let columns: Vec<Vec<f64>> = (0..table.band_names.len())
+        .map(|b| table.rows.iter().map(|r| r.values[b]).collect())
+        .collect();
+    let labels: Vec<usize> = table.rows.iter().map(|r| plan.labels[r.sample]).collect();
+    separability::separability(
+        &table.band_names,
+        &columns,
+        &labels,
+        &plan.classes,
+        threshold,
+    )
 }
 
 #[cfg(test)]
