@@ -31,6 +31,7 @@ use crate::grid::{Grid, Window};
 use crate::raster::geotiff::{EncodedBlock, GeoTiffWriter, WriteOptions};
 use crate::raster::{self, RasterSource};
 use crate::stack::output::OutputDir;
+use crate::stack::preview::{Preview, RampKind, SheetHeading};
 use crate::stack::sidecar::{
     BandMetadata, GridMetadata, SoftwareMetadata, SourceMetadata, StackMetadata, StatsAccumulator,
     STACK_FORMAT,
@@ -172,8 +173,8 @@ enum Origin {
     Summary { name: usize, which: usize },
 }
 
-/// Write the multi-temporal stack of `flights` on `grid` into `out` (atomic: `stack.json`
-/// last). Returns its metadata.
+/// Write the multi-temporal stack of `flights` on `grid` into `out` (`stack.tif`,
+/// `preview.png`, then `stack.json` last, each atomically). Returns its metadata.
 pub fn write_temporal(
     flights: &[DatedStack],
     grid: &Grid,
@@ -281,6 +282,14 @@ pub fn write_temporal(
         }
     }
 
+    let preview = Preview::new(
+        grid.width,
+        grid.height,
+        bands
+            .iter()
+            .map(|b| (b.name.clone(), b.units.clone(), RampKind::for_band(b)))
+            .collect(),
+    );
     let mut dir = OutputDir::prepare(out, force)?;
     let tif_path = dir.temp_path("stack.tif");
     let mut writer = GeoTiffWriter::create(&tif_path, grid, bands.len(), WriteOptions::default())?;
@@ -318,6 +327,7 @@ pub fn write_temporal(
                     if let Origin::Dated { flight, band } = o {
                         let data = readers[*flight].read_window(*band, *w)?;
                         stats[bi] = StatsAccumulator::from_values(data.iter());
+                        preview.record(bi, *w, data.view());
                         encoded[bi] = Some(writer.encode_block(bi + 1, tc, tr, data.view())?);
                     }
                 }
@@ -334,6 +344,7 @@ pub fn write_temporal(
                         if let Origin::Summary { name, which: wi } = o {
                             if *name == ni {
                                 stats[bi] = StatsAccumulator::from_values(sums[*wi].iter());
+                                preview.record(bi, *w, sums[*wi].view());
                                 encoded[bi] =
                                     Some(writer.encode_block(bi + 1, tc, tr, sums[*wi].view())?);
                             }
@@ -385,6 +396,13 @@ pub fn write_temporal(
         parameters,
         software: SoftwareMetadata::default(),
     };
+    let png_path = dir.temp_path("preview.png");
+    preview.write_png(
+        &png_path,
+        grid,
+        &SheetHeading::temporal(&dates),
+        &metadata.bands,
+    )?;
     let json_path = dir.temp_path("stack.json");
     let text = serde_json::to_string_pretty(&metadata).expect("stack metadata serialises") + "\n";
     std::fs::write(&json_path, text).map_err(|e| Error::io(&json_path, e))?;
