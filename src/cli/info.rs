@@ -48,7 +48,8 @@ use terrastack::{Error, Result};
 
 #[derive(clap::Args)]
 pub struct Args {
-    /// A raster file or a stack folder.
+    /// A raster file or a stack folder (a folder, or a stack.tif with its stack.json
+    /// beside it, also gets the per-band statistics table).
     pub path: PathBuf,
     /// Print JSON instead of the human summary.
     #[arg(long)]
