@@ -30,6 +30,7 @@ use crate::grid::{Grid, Window};
 use crate::raster::geotiff::{GeoTiffWriter, WriteOptions};
 use crate::raster::{self, RasterSource};
 use crate::stack::output::OutputDir;
+use crate::stack::preview::{Preview, RampKind, SheetHeading};
 use crate::stack::sidecar::{
     BandMetadata, GridMetadata, SoftwareMetadata, SourceMetadata, StackMetadata, StatsAccumulator,
     STACK_FORMAT,
@@ -172,8 +173,8 @@ enum Origin {
     Summary { name: usize, which: usize },
 }
 
-/// Write the multi-temporal stack of `flights` on `grid` into `out` (atomic: `stack.json`
-/// last). Returns its metadata.
+/// Write the multi-temporal stack of `flights` on `grid` into `out` (`stack.tif`,
+/// `preview.png`, then `stack.json` last, each atomically). Returns its metadata.
 pub fn write_temporal(
     flights: &[DatedStack],
     grid: &Grid,
@@ -281,6 +282,14 @@ pub fn write_temporal(
         }
     }
 
+    let preview = Preview::new(
+        grid.width,
+        grid.height,
+        bands
+            .iter()
+            .map(|b| (b.name.clone(), b.units.clone(), RampKind::for_band(b)))
+            .collect(),
+    );
     let mut dir = OutputDir::prepare(out, force)?;
     let tif_path = dir.temp_path("stack.tif");
     let mut writer = GeoTiffWriter::create(&tif_path, grid, bands.len(), WriteOptions::default())?;
@@ -314,6 +323,7 @@ pub fn write_temporal(
             if let Origin::Dated { flight, band } = o {
                 let data = readers[*flight].read_window(*band, w)?;
                 stats[bi] = StatsAccumulator::from_values(data.iter());
+                preview.record(bi, w, data.view());
                 encoded.encode(bi + 1, data.view())?;
             }
         }
@@ -330,6 +340,7 @@ pub fn write_temporal(
                 if let Origin::Summary { name, which: wi } = o {
                     if *name == ni {
                         stats[bi] = StatsAccumulator::from_values(sums[*wi].iter());
+                        preview.record(bi, w, sums[*wi].view());
                         encoded.encode(bi + 1, sums[*wi].view())?;
                     }
                 }
@@ -375,6 +386,13 @@ pub fn write_temporal(
         parameters,
         software: SoftwareMetadata::default(),
     };
+    let png_path = dir.temp_path("preview.png");
+    preview.write_png(
+        &png_path,
+        grid,
+        &SheetHeading::temporal(&dates),
+        &metadata.bands,
+    )?;
     metadata.write_to(&dir.temp_path("stack.json"))?;
     dir.commit()?;
     Ok(metadata)

@@ -90,6 +90,9 @@ pub struct Args {
     /// Output folder (receives stack.tif, stack.json, preview.png).
     #[arg(long, value_name = "DIR")]
     pub out: PathBuf,
+    /// Date of the flight: recorded on every band of stack.json and in the preview's heading.
+    #[arg(long, value_name = "YYYY-MM-DD")]
+    pub date: Option<String>,
     /// Replace an existing stack in the output folder (never an input, nor a folder
     /// another run is writing).
     #[arg(long)]
@@ -155,6 +158,13 @@ pub fn run(args: Args) -> Result<()> {
     };
     let recipe = Recipe::resolve(recipe_file.as_ref(), &flags)?;
     let mut options = BuildOptions::new(args.out);
+    if let Some(date) = &args.date {
+        terrastack::batch::manifest::check_date(date).map_err(|problem| {
+            terrastack::Error::usage(format!("--date: {problem}"))
+                .with_fix("write the flight's date as YYYY-MM-DD, e.g. --date 2026-07-08")
+        })?;
+    }
+    options.date = args.date;
     options.recipe_file = args.recipe;
     options.force = args.force;
     options.threads = args.threads;

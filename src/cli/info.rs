@@ -2,7 +2,9 @@
 //!
 //! For a file: size, bands (type, description, nodata), transform, CRS, raster space,
 //! cell size in metres and, for GeoTIFF, the block layout and compression. For a folder:
-//! the same for `DIR/stack.tif`, plus the band table of `DIR/stack.json` when present.
+//! the same for `DIR/stack.tif`, plus the band table and the per-band statistics of
+//! `DIR/stack.json` when present (also for a `stack.tif` given directly with its
+//! `stack.json` beside it).
 //!
 //! JSON output (keys are stable; new keys may be added):
 //! - `path` (string): the raster described.
@@ -28,8 +30,11 @@
 //!   "file_bytes", "first_block", "first_end" }`. `info` then also exits 1 with an error
 //!   naming the file.
 
-//! - `stack` (folders only): `{ "path", "format", "bands": [{ "index", "name", "feature",
-//!   "units", "scale_m" }] }`, or null when the folder has no `stack.json`.
+//! - `stack` (a folder, or a file named `stack.tif` with a `stack.json` beside it):
+//!   `{ "path", "format", "bands": [{ "index", "name", "feature", "units", "scale_m",
+//!   "date", "min", "max", "mean", "std", "valid_fraction" }] }`: the statistics are those
+//!   `stack.json` records (over every valid cell; null when a band has none), or `stack` is
+//!   null when there is no `stack.json`.
 
 use std::path::{Path, PathBuf};
 
@@ -38,11 +43,13 @@ use serde_json::{json, Value};
 use terrastack::grid::{CrsKind, RasterSpace};
 use terrastack::raster::geotiff::{self, Compression, GeoTiffReader, Interleave, Layout};
 use terrastack::raster::{self, RasterSource};
+use terrastack::stack::preview::num as sig_digits;
 use terrastack::{Error, Result};
 
 #[derive(clap::Args)]
 pub struct Args {
-    /// A raster file or a stack folder.
+    /// A raster file or a stack folder (a folder, or a stack.tif with its stack.json
+    /// beside it, also gets the per-band statistics table).
     pub path: PathBuf,
     /// Print JSON instead of the human summary.
     #[arg(long)]
@@ -97,7 +104,13 @@ pub fn describe(path: &Path) -> Result<Value> {
         };
         return Ok(summary);
     }
-    describe_raster(path)
+    let mut summary = describe_raster(path)?;
+    // A stack's image given directly: its sidecar beside it describes the same bands.
+    let sidecar = path.with_file_name("stack.json");
+    if path.file_name().is_some_and(|n| n == "stack.tif") && sidecar.is_file() {
+        summary["stack"] = stack_table(&sidecar)?;
+    }
+    Ok(summary)
 }
 
 fn number_or_text(v: Option<f64>) -> Value {
@@ -233,6 +246,12 @@ fn stack_table(path: &Path) -> Result<Value> {
                 "feature": b.get("feature").cloned().unwrap_or(Value::Null),
                 "units": b.get("units").cloned().unwrap_or(Value::Null),
                 "scale_m": b.get("scale_m").cloned().unwrap_or(Value::Null),
+                "date": b.get("date").cloned().unwrap_or(Value::Null),
+                "min": stat(b, "min"),
+                "max": stat(b, "max"),
+                "mean": stat(b, "mean"),
+                "std": stat(b, "std"),
+                "valid_fraction": stat(b, "valid_fraction"),
             })
         })
         .collect();
@@ -241,6 +260,14 @@ fn stack_table(path: &Path) -> Result<Value> {
         "format": doc.get("format").cloned().unwrap_or(Value::Null),
         "bands": bands,
     }))
+}
+
+/// Statistic `key` of a `stack.json` band record (`stats.KEY`), null when absent.
+fn stat(band: &Value, key: &str) -> Value {
+    band.get("stats")
+        .and_then(|s| s.get(key))
+        .cloned()
+        .unwrap_or(Value::Null)
 }
 
 fn text(v: &Value) -> String {
@@ -389,14 +416,26 @@ pub fn human(s: &Value) -> String {
     }
     let stack = &s["stack"];
     if !stack.is_null() && !stack["bands"].is_null() {
+        let list: Vec<&Value> = stack["bands"].as_array().into_iter().flatten().collect();
+        // Names longer than the column widen it, so that the columns stay aligned.
+        let name_w = list
+            .iter()
+            .map(|b| text(&b["name"]).chars().count() + 2)
+            .max()
+            .unwrap_or(0)
+            .max(26);
         out.push_str(&format!(
-            "\nstack layers ({}, {})\nband  name                      feature               units        scale_m\n",
+            "\nstack layers ({}, {})\n{:<6}{:<name_w$}{:<22}{:<13}scale_m\n",
             text(&stack["path"]),
-            text(&stack["format"])
+            text(&stack["format"]),
+            "band",
+            "name",
+            "feature",
+            "units"
         ));
-        for band in stack["bands"].as_array().into_iter().flatten() {
+        for band in &list {
             out.push_str(&format!(
-                "{:<6}{:<26}{:<22}{:<13}{}\n",
+                "{:<6}{:<name_w$}{:<22}{:<13}{}\n",
                 text(&band["index"]),
                 text(&band["name"]),
                 text(&band["feature"]),
@@ -404,8 +443,82 @@ pub fn human(s: &Value) -> String {
                 text(&band["scale_m"])
             ));
         }
+        out.push_str("\nband statistics (every valid cell, as stack.json records them)\n");
+        out.push_str(&stats_table(&list));
     }
     out
+}
+
+/// The per-band statistics table: band, name, units, min, max, mean, std (population) and
+/// the valid share of the grid's cells, in columns as wide as their longest entry, numbers
+/// right-aligned with six significant digits.
+fn stats_table(bands: &[&Value]) -> String {
+    let head = [
+        "band", "name", "units", "min", "max", "mean", "std", "valid",
+    ];
+    let rows: Vec<[String; 8]> = bands
+        .iter()
+        .map(|b| {
+            let n = |k: &str| match b[k].as_f64() {
+                Some(x) => sig_digits(x, 6),
+                None => "-".into(),
+            };
+            [
+                text(&b["index"]),
+                text(&b["name"]),
+                text(&b["units"]),
+                n("min"),
+                n("max"),
+                n("mean"),
+                n("std"),
+                valid_percent(b["valid_fraction"].as_f64()),
+            ]
+        })
+        .collect();
+    let widths: Vec<usize> = (0..head.len())
+        .map(|c| {
+            rows.iter()
+                .map(|r| r[c].chars().count())
+                .chain([head[c].len()])
+                .max()
+                .unwrap_or(0)
+        })
+        .collect();
+    let line = |cells: [&str; 8]| {
+        let mut s = String::new();
+        for (c, cell) in cells.iter().enumerate() {
+            let w = widths[c];
+            // Text columns left-aligned, numbers right-aligned; two spaces between.
+            if c < 3 {
+                s.push_str(&format!("{cell:<w$}  "));
+            } else {
+                s.push_str(&format!("{cell:>w$}  "));
+            }
+        }
+        s.truncate(s.trim_end().len());
+        s.push('\n');
+        s
+    };
+    let mut out = line(head);
+    for r in &rows {
+        out.push_str(&line([
+            &r[0], &r[1], &r[2], &r[3], &r[4], &r[5], &r[6], &r[7],
+        ]));
+    }
+    out
+}
+
+/// A valid fraction as a percentage with one decimal, never rounded to 0 % or 100 % when
+/// it is neither: "99.3 %", "<0.1 %", ">99.9 %", "100 %", "-" when unknown.
+fn valid_percent(fraction: Option<f64>) -> String {
+    match fraction {
+        None => "-".into(),
+        Some(f) if f >= 1.0 => "100 %".into(),
+        Some(f) if f <= 0.0 => "0 %".into(),
+        Some(f) if f * 100.0 < 0.1 => "<0.1 %".into(),
+        Some(f) if f * 100.0 > 99.9 => ">99.9 %".into(),
+        Some(f) => format!("{:.1} %", f * 100.0),
+    }
 }
 
 #[cfg(test)]
@@ -453,6 +566,33 @@ mod tests {
         let h = human(&s);
         assert!(h.contains("EPSG:25832 (ETRS89 / UTM zone 32N)"), "{h}");
         assert!(h.contains("tpi_r5m"), "{h}");
+    }
+
+    #[test]
+    fn statistics_table_is_aligned_with_every_digit_needed() {
+        let bands = [
+            json!({"index": 1, "name": "elevation", "units": "metres",
+                   "min": 210.72030639648438, "max": 217.81582641601562,
+                   "mean": 212.51553605666527, "std": 1.0154000646618395,
+                   "valid_fraction": 0.993}),
+            json!({"index": 2, "name": "tangential_curvature_evans_young", "units": "1/m",
+                   "min": -5.65e-4, "max": null, "mean": null, "std": null,
+                   "valid_fraction": 0.0}),
+        ];
+        let t = stats_table(&bands.iter().collect::<Vec<_>>());
+        let lines: Vec<&str> = t.lines().collect();
+        assert_eq!(
+            lines,
+            [
+                "band  name                              units        min      max     mean     std   valid",
+                "1     elevation                         metres    210.72  217.816  212.516  1.0154  99.3 %",
+                "2     tangential_curvature_evans_young  1/m     -5.65e-4        -        -       -     0 %",
+            ]
+        );
+        assert_eq!(valid_percent(Some(0.0004)), "<0.1 %");
+        assert_eq!(valid_percent(Some(0.99999)), ">99.9 %");
+        assert_eq!(valid_percent(Some(1.0)), "100 %");
+        assert_eq!(valid_percent(None), "-");
     }
 
     #[test]

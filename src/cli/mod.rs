@@ -30,7 +30,8 @@ enum Command {
     Build(Box<build::Args>),
     /// Build the stacks of the bundled demo site (invented data in sample-dsm/).
     Demo(demo::Args),
-    /// Describe a raster or a stack folder: size, bands, transform, CRS, cell size, nodata.
+    /// Describe a raster or a stack folder: size, bands, transform, CRS, cell size, nodata;
+    /// for a stack, also its per-band statistics from stack.json.
     Info(info::Args),
     /// List every feature: the word to ask for it, units, method, formula, reference.
     Features(features::Args),

@@ -34,7 +34,7 @@ use crate::spectral::{self, BandArrays, MaskOptions};
 use crate::stack::output::{self, OutputDir};
 use crate::stack::plan::{Producer, StackPlan};
 use crate::stack::plausibility::{self, RangeCount, ELEVATION_RANGE_M, REFLECTANCE_RANGE};
-use crate::stack::preview::Preview;
+use crate::stack::preview::{Preview, SheetHeading};
 use crate::stack::recipe::Recipe;
 use crate::stack::sidecar::{
     BandMetadata, GridMetadata, SoftwareMetadata, SourceMetadata, StackMetadata, StatsAccumulator,
@@ -271,7 +271,8 @@ fn run(
         software: SoftwareMetadata::default(),
     };
     let png_path = out.temp_path("preview.png");
-    preview.write_png(&png_path)?;
+    let heading = SheetHeading::flight(&options.out, options.date.as_deref());
+    preview.write_png(&png_path, &plan.target, &heading, &metadata.bands)?;
     metadata.write_to(&out.temp_path("stack.json"))?;
     let dir = out.dir().to_path_buf();
     out.commit()?;
