@@ -45,7 +45,11 @@ fn walk(bytes: &[u8]) -> (bool, Vec<Dir>) {
     assert_eq!(&bytes[..2], b"II", "little-endian");
     let big = le(&bytes[2..4]) == 43;
     let (count_size, entry_size, word) = if big { (8, 20, 8) } else { (2, 12, 4) };
-    let mut at = if big { le(&bytes[8..16]) } else { le(&bytes[4..8]) };
+    let mut at = if big {
+        le(&bytes[8..16])
+    } else {
+        le(&bytes[4..8])
+    };
     let mut dirs = Vec::new();
     while at != 0 {
         let a = at as usize;
@@ -83,7 +87,8 @@ fn walk(bytes: &[u8]) -> (bool, Vec<Dir>) {
                 &field[..count * size]
             } else {
                 let off = le(field) as usize;
-                d.values.push((tag, off as u64, (off + count * size) as u64));
+                d.values
+                    .push((tag, off as u64, (off + count * size) as u64));
                 &bytes[off..off + count * size]
             };
             let ints: Vec<u64> = data.chunks_exact(size).map(le).collect();
@@ -142,7 +147,10 @@ fn assert_cog(path: &Path) -> Vec<Dir> {
     for d in &dirs {
         for (tag, start, _) in &d.values {
             if *tag == 324 || *tag == 325 {
-                assert!(*start >= last_ifd_end, "tag {tag} at {start} among the IFDs");
+                assert!(
+                    *start >= last_ifd_end,
+                    "tag {tag} at {start} among the IFDs"
+                );
             }
         }
     }
@@ -295,10 +303,8 @@ fn write_stack(path: &Path, g: &Grid, bands: &[Array2<f32>], o: WriteOptions, th
             for tr in 0..down {
                 for tc in 0..across {
                     let (c0, r0) = (tc * tw, tr * th);
-                    let view = data.slice(s![
-                        r0..(r0 + th).min(g.height),
-                        c0..(c0 + tw).min(g.width)
-                    ]);
+                    let view =
+                        data.slice(s![r0..(r0 + th).min(g.height), c0..(c0 + tw).min(g.width)]);
                     let e = w.encode_block(b + 1, tc, tr, view).unwrap();
                     w.write_encoded(e).unwrap();
                 }
@@ -413,7 +419,11 @@ fn layouts_and_determinism() {
         let path = dir.path().join(name);
         write_geotiff(&path, &g, &[a.view(), b.view()], &["a", "b"], &o).unwrap();
         let dirs = assert_cog(&path);
-        assert_eq!(dirs.len(), if name == "single.tif" { 1 } else { 4 }, "{name}");
+        assert_eq!(
+            dirs.len(),
+            if name == "single.tif" { 1 } else { 4 },
+            "{name}"
+        );
         let l1 = decode_level(&path, dirs.len() - 1);
         assert_eq!(l1.len(), 2);
         let full = decode_level(&path, 0);
