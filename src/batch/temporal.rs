@@ -27,7 +27,7 @@ use ndarray::{Array2, ArrayView2};
 
 use crate::error::{Error, Result};
 use crate::grid::{Grid, Window};
-use crate::raster::geotiff::{GeoTiffWriter, WriteOptions};
+use crate::raster::geotiff::{GeoTiffWriter, OverviewResampling, WriteOptions};
 use crate::raster::{self, RasterSource};
 use crate::stack::output::OutputDir;
 use crate::stack::preview::{Preview, RampKind, SheetHeading};
@@ -149,6 +149,21 @@ pub fn summarise(dated: &[ArrayView2<f32>], which: &[Summary]) -> Vec<Array2<f32
         }
     }
     out
+}
+
+/// How the overviews of a band of the multi-temporal stack are made: date indices keep
+/// their values (nearest), aspect and its mean, minimum and maximum are directions
+/// (circular mean), everything else (amplitude and spread of aspect included) is averaged.
+fn overview_resampling(band: &BandMetadata) -> OverviewResampling {
+    let summary = band.extra.get("summary").and_then(|s| s.as_str());
+    match summary {
+        Some(s) if s == Summary::ArgmaxDate.name() => OverviewResampling::Nearest,
+        Some(s) if s == Summary::Amplitude.name() || s == Summary::Std.name() => {
+            OverviewResampling::Average
+        }
+        _ if band.feature == "aspect" => OverviewResampling::Circular,
+        _ => OverviewResampling::Average,
+    }
 }
 
 /// One flight's finished stack, as input to the multi-temporal stack.
@@ -292,9 +307,14 @@ pub fn write_temporal(
     );
     let mut dir = OutputDir::prepare(out, force)?;
     let tif_path = dir.temp_path("stack.tif");
-    let mut writer = GeoTiffWriter::create(&tif_path, grid, bands.len(), WriteOptions::default())?;
+    // The stack's cells are NaN where no value exists: say so in the file (GDAL_NODATA).
+    let file_grid = grid.clone().with_nodata(Some(f64::NAN));
+    let mut writer =
+        GeoTiffWriter::create(&tif_path, &file_grid, bands.len(), WriteOptions::default())?;
     for b in &bands {
         writer.set_band_description(b.index, &b.name);
+        writer.set_band_units(b.index, &b.units);
+        writer.set_band_overview(b.index, overview_resampling(b));
     }
     let tile = writer.block_size().0;
     let tiles: Vec<Window> = (0..grid.height.div_ceil(tile))

@@ -596,6 +596,7 @@ pub fn dsm_write_options() -> WriteOptions {
         interleave: Interleave::Band,
         bigtiff: BigTiff::Never,
         raster_space: RasterSpace::Area,
+        overviews: false,
     }
 }
 
@@ -610,6 +611,7 @@ pub fn ortho_write_options() -> WriteOptions {
         interleave: Interleave::Pixel,
         bigtiff: BigTiff::Never,
         raster_space: RasterSpace::Area,
+        overviews: false,
     }
 }
 

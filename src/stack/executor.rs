@@ -28,7 +28,7 @@ use crate::align::{self, Resampling};
 use crate::error::{Error, Result};
 use crate::grid::{Grid, Window};
 use crate::input_guard;
-use crate::raster::geotiff::{GeoTiffWriter, WriteOptions};
+use crate::raster::geotiff::{GeoTiffWriter, OverviewResampling, WriteOptions};
 use crate::raster::SampleType;
 use crate::spectral::{self, BandArrays, MaskOptions};
 use crate::stack::output::{self, OutputDir};
@@ -186,6 +186,11 @@ fn run(
         GeoTiffWriter::create(&tif_path, &plan.target, plan.bands.len(), write_options)?;
     for (i, band) in plan.bands.iter().enumerate() {
         writer.set_band_description(i + 1, &band.name);
+        writer.set_band_units(i + 1, &band.units);
+        if band.ramp == crate::stack::preview::RampKind::Cyclic {
+            // Aspect: overviews average directions, not numbers (359° and 1° give 0°).
+            writer.set_band_overview(i + 1, OverviewResampling::Circular);
+        }
     }
     let tile = writer.block_size().0;
     let (block, concurrency) = choose_blocks(&plan, options, tile, threads, raster_bytes)?;

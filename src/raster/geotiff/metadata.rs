@@ -128,16 +128,31 @@ pub fn parse(xml: &str) -> Vec<MetadataItem> {
 
 /// A GDAL metadata document with a description item for each band that has one
 /// (`descriptions[i]` is band i + 1).
+#[cfg(test)]
 pub fn build(descriptions: &[Option<String>]) -> Option<String> {
-    if descriptions.iter().all(|d| d.is_none()) {
+    build_bands(descriptions, &[])
+}
+
+/// A GDAL metadata document with, for each band that has them, its description and its
+/// units (`descriptions[i]`, `units[i]` are band i + 1's). Units are the band's unit
+/// type, the item GDAL's GTiff driver documents as `UNITTYPE` with role `unittype` (read
+/// back by GDAL-based tools as the band's units); values are escaped as GDAL escapes them.
+pub fn build_bands(descriptions: &[Option<String>], units: &[Option<String>]) -> Option<String> {
+    if descriptions.iter().chain(units).all(|d| d.is_none()) {
         return None;
     }
     let mut xml = String::from("<GDALMetadata>\n");
-    for (i, d) in descriptions.iter().enumerate() {
-        if let Some(d) = d {
+    for i in 0..descriptions.len().max(units.len()) {
+        if let Some(Some(d)) = descriptions.get(i) {
             xml.push_str(&format!(
                 "  <Item name=\"DESCRIPTION\" sample=\"{i}\" role=\"description\">{}</Item>\n",
                 escape(&escape(d))
+            ));
+        }
+        if let Some(Some(u)) = units.get(i) {
+            xml.push_str(&format!(
+                "  <Item name=\"UNITTYPE\" sample=\"{i}\" role=\"unittype\">{}</Item>\n",
+                escape(&escape(u))
             ));
         }
     }
@@ -193,6 +208,33 @@ mod tests {
         assert_eq!(items[1].band, Some(3));
         assert_eq!(items[1].value, "x \"q\" & y");
         assert_eq!(build(&[None, None]), None);
+    }
+
+    #[test]
+    fn units_are_unittype_items() {
+        // Item layout of a band's unit type as GDAL's GTiff driver documents it
+        // (name UNITTYPE, role unittype, sample 0-based).
+        let d = vec![Some("slope".to_string()), Some("ndvi".to_string())];
+        let u = vec![Some("degrees".to_string()), None];
+        let xml = build_bands(&d, &u).unwrap();
+        assert!(
+            xml.contains("<Item name=\"UNITTYPE\" sample=\"0\" role=\"unittype\">degrees</Item>"),
+            "{xml}"
+        );
+        let items = parse(&xml);
+        assert_eq!(items.len(), 3);
+        assert_eq!(items[1].role.as_deref(), Some("unittype"));
+        assert_eq!(
+            (items[1].band, items[1].value.as_str()),
+            (Some(1), "degrees")
+        );
+        assert_eq!(
+            build_bands(&[None], &[Some("m".into())])
+                .unwrap()
+                .matches("<Item")
+                .count(),
+            1
+        );
     }
 
     #[test]

@@ -19,11 +19,13 @@ pub mod codec;
 pub mod geokeys;
 mod metadata;
 pub mod model_transform;
+pub mod overview;
 mod reader;
 pub mod tags;
 mod writer;
 
 pub use metadata::MetadataItem;
+pub use overview::OverviewResampling;
 pub use reader::GeoTiffReader;
 pub use writer::{EncodedBlock, GeoTiffWriter};
 
@@ -85,7 +87,8 @@ pub enum BigTiff {
 }
 
 /// How a file is written. `Default` is the stack's: float32, 512x512 tiles, Deflate with
-/// the floating-point predictor, band-sequential, BigTIFF when needed.
+/// the floating-point predictor, band-sequential, BigTIFF when needed, laid out as a Cloud
+/// Optimized GeoTIFF with overviews.
 #[derive(Clone, Debug, PartialEq)]
 pub struct WriteOptions {
     pub sample_type: SampleType,
@@ -98,6 +101,12 @@ pub struct WriteOptions {
     pub interleave: Interleave,
     pub bigtiff: BigTiff,
     pub raster_space: RasterSpace,
+    /// Tiled files only: add reduced-resolution images (overviews) down to one tile and lay
+    /// the file out as a Cloud Optimized GeoTIFF (OGC 21-026): every directory first, then
+    /// the overviews' tiles from the smallest level up, then the full-resolution tiles
+    /// ([`overview`]). The full-resolution image is the first directory, as without
+    /// overviews. Ignored for strips. With `false` the directory follows the data.
+    pub overviews: bool,
 }
 
 impl Default for WriteOptions {
@@ -110,6 +119,7 @@ impl Default for WriteOptions {
             interleave: Interleave::Band,
             bigtiff: BigTiff::Auto,
             raster_space: RasterSpace::Area,
+            overviews: true,
         }
     }
 }

@@ -12,6 +12,8 @@ use std::fs::File;
 pub type Problem = String;
 
 // Baseline and extension tags, TIFF 6.0 Appendix A.
+/// NewSubfileType (TIFF 6.0 §8): bit 0 set marks a reduced-resolution image (an overview).
+pub const NEW_SUBFILE_TYPE: u16 = 254;
 pub const IMAGE_WIDTH: u16 = 256;
 pub const IMAGE_LENGTH: u16 = 257;
 pub const BITS_PER_SAMPLE: u16 = 258;
@@ -245,11 +247,22 @@ fn read_bytes(file: &File, file_len: u64, offset: u64, len: u64) -> Result<Vec<u
 
 /// Read the IFD at `header.first_ifd` and every value it points to.
 pub fn read_first_ifd(file: &File, file_len: u64, header: &Header) -> Result<Ifd, Problem> {
-    let order = header.order;
     let at = header.first_ifd;
     if at == 0 {
         return Err("the file holds no image (its first directory offset is 0)".into());
     }
+    read_ifd_at(file, file_len, header, at).map(|(ifd, _)| ifd)
+}
+
+/// Read the IFD at file offset `at` and every value it points to; also returns the offset
+/// of the next IFD (0 when it is the last).
+pub fn read_ifd_at(
+    file: &File,
+    file_len: u64,
+    header: &Header,
+    at: u64,
+) -> Result<(Ifd, u64), Problem> {
+    let order = header.order;
     let (count_size, entry_size, value_size) = if header.big { (8, 20, 8) } else { (2, 12, 4) };
     let count_bytes = read_bytes(file, file_len, at, count_size)?;
     let n = if header.big {
@@ -302,7 +315,14 @@ pub fn read_first_ifd(file: &File, file_len: u64, header: &Header) -> Result<Ifd
             data,
         });
     }
-    Ok(Ifd { order, entries })
+    let next_at = at.saturating_add(count_size).saturating_add(n * entry_size);
+    let next_bytes = read_bytes(file, file_len, next_at, value_size)?;
+    let next = if header.big {
+        order.u64(&next_bytes)
+    } else {
+        order.u32(&next_bytes) as u64
+    };
+    Ok((Ifd { order, entries }, next))
 }
 
 impl Ifd {
@@ -431,8 +451,25 @@ impl OutValue {
 /// Serialise one little-endian IFD placed at file offset `at` (even), followed by the
 /// values that do not fit in their entries. Entries are sorted by tag (TIFF 6.0 §2).
 /// Returns the bytes to write at `at`.
-pub fn build_ifd(mut entries: Vec<(u16, OutValue)>, at: u64, big: bool) -> Vec<u8> {
+pub fn build_ifd(entries: Vec<(u16, OutValue)>, at: u64, big: bool) -> Vec<u8> {
+    build_ifd_split(entries, at, big, 0, &[], 0).0
+}
+
+/// Like [`build_ifd`], with the offset of the next IFD (`next`, 0 for the last) and the
+/// out-of-line values of the tags in `late` placed apart, at file offset `late_at` (even):
+/// returns the IFD with its other values, and the late values (each starting on an even
+/// offset). Cloud Optimized GeoTIFF files keep the tile offsets and byte counts of every
+/// IFD after all the IFDs (OGC 21-026, recommendation "ifd-order").
+pub fn build_ifd_split(
+    mut entries: Vec<(u16, OutValue)>,
+    at: u64,
+    big: bool,
+    next: u64,
+    late: &[u16],
+    late_at: u64,
+) -> (Vec<u8>, Vec<u8>) {
     entries.sort_by_key(|(tag, _)| *tag);
+    let mut late_bytes: Vec<u8> = Vec::new();
     let n = entries.len() as u64;
     let (count_size, entry_size, value_size, next_size) = if big {
         (8u64, 20u64, 8usize, 8u64)
@@ -460,6 +497,17 @@ pub fn build_ifd(mut entries: Vec<(u16, OutValue)>, at: u64, big: bool) -> Vec<u
             let mut field = bytes.clone();
             field.resize(value_size, 0);
             out.extend_from_slice(&field);
+        } else if late.contains(tag) {
+            if late_bytes.len() % 2 == 1 {
+                late_bytes.push(0);
+            }
+            let offset = late_at + late_bytes.len() as u64;
+            late_bytes.extend_from_slice(&bytes);
+            if big {
+                out.extend_from_slice(&offset.to_le_bytes());
+            } else {
+                out.extend_from_slice(&(offset as u32).to_le_bytes());
+            }
         } else {
             if extra.len() % 2 == 1 {
                 extra.push(0);
@@ -473,9 +521,14 @@ pub fn build_ifd(mut entries: Vec<(u16, OutValue)>, at: u64, big: bool) -> Vec<u
             }
         }
     }
-    out.extend(std::iter::repeat_n(0u8, next_size as usize));
+    if big {
+        out.extend_from_slice(&next.to_le_bytes());
+    } else {
+        out.extend_from_slice(&(next as u32).to_le_bytes());
+    }
+    debug_assert_eq!(out.len() as u64, count_size + n * entry_size + next_size);
     out.extend_from_slice(&extra);
-    out
+    (out, late_bytes)
 }
 
 #[cfg(test)]

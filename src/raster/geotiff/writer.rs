@@ -6,6 +6,20 @@
 //! the image file directory (TIFF 6.0 §2) after the data and points the header at it.
 //! Files are little-endian; BigTIFF is chosen when the file could pass 4 GiB.
 //!
+//! With overviews ([`WriteOptions::overviews`], tiled files) the file is a Cloud Optimized
+//! GeoTIFF (OGC 21-026, recommendation "ifd-order"): header; the directories of the full
+//! resolution and of each overview level, largest first, each with its tag values; the
+//! tile offsets and byte counts of all of them; the overviews' tiles from the smallest
+//! level up; the full-resolution tiles. Blocks are then appended to a spill file beside
+//! the output (`.NAME.partial-PID`, removed when the writer ends; a killed run's is removed
+//! as a stale partial, [`crate::atomic_file`]). `finish` builds each overview level from
+//! the previous one, reading its tiles back one 2 x 2 group at a time (memory stays a few
+//! tiles per thread, whatever the raster), appends them to the spill file, writes the
+//! directories into the output and copies the tiles in after them, smallest level first.
+//! Overview IFDs carry NewSubfileType 1 and the full resolution's tiling, compression,
+//! predictor, sample format and nodata; GeoKeys and band metadata are on the full
+//! resolution only, which they describe for all levels (OGC 21-026 §7 "Georeference Keys").
+//!
 //! Pixel-interleaved files hold all bands in each block, so their blocks wait in memory
 //! until every band of the block has arrived: memory is bounded by the blocks in flight.
 
@@ -21,6 +35,7 @@ use crate::grid::{CrsKind, Grid, RasterSpace};
 use crate::raster::SampleType;
 
 use super::codec::{self, ChunkShape, Codec};
+use super::overview::{self, OverviewResampling};
 use super::tags::{self, OutValue};
 use super::{
     geokeys, metadata, BigTiff, Compression, Interleave, Layout, TiffSample, WriteOptions,
@@ -39,6 +54,7 @@ struct PendingBlock {
     bands_done: Vec<bool>,
 }
 
+#[derive(Default)]
 struct State {
     end: u64,
     offsets: Vec<u64>,
@@ -63,6 +79,11 @@ pub(super) struct Plan {
     pub down: usize,
     pub planar: bool,
     pub big: bool,
+    /// Sizes (width, height) of the overview levels, largest first; empty without them.
+    pub levels: Vec<(usize, usize)>,
+    /// Cloud Optimized layout (directories first); set when overviews are asked for on a
+    /// tiled file, even one that fits a single tile and has no overview level.
+    pub cog: bool,
 }
 
 impl Plan {
@@ -143,7 +164,24 @@ impl Plan {
             * (down * block_h) as u64
             * bands as u64
             * o.sample_type.size() as u64;
-        let worst = raw.max(padded) + padded / 64 + DIRECTORY_MARGIN;
+        let cog = o.overviews && tiled;
+        let levels = if cog {
+            overview::level_sizes(grid.width, grid.height, block_w)
+        } else {
+            Vec::new()
+        };
+        // Overview tiles add at most a third of the padded full resolution (¼ + ¹⁄₁₆ + …).
+        let overview_padded: u64 = levels
+            .iter()
+            .map(|(w, h)| {
+                (w.div_ceil(block_w) * block_w) as u64
+                    * (h.div_ceil(block_h) * block_h) as u64
+                    * bands as u64
+                    * o.sample_type.size() as u64
+            })
+            .sum();
+        let worst =
+            raw.max(padded) + overview_padded + (padded + overview_padded) / 64 + DIRECTORY_MARGIN;
         let big = match o.bigtiff {
             BigTiff::Always => true,
             BigTiff::Never => false,
@@ -169,7 +207,39 @@ impl Plan {
             down,
             planar,
             big,
+            levels,
+            cog,
         })
+    }
+
+    /// Tiles across and down overview level `k` (0 = full resolution).
+    fn level_grid(&self, k: usize) -> (usize, usize) {
+        if k == 0 {
+            (self.across, self.down)
+        } else {
+            let (w, h) = self.levels[k - 1];
+            (w.div_ceil(self.block_w), h.div_ceil(self.block_h))
+        }
+    }
+
+    /// Size (width, height) of level `k` (0 = full resolution).
+    fn level_size(&self, k: usize) -> (usize, usize) {
+        if k == 0 {
+            (self.width, self.height)
+        } else {
+            self.levels[k - 1]
+        }
+    }
+
+    /// Blocks of level `k` (all planes).
+    fn level_blocks(&self, k: usize) -> usize {
+        let (a, d) = self.level_grid(k);
+        a * d * if self.planar { self.bands } else { 1 }
+    }
+
+    /// Blocks of every level, the full resolution included.
+    fn all_blocks(&self) -> usize {
+        (0..=self.levels.len()).map(|k| self.level_blocks(k)).sum()
     }
 
     /// Blocks per band plane.
@@ -232,18 +302,37 @@ pub struct EncodedBlock {
 /// the grid's nodata value (0 when the grid has none).
 pub struct GeoTiffWriter {
     path: PathBuf,
+    /// Where blocks are appended: the output, or the spill file in the Cloud Optimized
+    /// layout.
     file: File,
+    /// The output, in the Cloud Optimized layout (filled by `finish`).
+    output: Option<File>,
+    /// The spill file, removed when the writer ends (held for its `Drop`).
+    _spill: Option<SpillFile>,
     grid: Grid,
     plan: Plan,
     space: RasterSpace,
     descriptions: Vec<Option<String>>,
+    units: Vec<Option<String>>,
+    resampling: Vec<OverviewResampling>,
     state: Mutex<State>,
+}
+
+/// A temporary file removed when dropped.
+struct SpillFile {
+    path: PathBuf,
+}
+
+impl Drop for SpillFile {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_file(&self.path);
+    }
 }
 
 impl GeoTiffWriter {
     /// Peak bytes of the tile index of a file [`create`](GeoTiffWriter::create) would
-    /// make with these arguments ([`INDEX_BYTES_PER_BLOCK`] per block): memory that grows
-    /// with the raster, for callers that keep a budget. Fails as `create` does on
+    /// make with these arguments ([`INDEX_BYTES_PER_BLOCK`] per block, overview levels
+    /// included): memory that grows with the raster, for callers that keep a budget. Fails as `create` does on
     /// impossible options.
     pub fn index_bytes(
         path: &Path,
@@ -252,7 +341,7 @@ impl GeoTiffWriter {
         options: &WriteOptions,
     ) -> Result<u64> {
         let plan = Plan::new(path, grid, bands, options)?;
-        Ok((plan.block_count() as u64).saturating_mul(INDEX_BYTES_PER_BLOCK))
+        Ok((plan.all_blocks() as u64).saturating_mul(INDEX_BYTES_PER_BLOCK))
     }
 
     /// Create `path` (exactly that path: callers do temporary naming) for `bands` bands on
@@ -282,29 +371,44 @@ impl GeoTiffWriter {
         let offsets = zeroed::<u64>(n).ok_or_else(index_error)?;
         let counts = zeroed::<u64>(n).ok_or_else(index_error)?;
         let written = zeroed::<bool>(n).ok_or_else(index_error)?;
-        let file = OpenOptions::new()
-            .read(true)
-            .write(true)
-            .create(true)
-            .truncate(true)
-            .open(path)
-            .map_err(|e| Error::io(path, e))?;
-        let header: Vec<u8> = if plan.big {
-            let mut h = b"II+\0\x08\0\0\0".to_vec();
-            h.extend_from_slice(&0u64.to_le_bytes());
-            h
-        } else {
-            b"II*\0\0\0\0\0".to_vec()
+        let open = |p: &Path| {
+            OpenOptions::new()
+                .read(true)
+                .write(true)
+                .create(true)
+                .truncate(true)
+                .open(p)
+                .map_err(|e| Error::io(path, e))
         };
-        tags::write_all_at(&file, &header, 0).map_err(|e| Error::io(path, e))?;
+        let first = open(path)?;
+        let (file, output, spill, end) = if plan.cog {
+            let spill_path = crate::atomic_file::temp_path_for(path)?;
+            let spill_file = open(&spill_path)?;
+            let guard = SpillFile { path: spill_path };
+            (spill_file, Some(first), Some(guard), 0)
+        } else {
+            let header: Vec<u8> = if plan.big {
+                let mut h = b"II+\0\x08\0\0\0".to_vec();
+                h.extend_from_slice(&0u64.to_le_bytes());
+                h
+            } else {
+                b"II*\0\0\0\0\0".to_vec()
+            };
+            tags::write_all_at(&first, &header, 0).map_err(|e| Error::io(path, e))?;
+            (first, None, None, header.len() as u64)
+        };
         Ok(GeoTiffWriter {
             path: path.to_path_buf(),
             file,
+            output,
+            _spill: spill,
             grid: grid.clone(),
             space: options.raster_space,
             descriptions: vec![None; bands],
+            units: vec![None; bands],
+            resampling: vec![OverviewResampling::Average; bands],
             state: Mutex::new(State {
-                end: header.len() as u64,
+                end,
                 offsets,
                 counts,
                 written,
@@ -321,6 +425,29 @@ impl GeoTiffWriter {
         if band >= 1 && band <= self.plan.bands {
             self.descriptions[band - 1] = Some(text.to_string());
         }
+    }
+
+    /// Set band `band`'s (1-based) units, stored where GDAL-based tools read them (the
+    /// band's unit type). Band numbers outside the file's bands are ignored.
+    pub fn set_band_units(&mut self, band: usize, units: &str) {
+        if band >= 1 && band <= self.plan.bands && !units.is_empty() {
+            self.units[band - 1] = Some(units.to_string());
+        }
+    }
+
+    /// Set how band `band`'s (1-based) overviews are made (average unless set). Band
+    /// numbers outside the file's bands are ignored. In a pixel-interleaved file each
+    /// band of a tile is reduced with its own rule.
+    pub fn set_band_overview(&mut self, band: usize, resampling: OverviewResampling) {
+        if band >= 1 && band <= self.plan.bands {
+            self.resampling[band - 1] = resampling;
+        }
+    }
+
+    /// Sizes (width, height) of the overview levels the file will hold, largest first
+    /// (empty without overviews).
+    pub fn overview_sizes(&self) -> &[(usize, usize)] {
+        &self.plan.levels
     }
 
     /// Block size (width, height) in cells: the tile, or (width, rows_per_strip).
@@ -553,12 +680,11 @@ impl GeoTiffWriter {
         })
     }
 
-    /// Write the directory and close the file. Fails when a block was never written.
+    /// Write the directory and close the file. Fails when a block was never written. With
+    /// overviews, first builds every overview level and lays the file out as a Cloud
+    /// Optimized GeoTIFF (see the module documentation).
     pub fn finish(self) -> Result<()> {
-        let st = self
-            .state
-            .into_inner()
-            .map_err(|_| Error::file(&self.path, "a block write failed in another thread"))?;
+        let st = std::mem::take(&mut *self.lock()?);
         if let Some(f) = st.failure {
             return Err(Error::file(
                 &self.path,
@@ -580,9 +706,47 @@ impl GeoTiffWriter {
             .in_file(&self.path)
             .with_fix("write every block of every band before finishing the file"));
         }
+        if p.cog {
+            return self.finish_cog(st);
+        }
+        let mut entries = self.image_entries(0);
+        let (offsets, counts) = (self.index_value(&st.offsets), self.index_value(&st.counts));
+        if p.tiled {
+            entries.push((tags::TILE_OFFSETS, offsets));
+            entries.push((tags::TILE_BYTE_COUNTS, counts));
+        } else {
+            entries.push((tags::STRIP_OFFSETS, offsets));
+            entries.push((tags::STRIP_BYTE_COUNTS, counts));
+        }
+        entries.extend(self.band_entries());
+        let at = st.end + st.end % 2; // IFDs start on a word boundary (TIFF 6.0 §2)
+        let ifd = tags::build_ifd(entries, at, p.big);
+        if !p.big && at + ifd.len() as u64 > u32::MAX as u64 {
+            return Err(Error::file(
+                &self.path,
+                "the file would pass 4 GiB, the limit of classic TIFF",
+            )
+            .with_fix("write it as BigTIFF (BigTiff::Always or Auto)"));
+        }
+        let io = |e| Error::io(&self.path, e);
+        tags::write_all_at(&self.file, &ifd, at).map_err(io)?;
+        if p.big {
+            tags::write_all_at(&self.file, &at.to_le_bytes(), 8).map_err(io)?;
+        } else {
+            tags::write_all_at(&self.file, &(at as u32).to_le_bytes(), 4).map_err(io)?;
+        }
+        self.file.set_len(at + ifd.len() as u64).map_err(io)?;
+        Ok(())
+    }
+
+    /// The tags describing the image of level `k` (0 = full resolution): size, samples,
+    /// compression, predictor and tiling (or strips). No offsets, no georeferencing.
+    fn image_entries(&self, k: usize) -> Vec<(u16, OutValue)> {
+        let p = &self.plan;
+        let (width, height) = p.level_size(k);
         let mut entries: Vec<(u16, OutValue)> = vec![
-            (tags::IMAGE_WIDTH, OutValue::Long(vec![p.width as u32])),
-            (tags::IMAGE_LENGTH, OutValue::Long(vec![p.height as u32])),
+            (tags::IMAGE_WIDTH, OutValue::Long(vec![width as u32])),
+            (tags::IMAGE_LENGTH, OutValue::Long(vec![height as u32])),
             (
                 tags::BITS_PER_SAMPLE,
                 OutValue::Short(vec![(p.sample_type.size() * 8) as u16; p.bands]),
@@ -616,52 +780,300 @@ impl GeoTiffWriter {
         if p.predictor != 1 {
             entries.push((tags::PREDICTOR, OutValue::Short(vec![p.predictor])));
         }
-        let offsets = if p.big {
-            OutValue::Long8(st.offsets.clone())
-        } else {
-            OutValue::Long(st.offsets.iter().map(|o| *o as u32).collect())
-        };
-        let counts = if p.big {
-            OutValue::Long8(st.counts.clone())
-        } else {
-            OutValue::Long(st.counts.iter().map(|c| *c as u32).collect())
-        };
         if p.tiled {
             entries.push((tags::TILE_WIDTH, OutValue::Long(vec![p.block_w as u32])));
             entries.push((tags::TILE_LENGTH, OutValue::Long(vec![p.block_h as u32])));
-            entries.push((tags::TILE_OFFSETS, offsets));
-            entries.push((tags::TILE_BYTE_COUNTS, counts));
         } else {
             entries.push((tags::ROWS_PER_STRIP, OutValue::Long(vec![p.block_h as u32])));
-            entries.push((tags::STRIP_OFFSETS, offsets));
-            entries.push((tags::STRIP_BYTE_COUNTS, counts));
         }
-        entries.extend(georeferencing_tags(&self.grid, self.space));
-        if let Some(xml) = metadata::build(&self.descriptions) {
+        if p.cog {
+            // Bit 0: reduced-resolution image (TIFF 6.0 §8).
+            let kind = u32::from(k > 0);
+            entries.push((tags::NEW_SUBFILE_TYPE, OutValue::Long(vec![kind])));
+        }
+        entries
+    }
+
+    /// Georeferencing, band descriptions and units, and nodata: the full resolution's.
+    fn band_entries(&self) -> Vec<(u16, OutValue)> {
+        let mut entries = georeferencing_tags(&self.grid, self.space);
+        if let Some(xml) = metadata::build_bands(&self.descriptions, &self.units) {
             entries.push((tags::GDAL_METADATA, OutValue::Ascii(xml)));
         }
-        if let Some(nd) = self.grid.nodata {
-            entries.push((tags::GDAL_NODATA, OutValue::Ascii(nodata_text(nd))));
+        entries.extend(self.nodata_entry());
+        entries
+    }
+
+    fn nodata_entry(&self) -> Option<(u16, OutValue)> {
+        self.grid
+            .nodata
+            .map(|nd| (tags::GDAL_NODATA, OutValue::Ascii(nodata_text(nd))))
+    }
+
+    /// Offsets or byte counts as a tag value: LONG in classic TIFF, LONG8 in BigTIFF.
+    fn index_value(&self, v: &[u64]) -> OutValue {
+        if self.plan.big {
+            OutValue::Long8(v.to_vec())
+        } else {
+            OutValue::Long(v.iter().map(|o| *o as u32).collect())
         }
-        let at = st.end + st.end % 2; // IFDs start on a word boundary (TIFF 6.0 §2)
-        let ifd = tags::build_ifd(entries, at, p.big);
-        if !p.big && at + ifd.len() as u64 > u32::MAX as u64 {
+    }
+
+    /// Build the overview levels into the spill file, then write the output: header,
+    /// directories, tile offsets and byte counts, overview tiles smallest level first,
+    /// full-resolution tiles.
+    fn finish_cog(&self, st: State) -> Result<()> {
+        let p = &self.plan;
+        let io = |e| Error::io(&self.path, e);
+        let n = p.levels.len();
+        let mut spans = vec![LevelTiles {
+            start: 0,
+            end: st.end,
+            offsets: st.offsets,
+            counts: st.counts,
+        }];
+        let mut end = st.end;
+        let wave = rayon::current_num_threads().max(1) * 2;
+        for k in 1..=n {
+            let blocks = p.level_blocks(k);
+            let alloc_error = || {
+                Error::file(
+                    &self.path,
+                    format!("the tile index of overview level {k} ({blocks} tiles) could not be allocated"),
+                )
+                .with_fix("write a smaller raster, fewer bands or larger tiles")
+            };
+            let mut offsets = zeroed::<u64>(blocks).ok_or_else(alloc_error)?;
+            let mut counts = zeroed::<u64>(blocks).ok_or_else(alloc_error)?;
+            let start = end;
+            let prev = &spans[k - 1];
+            // Tiles are made in parallel, a wave at a time, and appended in tile order: the
+            // bytes do not depend on the threads.
+            for first in (0..blocks).step_by(wave) {
+                use rayon::prelude::*;
+                let last = (first + wave).min(blocks);
+                let packed: Vec<Result<Vec<u8>>> = (first..last)
+                    .into_par_iter()
+                    .map(|i| match p.sample_type {
+                        SampleType::U8 => self.overview_tile::<u8>(k, i, prev),
+                        SampleType::U16 => self.overview_tile::<u16>(k, i, prev),
+                        SampleType::I16 => self.overview_tile::<i16>(k, i, prev),
+                        SampleType::U32 => self.overview_tile::<u32>(k, i, prev),
+                        SampleType::I32 => self.overview_tile::<i32>(k, i, prev),
+                        SampleType::F32 => self.overview_tile::<f32>(k, i, prev),
+                        SampleType::F64 => self.overview_tile::<f64>(k, i, prev),
+                    })
+                    .collect();
+                for (i, bytes) in (first..last).zip(packed) {
+                    let bytes = bytes?;
+                    tags::write_all_at(&self.file, &bytes, end).map_err(io)?;
+                    offsets[i] = end;
+                    counts[i] = bytes.len() as u64;
+                    end += bytes.len() as u64;
+                }
+            }
+            spans.push(LevelTiles {
+                start,
+                end,
+                offsets,
+                counts,
+            });
+        }
+
+        // Where everything goes: header, IFDs (each with its values), the late tile
+        // offsets and byte counts, then the tiles.
+        let late = [tags::TILE_OFFSETS, tags::TILE_BYTE_COUNTS];
+        let entries = |k: usize, offsets: &[u64], counts: &[u64]| {
+            let mut e = self.image_entries(k);
+            e.push((tags::TILE_OFFSETS, self.index_value(offsets)));
+            e.push((tags::TILE_BYTE_COUNTS, self.index_value(counts)));
+            if k == 0 {
+                e.extend(self.band_entries());
+            } else {
+                e.extend(self.nodata_entry());
+            }
+            e
+        };
+        let even = |x: u64| x + x % 2;
+        let mut pos: u64 = if p.big { 16 } else { 8 };
+        let mut ifd_at = Vec::with_capacity(n + 1);
+        let mut late_len = Vec::with_capacity(n + 1);
+        for (k, span) in spans.iter().enumerate() {
+            let (ifd, values) = tags::build_ifd_split(
+                entries(k, &span.offsets, &span.counts),
+                0,
+                p.big,
+                0,
+                &late,
+                0,
+            );
+            ifd_at.push(pos);
+            pos = even(pos + ifd.len() as u64);
+            late_len.push(values.len() as u64);
+        }
+        let mut late_at = Vec::with_capacity(n + 1);
+        for len in &late_len {
+            late_at.push(pos);
+            pos = even(pos + len);
+        }
+        let mut data_at = vec![0u64; n + 1];
+        for k in (0..=n).rev() {
+            data_at[k] = pos;
+            pos += spans[k].end - spans[k].start;
+        }
+        let total = pos;
+        if !p.big && total > u32::MAX as u64 {
             return Err(Error::file(
                 &self.path,
                 "the file would pass 4 GiB, the limit of classic TIFF",
             )
             .with_fix("write it as BigTIFF (BigTiff::Always or Auto)"));
         }
-        let io = |e| Error::io(&self.path, e);
-        tags::write_all_at(&self.file, &ifd, at).map_err(io)?;
-        if p.big {
-            tags::write_all_at(&self.file, &at.to_le_bytes(), 8).map_err(io)?;
+        let out = self
+            .output
+            .as_ref()
+            .expect("the Cloud Optimized layout has an output file");
+        out.set_len(total).map_err(io)?;
+        let mut header: Vec<u8> = if p.big {
+            b"II+\0\x08\0\0\0".to_vec()
         } else {
-            tags::write_all_at(&self.file, &(at as u32).to_le_bytes(), 4).map_err(io)?;
+            b"II*\0".to_vec()
+        };
+        if p.big {
+            header.extend_from_slice(&ifd_at[0].to_le_bytes());
+        } else {
+            header.extend_from_slice(&(ifd_at[0] as u32).to_le_bytes());
         }
-        self.file.set_len(at + ifd.len() as u64).map_err(io)?;
+        tags::write_all_at(out, &header, 0).map_err(io)?;
+        for (k, span) in spans.iter().enumerate() {
+            let moved: Vec<u64> = span
+                .offsets
+                .iter()
+                .map(|o| data_at[k] + (o - span.start))
+                .collect();
+            let next = ifd_at.get(k + 1).copied().unwrap_or(0);
+            let (ifd, values) = tags::build_ifd_split(
+                entries(k, &moved, &span.counts),
+                ifd_at[k],
+                p.big,
+                next,
+                &late,
+                late_at[k],
+            );
+            tags::write_all_at(out, &ifd, ifd_at[k]).map_err(io)?;
+            tags::write_all_at(out, &values, late_at[k]).map_err(io)?;
+        }
+        for (k, span) in spans.iter().enumerate().rev() {
+            copy_range(
+                &self.file,
+                span.start,
+                span.end - span.start,
+                out,
+                data_at[k],
+            )
+            .map_err(io)?;
+        }
         Ok(())
     }
+
+    /// Tile `index` of overview level `k` (1-based), predicted and compressed: each cell
+    /// reduces the 2 x 2 cells of level k − 1 it covers (read back from the spill file)
+    /// with its band's [`OverviewResampling`]; nodata and cells past the edge are left out.
+    fn overview_tile<T: TiffSample>(
+        &self,
+        k: usize,
+        index: usize,
+        prev: &LevelTiles,
+    ) -> Result<Vec<u8>> {
+        let p = &self.plan;
+        let t = p.block_w;
+        let (across, down) = p.level_grid(k);
+        let per_plane = across * down;
+        let plane = index / per_plane;
+        let (tc, tr) = (index % per_plane % across, index % per_plane / across);
+        let (pa, pd) = p.level_grid(k - 1);
+        let (pw, ph) = p.level_size(k - 1);
+        let (w, h) = p.level_size(k);
+        let spp = p.samples_per_block_pixel();
+        let ss = T::TYPE.size();
+        const QUAD: [(usize, usize); 4] = [(0, 0), (1, 0), (0, 1), (1, 1)];
+        let mut children: [Option<Vec<u8>>; 4] = Default::default();
+        for (j, (dx, dy)) in QUAD.iter().enumerate() {
+            let (cc, cr) = (2 * tc + dx, 2 * tr + dy);
+            if cc >= pa || cr >= pd {
+                continue;
+            }
+            let ci = plane * pa * pd + cr * pa + cc;
+            let mut raw = vec![0u8; prev.counts[ci] as usize];
+            tags::read_exact_at(&self.file, &mut raw, prev.offsets[ci])
+                .map_err(|e| Error::io(&self.path, e))?;
+            let shape = p.shape(0);
+            let mut data = codec::decompress(p.codec, raw, shape.bytes())
+                .map_err(|e| Error::file(&self.path, format!("reading back a tile: {e}")))?;
+            codec::decode_samples(&mut data, shape, tags::ByteOrder::Little, p.predictor);
+            children[j] = Some(data);
+        }
+        let nodata = self.grid.nodata.and_then(T::nodata_match);
+        let fill = T::from_f64_saturating(self.grid.nodata.unwrap_or(0.0));
+        let mut out = T::fill_le(fill, t * t * spp);
+        let (vw, vh) = (t.min(w - tc * t), t.min(h - tr * t));
+        let mut vals = [f64::NAN; 4];
+        for r in 0..vh {
+            for c in 0..vw {
+                for s in 0..spp {
+                    let band = if p.planar { plane } else { s };
+                    for (j, (dx, dy)) in QUAD.iter().enumerate() {
+                        let (sr, sc) = (2 * (tr * t + r) + dy, 2 * (tc * t + c) + dx);
+                        vals[j] = f64::NAN;
+                        if sr >= ph || sc >= pw {
+                            continue;
+                        }
+                        let child = (sc / t - 2 * tc) + 2 * (sr / t - 2 * tr);
+                        if let Some(d) = &children[child] {
+                            let i = (((sr % t) * t + sc % t) * spp + s) * ss;
+                            let v = T::from_ne(&d[i..i + ss]).to_f64();
+                            if nodata != Some(v) {
+                                vals[j] = v;
+                            }
+                        }
+                    }
+                    let v = overview::reduce(self.resampling[band], &vals);
+                    if !v.is_nan() {
+                        let i = ((r * t + c) * spp + s) * ss;
+                        T::from_f64_saturating(v).put_le(&mut out[i..i + ss]);
+                    }
+                }
+            }
+        }
+        self.pack(0, out)
+    }
+}
+
+/// Where one level's tiles lie in the spill file: the byte range of the level, and each
+/// tile's offset and byte count.
+struct LevelTiles {
+    start: u64,
+    end: u64,
+    offsets: Vec<u64>,
+    counts: Vec<u64>,
+}
+
+/// Copy `len` bytes at `from` in `src` to `to` in `dst` (in the kernel where the system
+/// can: `std::io::copy` between files).
+fn copy_range(src: &File, from: u64, len: u64, dst: &File, to: u64) -> std::io::Result<()> {
+    use std::io::{Read, Seek, SeekFrom};
+    let mut s = src;
+    s.seek(SeekFrom::Start(from))?;
+    let mut d = dst;
+    d.seek(SeekFrom::Start(to))?;
+    let copied = std::io::copy(&mut s.take(len), &mut d)?;
+    if copied != len {
+        return Err(std::io::Error::new(
+            std::io::ErrorKind::UnexpectedEof,
+            format!("the spill file ended after {copied} of {len} bytes"),
+        ));
+    }
+    Ok(())
 }
 
 /// `n` default values, or `None` when the allocation fails (instead of aborting).
@@ -819,9 +1231,18 @@ mod tests {
         .unwrap();
         let o = WriteOptions::default(); // 512² tiles, band-sequential
         let path = Path::new("never-created.tif");
-        // (2²² / 512)² = 8192² tiles per band, 49 bytes each: 3.3 GB for one band.
+        // (2²² / 512)² = 8192² tiles per band, 49 bytes each: 3.3 GB for one band; the 13
+        // overview levels add 4096² + 2048² + … + 1 tiles: (4¹⁴ − 1)/3 tiles in all.
         let one = GeoTiffWriter::index_bytes(path, &g, 1, &o).unwrap();
-        assert_eq!(one, 8192 * 8192 * INDEX_BYTES_PER_BLOCK);
+        assert_eq!(one, (4u64.pow(14) - 1) / 3 * INDEX_BYTES_PER_BLOCK);
+        let flat = WriteOptions {
+            overviews: false,
+            ..WriteOptions::default()
+        };
+        assert_eq!(
+            GeoTiffWriter::index_bytes(path, &g, 1, &flat).unwrap(),
+            8192 * 8192 * INDEX_BYTES_PER_BLOCK
+        );
         assert_eq!(
             GeoTiffWriter::index_bytes(path, &g, 33, &o).unwrap(),
             33 * one
@@ -834,10 +1255,10 @@ mod tests {
             Crs::from_epsg(32633),
         )
         .unwrap();
-        // 2 x 2 tiles.
+        // 2 x 2 tiles, and one overview tile (500 x 300).
         assert_eq!(
             GeoTiffWriter::index_bytes(path, &small, 1, &o).unwrap(),
-            4 * INDEX_BYTES_PER_BLOCK
+            5 * INDEX_BYTES_PER_BLOCK
         );
     }
 

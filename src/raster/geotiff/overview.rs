@@ -1,0 +1,205 @@
+//! Reduced-resolution images (overviews) of a tiled GeoTIFF: their sizes and how four
+//! cells become one.
+//!
+//! Levels follow the Cloud Optimized GeoTIFF standard (OGC 21-026, requirement
+//! "optimized_geotiff/number" and recommendation "size-and-numbers"): level k has cells
+//! 2^k times the full resolution's, each level halves the previous one (rounding up, so
+//! the last row and column of cells may cover less ground), and the last level is the first
+//! that fits in one tile (TilesAcross = TilesDown = 1). A raster that fits in one tile has
+//! no overview.
+//!
+//! Each cell of level k + 1 is made from the 2 x 2 cells of level k it covers; cells past
+//! the raster's edge and nodata cells do not take part, and a cell with none left is
+//! nodata. How the values are combined is chosen per band ([`OverviewResampling`]).
+
+/// How the 2 x 2 cells of one level become a cell of the next.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum OverviewResampling {
+    /// The arithmetic mean of the valid cells.
+    Average,
+    /// Angles in degrees clockwise from north (aspect): the mean direction of the valid
+    /// cells, atan2(Σ sin θ, Σ cos θ) mapped to [0, 360) (Fisher 1993, "Statistical
+    /// Analysis of Circular Data", §2.3.1, from memory). Where the directions cancel
+    /// (mean resultant length below 1e-9), the cell is nodata: it has no mean direction.
+    Circular,
+    /// The first valid cell in reading order (upper left, upper right, lower left, lower
+    /// right): values are kept as they are, for classes and date indices.
+    Nearest,
+}
+
+impl OverviewResampling {
+    /// A short name, for documents and messages.
+    pub fn name(self) -> &'static str {
+        match self {
+            OverviewResampling::Average => "average",
+            OverviewResampling::Circular => "circular mean",
+            OverviewResampling::Nearest => "nearest",
+        }
+    }
+}
+
+/// Sizes (width, height) of the overview levels of a `width` x `height` raster in
+/// `tile` x `tile` tiles, largest first (level 1 first); empty when the raster fits one tile.
+pub fn level_sizes(width: usize, height: usize, tile: usize) -> Vec<(usize, usize)> {
+    let mut out = Vec::new();
+    let (mut w, mut h) = (width, height);
+    while (w > tile || h > tile) && tile > 0 {
+        w = w.div_ceil(2);
+        h = h.div_ceil(2);
+        out.push((w, h));
+    }
+    out
+}
+
+/// Combine up to four values (NaN = not valid) into one.
+pub fn reduce(kind: OverviewResampling, v: &[f64]) -> f64 {
+    match kind {
+        OverviewResampling::Average => {
+            let (mut sum, mut n) = (0.0, 0u32);
+            for x in v.iter().filter(|x| !x.is_nan()) {
+                sum += x;
+                n += 1;
+            }
+            if n == 0 {
+                f64::NAN
+            } else {
+                sum / n as f64
+            }
+        }
+        OverviewResampling::Nearest => v.iter().copied().find(|x| !x.is_nan()).unwrap_or(f64::NAN),
+        OverviewResampling::Circular => {
+            let (mut s, mut c, mut n) = (0.0, 0.0, 0u32);
+            for x in v.iter().filter(|x| x.is_finite()) {
+                let (sin, cos) = sin_cos_degrees(*x);
+                s += sin;
+                c += cos;
+                n += 1;
+            }
+            if n == 0 || (s * s + c * c).sqrt() < 1e-9 * n as f64 {
+                return f64::NAN;
+            }
+            let mut deg = crate::terrain::arctan::atan2(s, c).to_degrees();
+            if deg < 0.0 {
+                deg += 360.0;
+            }
+            // 360 and a hair rounds to 360 in float32; it is the direction 0.
+            if deg as f32 >= 360.0 {
+                deg = 0.0;
+            }
+            deg
+        }
+    }
+}
+
+/// (sin, cos) of an angle in degrees, the same on every machine (plain IEEE arithmetic,
+/// no libm): the angle is reduced exactly to [0°, 45°] by quadrant and symmetry
+/// (`%` and `90 − x` are exact in floating point), then the Taylor series of sin and cos
+/// to degree 17 and 16 (truncation below 1e-18 on [0, π/4]).
+pub fn sin_cos_degrees(deg: f64) -> (f64, f64) {
+    let mut d = deg % 360.0;
+    if d < 0.0 {
+        d += 360.0;
+    }
+    let quadrant = (d / 90.0).floor() as u32 % 4;
+    let r = d - 90.0 * quadrant as f64; // [0, 90)
+    let (s, c) = if r > 45.0 {
+        let (s, c) = sin_cos_small((90.0 - r).to_radians());
+        (c, s)
+    } else {
+        sin_cos_small(r.to_radians())
+    };
+    match quadrant {
+        0 => (s, c),
+        1 => (c, -s),
+        2 => (-s, -c),
+        _ => (-c, s),
+    }
+}
+
+/// (sin, cos) of `t` in [0, π/4] by the Taylor series, evaluated by Horner's rule.
+fn sin_cos_small(t: f64) -> (f64, f64) {
+    let t2 = t * t;
+    let mut s = 0.0;
+    let mut c = 0.0;
+    // sin t = t Σ (−t²)^k / (2k+1)!, cos t = Σ (−t²)^k / (2k)!, k = 0..=8.
+    for k in (0..=8u32).rev() {
+        let sk = (if k % 2 == 0 { 1.0 } else { -1.0 }) / factorial(2 * k + 1);
+        let ck = (if k % 2 == 0 { 1.0 } else { -1.0 }) / factorial(2 * k);
+        s = s * t2 + sk;
+        c = c * t2 + ck;
+    }
+    (s * t, c)
+}
+
+fn factorial(n: u32) -> f64 {
+    (1..=n).fold(1.0, |a, k| a * k as f64)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn levels_halve_until_one_tile() {
+        // 20000 cells in 512-cell tiles: 10000, 5000, 2500, 1250, 625, 313 (rounded up).
+        let l = level_sizes(20_000, 1_000, 512);
+        let w: Vec<usize> = l.iter().map(|s| s.0).collect();
+        assert_eq!(w, vec![10_000, 5_000, 2_500, 1_250, 625, 313]);
+        assert_eq!(l.last().unwrap().1, 16);
+        assert!(level_sizes(512, 512, 512).is_empty());
+        assert_eq!(level_sizes(513, 10, 512), vec![(257, 5)]);
+    }
+
+    #[test]
+    fn averages_skip_nodata() {
+        let nan = f64::NAN;
+        assert_eq!(
+            reduce(OverviewResampling::Average, &[1.0, 2.0, 3.0, 6.0]),
+            3.0
+        );
+        assert_eq!(
+            reduce(OverviewResampling::Average, &[1.0, nan, 3.0, nan]),
+            2.0
+        );
+        assert!(reduce(OverviewResampling::Average, &[nan, nan]).is_nan());
+        assert_eq!(reduce(OverviewResampling::Nearest, &[nan, 7.0, 3.0]), 7.0);
+    }
+
+    #[test]
+    fn circular_mean_wraps_at_north() {
+        // 359° and 1° are 2° apart across north: their mean direction is 0°, not 180°.
+        let m = reduce(OverviewResampling::Circular, &[359.0, 1.0, f64::NAN]);
+        assert!(m.min(360.0 - m) < 1e-9, "{m}");
+        // 80° and 100° (no wrap): 90°; 350, 10, 20: 6.6° (atan2 of summed unit vectors,
+        // worked by hand).
+        let m = reduce(OverviewResampling::Circular, &[80.0, 100.0]);
+        assert!((m - 90.0).abs() < 1e-9, "{m}");
+        let m = reduce(OverviewResampling::Circular, &[350.0, 10.0, 20.0]);
+        let (s, c) = (
+            (350f64.to_radians()).sin() + 10f64.to_radians().sin() + 20f64.to_radians().sin(),
+            (350f64.to_radians()).cos() + 10f64.to_radians().cos() + 20f64.to_radians().cos(),
+        );
+        assert!((m - s.atan2(c).to_degrees()).abs() < 1e-9, "{m}");
+        // Opposite directions have no mean direction.
+        assert!(reduce(OverviewResampling::Circular, &[0.0, 180.0]).is_nan());
+    }
+
+    #[test]
+    fn sin_cos_match_the_platform() {
+        // Reference: the platform's libm on the angle in radians (whose rounding to radians
+        // itself errs by up to half an ulp of the angle: 4.4e-16 at 2π, 1.8e-15 at 6π).
+        for i in -3600..=7200 {
+            let d = i as f64 * 0.1 + 0.013;
+            let (s, c) = sin_cos_degrees(d);
+            let tol = if (0.0..360.0).contains(&d) {
+                1e-15
+            } else {
+                4e-15
+            };
+            assert!((s - d.to_radians().sin()).abs() < tol, "{d}");
+            assert!((c - d.to_radians().cos()).abs() < tol, "{d}");
+        }
+        assert_eq!(sin_cos_degrees(90.0), (1.0, 0.0));
+        assert_eq!(sin_cos_degrees(0.0), (0.0, 1.0));
+    }
+}
