@@ -294,11 +294,13 @@ fn geojson_polygons_aggregate_to_the_mean_of_their_cells() {
                 .map(|r| r[5 + b].parse::<f32>().unwrap() as f64)
                 .sum::<f64>()
                 / mine.len() as f64;
-            let got: f64 = m[5 + b].parse().unwrap();
+            // Aggregated rows carry the cell count before the bands.
+            let got: f64 = m[6 + b].parse().unwrap();
             // Same cells, same f64 summation order: equal to rounding of the printout.
             assert!((got - mean).abs() <= 1e-9 * mean.abs(), "{m:?}");
         }
         assert_eq!(m[4], mine[0][4]);
+        assert_eq!(m[5], mine.len().to_string());
     }
 }
 

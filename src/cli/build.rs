@@ -86,9 +86,14 @@ pub struct Args {
     /// Compression of stack.tif.
     #[arg(long, value_name = "deflate|zstd")]
     pub compression: Option<String>,
-    /// Output folder (receives stack.tif, stack.json, preview.png).
+    /// Output folder (receives stack.tif, stack.json, preview.png and, with --date,
+    /// stack.stac.json).
     #[arg(long, value_name = "DIR")]
     pub out: PathBuf,
+    /// Flight date, recorded on every band of stack.json and as the day of the STAC Item
+    /// (stack.stac.json, written only when the date is known).
+    #[arg(long, value_name = "YYYY-MM-DD")]
+    pub date: Option<String>,
     /// Replace an existing stack in the output folder (never an input, nor a folder
     /// another run is writing).
     #[arg(long)]
@@ -152,8 +157,15 @@ pub fn run(args: Args) -> Result<()> {
         zero_is_nodata: args.zero_is_nodata,
         compression: args.compression,
     };
+    if let Some(date) = &args.date {
+        terrastack::batch::manifest::check_date(date).map_err(|problem| {
+            terrastack::Error::usage(format!("--date: {problem}"))
+                .with_fix("give the flight date as YYYY-MM-DD, e.g. --date 2026-07-08")
+        })?;
+    }
     let recipe = Recipe::resolve(recipe_file.as_ref(), &flags)?;
     let mut options = BuildOptions::new(args.out);
+    options.date = args.date;
     options.recipe_file = args.recipe;
     options.force = args.force;
     options.threads = args.threads;

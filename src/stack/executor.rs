@@ -294,8 +294,24 @@ fn run(
     let json_path = out.temp_path("stack.json");
     let text = serde_json::to_string_pretty(&metadata).expect("stack metadata serialises");
     std::fs::write(&json_path, text + "\n").map_err(|e| Error::io(&json_path, e))?;
+    let date = options.date.as_deref();
+    let no_item = super::stac::add_item(
+        &mut out,
+        &metadata,
+        &plan.target,
+        &tif_path,
+        date.zip(date),
+        true,
+    )?;
+    if let Some(w) = &no_item {
+        eprintln!("warning: {w}");
+        warnings.push(w.clone());
+    }
     let dir = out.dir().to_path_buf();
     out.commit()?;
+    if no_item.is_some() {
+        super::stac::remove_stale_item(&dir)?;
+    }
     Ok(BuildReport {
         dir,
         metadata,

@@ -1,5 +1,5 @@
 //! From a recipe to a finished stack: the resolved recipe, the block plan, the executor,
-//! the sidecar metadata and the preview.
+//! the sidecar metadata, the preview and the STAC Item.
 
 pub mod executor;
 pub mod output;
@@ -8,6 +8,7 @@ pub mod plausibility;
 pub mod preview;
 pub mod recipe;
 pub mod sidecar;
+pub mod stac;
 
 pub use executor::{build, BuildOptions, BuildReport, Progress};
 pub use recipe::{Recipe, RecipeFile, RecipeFlags};

@@ -207,9 +207,10 @@ pub enum TerrainFeature {
     LocalRelief { radius_m: f64 },
 }
 
-/// Formats a radius for band names: shortest decimal form ("5", "2.5", "0.25").
+/// Formats a radius for band names: shortest decimal form with `p` for the decimal point
+/// ("5", "2p5", "0p25"), so that band names are identifiers (table columns, formulas).
 fn radius_label(r: f64) -> String {
-    format!("{r}")
+    format!("{r}").replace('.', "p")
 }
 
 /// Window radius in cells for radius `r` metres and cell size `h` metres: ⌊r/h⌋, with a
@@ -340,8 +341,8 @@ impl TerrainFeature {
         }
     }
 
-    /// Stable band name, lower-case `[a-z0-9_.]`: "slope_horn", "tpi_r5m",
-    /// "slope_quadratic_r2.5m".
+    /// Stable band name, an identifier `[a-z0-9_]`: "slope_horn", "tpi_r5m",
+    /// "slope_quadratic_r2p5m".
     pub fn band_name(&self) -> String {
         let key = self.feature_key();
         if let Some((method, scale)) = self.derivative_spec() {
@@ -1108,11 +1109,11 @@ mod tests {
             method: SlopeMethod::Quadratic,
             scale_m: Some(2.5),
         };
-        assert_eq!(q.band_name(), "slope_quadratic_r2.5m");
+        assert_eq!(q.band_name(), "slope_quadratic_r2p5m");
         assert_eq!(q.scale_m(), Some(2.5));
         assert_eq!(
             TerrainFeature::RoughnessDetrended { radius_m: 0.5 }.band_name(),
-            "roughness_detrended_r0.5m"
+            "roughness_detrended_r0p5m"
         );
         assert_eq!(TerrainFeature::Tri.band_name(), "tri");
         for f in expand(
