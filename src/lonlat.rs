@@ -119,8 +119,14 @@ fn tau_of_conformal(tau1: f64, f: f64) -> f64 {
     tau
 }
 
+/// A map from grid coordinates to WGS84 longitude/latitude in degrees.
+type Inverse = Box<dyn Fn(f64, f64) -> (f64, f64)>;
+
+/// A grid's outline in WGS84 and its bbox (west, south, east, north).
+pub type Footprint = (Vec<(f64, f64)>, [f64; 4]);
+
 /// How a CRS is inverted to WGS84 lon/lat without GDAL, or `None` when it cannot be.
-fn inverse_without_gdal(crs: &Crs) -> Option<Box<dyn Fn(f64, f64) -> (f64, f64)>> {
+fn inverse_without_gdal(crs: &Crs) -> Option<Inverse> {
     if crs.kind == CrsKind::Unknown {
         return None;
     }
@@ -204,7 +210,7 @@ pub fn outline(grid: &Grid, per_side: usize) -> Vec<(f64, f64)> {
 /// The footprint of `grid` in WGS84: the outline densified with `per_side` segments a
 /// side, transformed point by point, and its bounding box (west, south, east, north)
 /// taken over every densified point.
-pub fn footprint(grid: &Grid, per_side: usize) -> Result<(Vec<(f64, f64)>, [f64; 4])> {
+pub fn footprint(grid: &Grid, per_side: usize) -> Result<Footprint> {
     let mut pts = outline(grid, per_side);
     to_wgs84(&grid.crs, &mut pts)?;
     let mut bbox = [

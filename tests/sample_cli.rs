@@ -483,3 +483,56 @@ fn lonlat_and_ogr_layers_are_transformed_into_the_stack_crs() {
     assert_eq!(rows.len(), 4, "{rows:?}");
     assert!(rows.iter().all(|r| r[0] == "c1"));
 }
+
+#[test]
+fn parquet_table_has_the_csv_rows_and_geoparquet_metadata() {
+    use parquet::file::reader::{FileReader, SerializedFileReader};
+    let tmp = tempfile::tempdir().unwrap();
+    let stack = make_stack(tmp.path());
+    let samples = tmp.path().join("samples.csv");
+    std::fs::write(&samples, CSV).unwrap();
+    let csv = tmp.path().join("t.csv");
+    let pq = tmp.path().join("t.parquet");
+    for out in [&csv, &pq] {
+        let o = terrastack(
+            &[
+                "sample",
+                "--stack",
+                s(&stack),
+                "--samples",
+                s(&samples),
+                "--out",
+                s(out),
+                "--folds",
+                "2",
+                "--block-size",
+                "20",
+            ],
+            "2",
+        );
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    }
+    let (header, rows) = read_table(&csv);
+    assert_eq!(&header[4..6], ["fold", "block"]);
+    // Read back by the parquet crate's reader (pyarrow and geopandas in
+    // scripts/ci/catalog.sh): one row per CSV row, geometry first, then the CSV's columns.
+    let reader = SerializedFileReader::new(std::fs::File::open(&pq).unwrap()).unwrap();
+    let meta = reader.metadata();
+    assert_eq!(meta.file_metadata().num_rows() as usize, rows.len());
+    let fields: Vec<String> = meta
+        .file_metadata()
+        .schema()
+        .get_fields()
+        .iter()
+        .map(|f| f.name().to_string())
+        .collect();
+    assert_eq!(fields[0], "geometry");
+    assert_eq!(&fields[1..], &header[..]);
+    let kv = meta.file_metadata().key_value_metadata().unwrap();
+    let geo = kv.iter().find(|k| k.key == "geo").unwrap();
+    let geo: serde_json::Value = serde_json::from_str(geo.value.as_deref().unwrap()).unwrap();
+    assert_eq!(geo["version"], "1.1.0");
+    assert_eq!(geo["primary_column"], "geometry");
+    assert_eq!(geo["columns"]["geometry"]["encoding"], "WKB");
+    assert_eq!(geo["columns"]["geometry"]["crs"]["id"]["code"], 32632);
+}
