@@ -119,21 +119,24 @@ pub fn from_epsg(code: u32) -> Option<Value> {
 /// the `gdal` feature, exported by GDAL from its WKT or EPSG code. `None` when the CRS
 /// cannot be described (the caller warns and writes "unknown").
 pub fn of(crs: &Crs) -> Option<Value> {
-    if let Some(v) = crs.epsg.and_then(from_epsg) {
-        return Some(v);
-    }
-    #[cfg(feature = "gdal")]
-    {
-        use gdal::spatial_ref::SpatialRef;
-        let srs = match (&crs.wkt, crs.epsg) {
-            (Some(wkt), _) => SpatialRef::from_wkt(wkt).ok(),
-            (None, Some(code)) => SpatialRef::from_epsg(code).ok(),
-            _ => None,
-        }?;
-        let text = srs.to_projjson().ok()?;
-        return serde_json::from_str(&text).ok();
-    }
-    #[allow(unreachable_code)]
+    crs.epsg.and_then(from_epsg).or_else(|| exported(crs))
+}
+
+/// PROJJSON of `crs` as GDAL exports it (`OSRExportToPROJJSON`), from its WKT or EPSG code.
+#[cfg(feature = "gdal")]
+fn exported(crs: &Crs) -> Option<Value> {
+    use gdal::spatial_ref::SpatialRef;
+    let srs = match (&crs.wkt, crs.epsg) {
+        (Some(wkt), _) => SpatialRef::from_wkt(wkt).ok(),
+        (None, Some(code)) => SpatialRef::from_epsg(code).ok(),
+        _ => None,
+    }?;
+    serde_json::from_str(&srs.to_projjson().ok()?).ok()
+}
+
+/// Without GDAL no other CRS is described.
+#[cfg(not(feature = "gdal"))]
+fn exported(_crs: &Crs) -> Option<Value> {
     None
 }
 

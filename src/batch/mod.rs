@@ -785,10 +785,12 @@ fn write_collection(manifest: &Manifest, root: &Path) -> Result<()> {
         .map(|f| format!("{FLIGHTS_DIR}/{}/{}", f.id, stac::ITEM_FILE))
         .collect();
     items.push(format!("{TEMPORAL_DIR}/{}", stac::ITEM_FILE));
-    let id = root
-        .canonicalize()
-        .ok()
-        .and_then(|p| p.file_name().map(|n| n.to_string_lossy().into_owned()))
+    // Named after the manifest, so that the same batch written anywhere (or resumed, or
+    // run in shards) gives the same bytes.
+    let id = manifest
+        .path
+        .file_stem()
+        .map(|n| n.to_string_lossy().into_owned())
         .unwrap_or_else(|| "batch".into());
     stac::write_collection(root, &id, &items)
 }
