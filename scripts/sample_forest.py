@@ -3,7 +3,8 @@
 
 Usage: python3 scripts/sample_forest.py TABLE.csv [--trees N] [--seed N]
 
-The table's columns are sample_id, class, x, y, fold, then one column per stack band; the
+The table's columns are sample_id, class, x, y, fold, [block], [cells], then one column per
+stack band; the
 bands are the predictors, the class is the target, and the fold column defines the
 cross-validation: each fold is held out once (scikit-learn's LeaveOneGroupOut with the
 folds as groups, i.e. the predefined folds), so cells of one sample (or of one spatial
@@ -36,9 +37,14 @@ def load(path):
     if header[:5] != FIXED or len(header) < 6:
         sys.exit(f"error: {path}: the header does not start with {','.join(FIXED)} "
                  "followed by band columns\n  fix: give a CSV written by `terrastack sample`")
-    bands = header[5:]
-    keep = [r for r in rows if all(v != "" for v in r[5:])]
-    X = np.array([[float(v) for v in r[5:]] for r in keep], dtype=np.float64).reshape(-1, len(bands))
+    # `block` (spatial block id) and `cells` (cells per aggregated row) follow `fold` when
+    # present; they describe the rows and are not predictors.
+    first = 5
+    while first < len(header) and header[first] in ("block", "cells"):
+        first += 1
+    bands = header[first:]
+    keep = [r for r in rows if all(v != "" for v in r[first:])]
+    X = np.array([[float(v) for v in r[first:]] for r in keep], dtype=np.float64).reshape(-1, len(bands))
     y = np.array([r[1] for r in keep])
     folds = np.array([int(r[4]) for r in keep])
     return bands, X, y, folds, len(rows) - len(keep)

@@ -52,14 +52,16 @@ def main(root, site_path):
     flights = {f["id"]: f for f in report["flights"]}
     stacks = {}
     for b in dated:
-        if not b["name"].endswith("_" + b["date"]):
-            fail(f"band {b['name']} does not end with its date {b['date']}")
+        # Dated band names end with the date as digits (identifiers: ndvi_20260708).
+        compact = b["date"].replace("-", "")
+        if not b["name"].endswith("_" + compact):
+            fail(f"band {b['name']} does not end with its date {compact}")
         fid = b["flight"]
         if fid not in stacks:
             with rasterio.open(root / "flights" / fid / "stack.tif") as ds:
                 stacks[fid] = (ds.read().astype(np.float32), list(ds.descriptions))
         arr, names = stacks[fid]
-        own = b["name"][: -len(b["date"]) - 1]
+        own = b["name"][: -len(compact) - 1]
         mine = arr[names.index(own)]
         got = data[b["index"] - 1]
         if not np.array_equal(mine.view(np.uint32), got.view(np.uint32)):
@@ -72,7 +74,7 @@ def main(root, site_path):
             continue
         name = b["summarises"]
         series = sorted(
-            (x for x in dated if x["name"] == f"{name}_{x['date']}"), key=lambda x: x["date"]
+            (x for x in dated if x["name"] == f"{name}_{x['date'].replace('-', '')}"), key=lambda x: x["date"]
         )
         if [x["date"] for x in series] != b["dates"]:
             fail(f"{b['name']}: dates {b['dates']} differ from the dated bands")

@@ -9,6 +9,8 @@
 //! - [`output_lock`]: exclusive locks on output folders and files.
 //! - [`input_guard`]: outputs never overwrite inputs (canonical path and file identity).
 //! - [`grid`]: size, transform, CRS, nodata; cell sizes in metres; windows.
+//! - [`lonlat`]: WGS84 longitude/latitude of grid coordinates (catalogue footprints).
+//! - [`projjson`]: PROJJSON descriptions of CRSs (GeoParquet, STAC).
 //! - [`raster`]: windowed readers and the GeoTIFF writer (pure Rust; GDAL with `gdal`).
 //! - [`terrain`]: terrain derivatives, one module per family, each citing its method.
 //! - [`spectral`]: band roles, reflectance scaling, the index catalogue, band math.
@@ -28,7 +30,9 @@ pub mod demo_site;
 pub mod error;
 pub mod grid;
 pub mod input_guard;
+pub mod lonlat;
 pub mod output_lock;
+pub mod projjson;
 pub mod random;
 pub mod raster;
 pub mod sample;

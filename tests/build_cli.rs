@@ -339,3 +339,60 @@ fn stack_metadata_matches_the_image() {
     assert!(out.join("preview.png").exists());
     assert_eq!(meta.parameters["resampling"], "bilinear");
 }
+
+#[test]
+fn dated_build_writes_a_stac_item_and_undated_replaces_none_stale() {
+    let tmp = tempdir();
+    let grid = utm_grid(120, 80, 0.5);
+    write_dsm(&tmp.path().join("dsm.tif"), &grid, &surface(&grid));
+    let out = p(tmp.path(), "out");
+    let base = [
+        "build",
+        "--dsm",
+        &p(tmp.path(), "dsm.tif"),
+        "--features",
+        "slope,tpi@2.5",
+        "--out",
+        &out,
+        "--quiet",
+        "--force",
+    ];
+    let o = run(&[&base[..], &["--date", "2026-07-08"]].concat());
+    assert!(o.status.success(), "{}", stderr(&o));
+    let item: serde_json::Value =
+        serde_json::from_str(&fs::read_to_string(tmp.path().join("out/stack.stac.json")).unwrap())
+            .unwrap();
+    let meta: serde_json::Value =
+        serde_json::from_str(&fs::read_to_string(tmp.path().join("out/stack.json")).unwrap())
+            .unwrap();
+    let names = |v: &serde_json::Value| -> Vec<String> {
+        v.as_array()
+            .unwrap()
+            .iter()
+            .map(|b| b["name"].as_str().unwrap().to_string())
+            .collect()
+    };
+    assert_eq!(
+        names(&item["assets"]["stack"]["bands"]),
+        names(&meta["bands"])
+    );
+    // Window radii are identifiers: 2.5 m is written r2p5m.
+    assert!(names(&meta["bands"]).contains(&"tpi_r2p5m".to_string()));
+    assert_eq!(item["properties"]["proj:code"], "EPSG:32633");
+    assert_eq!(item["properties"]["start_datetime"], "2026-07-08T00:00:00Z");
+    // The grid's west edge is UTM 33N's central meridian, 15° E (zone definition).
+    assert!((item["bbox"][0].as_f64().unwrap() - 15.0).abs() < 1e-9);
+    assert_eq!(
+        item["assets"]["stack"]["file:size"].as_u64().unwrap(),
+        fs::metadata(tmp.path().join("out/stack.tif"))
+            .unwrap()
+            .len()
+    );
+    // Without a date: no Item, a warning naming --date, and the old Item is gone.
+    let o = run(&base);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(stderr(&o).contains("--date"), "{}", stderr(&o));
+    assert!(!tmp.path().join("out/stack.stac.json").exists());
+    let o = run(&[&base[..], &["--date", "2026-02-30"]].concat());
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+}

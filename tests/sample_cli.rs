@@ -293,11 +293,13 @@ fn geojson_polygons_aggregate_to_the_mean_of_their_cells() {
                 .map(|r| r[5 + b].parse::<f32>().unwrap() as f64)
                 .sum::<f64>()
                 / mine.len() as f64;
-            let got: f64 = m[5 + b].parse().unwrap();
+            // Aggregated rows carry the cell count before the bands.
+            let got: f64 = m[6 + b].parse().unwrap();
             // Same cells, same f64 summation order: equal to rounding of the printout.
             assert!((got - mean).abs() <= 1e-9 * mean.abs(), "{m:?}");
         }
         assert_eq!(m[4], mine[0][4]);
+        assert_eq!(m[5], mine.len().to_string());
     }
 }
 
@@ -547,4 +549,57 @@ fn separability_report_beside_the_table_and_its_refusals() {
     let o = run(&["--force", "--correlation-threshold", "1.5"]);
     assert_eq!(o.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&o.stderr).contains("--correlation-threshold"));
+}
+
+#[test]
+fn parquet_table_has_the_csv_rows_and_geoparquet_metadata() {
+    use parquet::file::reader::{FileReader, SerializedFileReader};
+    let tmp = tempfile::tempdir().unwrap();
+    let stack = make_stack(tmp.path());
+    let samples = tmp.path().join("samples.csv");
+    std::fs::write(&samples, CSV).unwrap();
+    let csv = tmp.path().join("t.csv");
+    let pq = tmp.path().join("t.parquet");
+    for out in [&csv, &pq] {
+        let o = terrastack(
+            &[
+                "sample",
+                "--stack",
+                s(&stack),
+                "--samples",
+                s(&samples),
+                "--out",
+                s(out),
+                "--folds",
+                "2",
+                "--block-size",
+                "20",
+            ],
+            "2",
+        );
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    }
+    let (header, rows) = read_table(&csv);
+    assert_eq!(&header[4..6], ["fold", "block"]);
+    // Read back by the parquet crate's reader (pyarrow and geopandas in
+    // scripts/ci/catalog.sh): one row per CSV row, geometry first, then the CSV's columns.
+    let reader = SerializedFileReader::new(std::fs::File::open(&pq).unwrap()).unwrap();
+    let meta = reader.metadata();
+    assert_eq!(meta.file_metadata().num_rows() as usize, rows.len());
+    let fields: Vec<String> = meta
+        .file_metadata()
+        .schema()
+        .get_fields()
+        .iter()
+        .map(|f| f.name().to_string())
+        .collect();
+    assert_eq!(fields[0], "geometry");
+    assert_eq!(&fields[1..], &header[..]);
+    let kv = meta.file_metadata().key_value_metadata().unwrap();
+    let geo = kv.iter().find(|k| k.key == "geo").unwrap();
+    let geo: serde_json::Value = serde_json::from_str(geo.value.as_deref().unwrap()).unwrap();
+    assert_eq!(geo["version"], "1.1.0");
+    assert_eq!(geo["primary_column"], "geometry");
+    assert_eq!(geo["columns"]["geometry"]["encoding"], "WKB");
+    assert_eq!(geo["columns"]["geometry"]["crs"]["id"]["code"], 32632);
 }

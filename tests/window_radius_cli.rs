@@ -76,7 +76,7 @@ fn stack_json_states_the_edge_rule_of_windowed_bands() {
             .unwrap()
             .to_string()
     };
-    assert!(rule("tpi_r0.5m").contains("least-squares plane"));
-    assert!(rule("roughness_r0.5m").contains("not corrected"));
+    assert!(rule("tpi_r0p5m").contains("least-squares plane"));
+    assert!(rule("roughness_r0p5m").contains("not corrected"));
     assert!(rule("slope_horn").contains("3x3"));
 }

@@ -207,6 +207,15 @@ for s in samples:
         key = (int(np.floor((float(s["Easting"]) - x0) / 25.0)),
                int(np.floor((y0 - float(s["Northing"])) / 25.0)))
         assert by_block.setdefault(key, blocks[s["sample_id"]]) == blocks[s["sample_id"]], ("block split", key)
+# The block column: one id per block, the same for every row of a sample and of a block.
+block_rows = table("points_blocks.csv")
+ids = {}
+for r in block_rows:
+    s = next(x for x in samples if x["sample_id"] == r["sample_id"])
+    key = (int(np.floor((float(s["Easting"]) - x0) / 25.0)),
+           int(np.floor((y0 - float(s["Northing"])) / 25.0)))
+    assert ids.setdefault(key, r["block"]) == r["block"], ("block id", key, r)
+assert len(set(ids.values())) == len(ids), "distinct blocks have distinct ids"
 print(f"folds: samples whole, classes stratified, {len(by_block)} blocks whole, seed changes folds")
 EOF
 

@@ -10,7 +10,8 @@
 //!
 //! Output root layout: `flights/ID/` (each flight's stack), `temporal/` (the
 //! multi-temporal stack), `ledger/ID.json` (finished-flight records),
-//! `ledger-temporal.json`, `batch-report.json`, and `.terrastack.lock` while a run holds
+//! `ledger-temporal.json`, `batch-report.json`, `collection.json` (the STAC Collection
+//! linking the stacks' Items, [`crate::stack::stac`]), and `.terrastack.lock` while a run holds
 //! the root (exclusively; shards share it).
 //!
 //! Order of work for one flight: hash its inputs; estimate its shift against the reference
@@ -401,6 +402,9 @@ pub fn run(
     };
     let report = report_of(reports, temporal, Some(alignment));
     report.store(&root, options.shard)?;
+    if options.shard.is_all() {
+        write_collection(manifest, &root)?;
+    }
     Ok(report)
 }
 
@@ -771,6 +775,26 @@ impl Context<'_> {
     }
 }
 
+/// The batch's STAC Collection (`collection.json` in `root`), linking the Items of the
+/// flights' stacks and of the multi-temporal stack that exist.
+fn write_collection(manifest: &Manifest, root: &Path) -> Result<()> {
+    use crate::stack::stac;
+    let mut items: Vec<String> = manifest
+        .flights
+        .iter()
+        .map(|f| format!("{FLIGHTS_DIR}/{}/{}", f.id, stac::ITEM_FILE))
+        .collect();
+    items.push(format!("{TEMPORAL_DIR}/{}", stac::ITEM_FILE));
+    // Named after the manifest, so that the same batch written anywhere (or resumed, or
+    // run in shards) gives the same bytes.
+    let id = manifest
+        .path
+        .file_stem()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "batch".into());
+    stac::write_collection(root, &id, &items)
+}
+
 /// Every path a batch into `root` writes or replaces: each flight's stack folder and
 /// ledger record, the multi-temporal stack and its record, the reports, the root's lock.
 fn output_paths(manifest: &Manifest, root: &Path) -> Vec<PathBuf> {
@@ -783,6 +807,7 @@ fn output_paths(manifest: &Manifest, root: &Path) -> Vec<PathBuf> {
     }
     v.extend(stack::output::output_paths(&root.join(TEMPORAL_DIR)));
     v.push(root.join(TEMPORAL_LEDGER));
+    v.push(root.join(crate::stack::stac::COLLECTION_FILE));
     v.push(OutputLock::folder_lock_path(root));
     if let Ok(entries) = std::fs::read_dir(root) {
         v.extend(entries.flatten().map(|e| e.path()).filter(|p| {

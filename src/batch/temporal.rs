@@ -8,7 +8,7 @@
 //!
 //! Output bands, in order:
 //! 1. dated bands: for each flight in date order, each of its bands, named
-//!    `NAME_YYYY-MM-DD`, with `date` set;
+//!    `NAME_YYYYMMDD` (an identifier, e.g. `ndvi_20260708`), with `date` set;
 //! 2. summaries, for each band name present in every flight (in the earliest flight's
 //!    order): `NAME_mean`, `NAME_min`, `NAME_max`, `NAME_amplitude` (max − min), `NAME_std`
 //!    (population standard deviation, divisor n), and for spectral indices and band-math
@@ -247,7 +247,7 @@ pub fn write_temporal(
         for b in &meta.bands {
             let mut band = b.clone();
             band.index = bands.len() + 1;
-            band.name = format!("{}_{}", b.name, f.date);
+            band.name = format!("{}_{}", b.name, f.date.replace('-', ""));
             band.date = Some(f.date.clone());
             band.extra.insert("flight".into(), f.id.clone().into());
             origins.push(Origin::Dated {
@@ -414,7 +414,19 @@ pub fn write_temporal(
         &metadata.bands,
     )?;
     metadata.write_to(&dir.temp_path("stack.json"))?;
+    let span = dates
+        .first()
+        .map(String::as_str)
+        .zip(dates.last().map(String::as_str));
+    let no_item = crate::stack::stac::add_item(&mut dir, &metadata, grid, &tif_path, span, false)?;
+    if let Some(w) = &no_item {
+        eprintln!("warning: {w}");
+    }
+    let folder = dir.dir().to_path_buf();
     dir.commit()?;
+    if no_item.is_some() {
+        crate::stack::stac::remove_stale_item(&folder)?;
+    }
     Ok(metadata)
 }
 

@@ -87,10 +87,12 @@ pub struct Args {
     /// Compression of stack.tif.
     #[arg(long, value_enum, value_name = "CODEC")]
     pub compression: Option<OutputCompression>,
-    /// Output folder (receives stack.tif, stack.json, preview.png).
+    /// Output folder (receives stack.tif, stack.json, preview.png and, with --date,
+    /// stack.stac.json).
     #[arg(long, value_name = "DIR")]
     pub out: PathBuf,
-    /// Date of the flight: recorded on every band of stack.json and in the preview's heading.
+    /// Date of the flight: recorded on every band of stack.json, in the preview's heading
+    /// and as the day of the STAC Item (stack.stac.json, written only when the date is known).
     #[arg(long, value_name = "YYYY-MM-DD")]
     pub date: Option<String>,
     /// Replace an existing stack in the output folder (never an input, nor a folder
@@ -156,14 +158,14 @@ pub fn run(args: Args) -> Result<()> {
         zero_is_nodata: args.zero_is_nodata,
         compression: args.compression,
     };
-    let recipe = Recipe::resolve(recipe_file.as_ref(), &flags)?;
-    let mut options = BuildOptions::new(args.out);
     if let Some(date) = &args.date {
         terrastack::batch::manifest::check_date(date).map_err(|problem| {
             terrastack::Error::usage(format!("--date: {problem}"))
-                .with_fix("write the flight's date as YYYY-MM-DD, e.g. --date 2026-07-08")
+                .with_fix("give the flight date as YYYY-MM-DD, e.g. --date 2026-07-08")
         })?;
     }
+    let recipe = Recipe::resolve(recipe_file.as_ref(), &flags)?;
+    let mut options = BuildOptions::new(args.out);
     options.date = args.date;
     options.recipe_file = args.recipe;
     options.force = args.force;

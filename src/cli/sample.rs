@@ -27,8 +27,11 @@ pub struct Args {
     /// `gdal` feature also any vector format GDAL reads.
     #[arg(long, value_name = "FILE")]
     pub samples: PathBuf,
-    /// Training table to write (CSV).
-    #[arg(long, value_name = "TABLE.csv")]
+    /// Training table to write: CSV, or GeoParquet 1.1 when the name ends in .parquet
+    /// (point geometry in the stack's CRS, readable by geopandas and pyarrow as it is).
+    /// Band columns are named by identifiers (ndvi_2026-07-08 becomes ndvi_20260708);
+    /// `block` (with --block-size) and `cells` (with --aggregate) columns are added.
+    #[arg(long, value_name = "TABLE.csv|TABLE.parquet")]
     pub out: PathBuf,
     /// Number of cross-validation folds, stratified by class.
     #[arg(long, value_name = "K", default_value_t = DEFAULT_FOLDS)]

@@ -244,70 +244,35 @@ fn read_other(path: &Path, _ext: &str, class_field: Option<&str>) -> Result<Samp
     })
 }
 
-/// Split CSV text into records of fields (RFC 4180 quoting), with the 1-based line number
-/// each record starts on. Blank lines are skipped.
+/// Split CSV text into records of fields (RFC 4180 quoting, read by the `csv` crate),
+/// with the 1-based line number each record starts on. Blank lines are skipped. A quoted
+/// field left open runs to the end of the text; it is refused (an odd number of quote
+/// characters in the text is taken as that sign).
 fn csv_records(text: &str) -> Result<Vec<(usize, Vec<String>)>> {
+    let mut reader = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .flexible(true)
+        .from_reader(text.as_bytes());
     let mut records = Vec::new();
-    let mut fields: Vec<String> = Vec::new();
-    let mut field = String::new();
-    let mut in_quotes = false;
-    let mut was_quoted = false;
-    let mut line = 1usize;
-    let mut start_line = 1usize;
-    let mut chars = text.chars().peekable();
-    let mut push_record = |fields: &mut Vec<String>, start: usize| {
+    for record in reader.records() {
+        let record = record.map_err(|e| {
+            let line = e.position().map_or(0, |p| p.line());
+            Error::usage(format!("line {line}: not readable as CSV: {e}"))
+                .with_fix("save the samples as comma-separated UTF-8 text")
+        })?;
+        let line = record.position().map_or(0, |p| p.line()) as usize;
+        let fields: Vec<String> = record.iter().map(str::to_string).collect();
         let blank = fields.len() == 1 && fields[0].trim().is_empty();
         if !blank {
-            records.push((start, std::mem::take(fields)));
-        }
-        fields.clear();
-    };
-    while let Some(c) = chars.next() {
-        if in_quotes {
-            match c {
-                '"' if chars.peek() == Some(&'"') => {
-                    chars.next();
-                    field.push('"');
-                }
-                '"' => in_quotes = false,
-                '\n' => {
-                    line += 1;
-                    field.push(c);
-                }
-                _ => field.push(c),
-            }
-            continue;
-        }
-        match c {
-            '"' if field.trim().is_empty() && !was_quoted => {
-                field.clear();
-                in_quotes = true;
-                was_quoted = true;
-            }
-            ',' => {
-                fields.push(std::mem::take(&mut field));
-                was_quoted = false;
-            }
-            '\r' if chars.peek() == Some(&'\n') => {}
-            '\n' => {
-                fields.push(std::mem::take(&mut field));
-                was_quoted = false;
-                push_record(&mut fields, start_line);
-                line += 1;
-                start_line = line;
-            }
-            _ => field.push(c),
+            records.push((line, fields));
         }
     }
-    if in_quotes {
+    if text.matches('"').count() % 2 == 1 {
+        let line = records.last().map_or(1, |r| r.0);
         return Err(
-            Error::usage(format!("line {start_line}: a quoted field is not closed"))
+            Error::usage(format!("line {line}: a quoted field is not closed"))
                 .with_fix("close the quote, or double a quote that is part of the text (\"\")"),
         );
-    }
-    if !field.is_empty() || !fields.is_empty() {
-        fields.push(field);
-        push_record(&mut fields, start_line);
     }
     Ok(records)
 }

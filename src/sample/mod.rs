@@ -10,7 +10,8 @@
 //! - [`cells`]: cells whose centre lies inside a circle or polygon.
 //! - [`checks`]: samples outside the stack, overlaps of different classes, small classes.
 //! - [`folds`]: seeded stratified folds, per sample or per spatial block.
-//! - [`table`]: the CSV table and its atomic writing.
+//! - [`table`]: the table's columns, CSV writing and its atomic writing.
+//! - [`geoparquet`]: the table as GeoParquet.
 //! - [`separability`]: per band ANOVA F and Jeffries–Matusita distances of the classes,
 //!   groups of correlated bands; printed and written as `TABLE.separability.json`.
 //!
@@ -22,6 +23,7 @@
 pub mod cells;
 pub mod checks;
 pub mod folds;
+pub mod geoparquet;
 pub mod inputs;
 pub mod separability;
 pub mod table;
@@ -504,6 +506,7 @@ pub fn build_table(
                         sample: s,
                         x,
                         y,
+                        cells: 1,
                         values: v.iter().map(|&x| x as f64).collect(),
                     });
                 }
@@ -529,6 +532,7 @@ pub fn build_table(
                     sample: s,
                     x,
                     y,
+                    cells: kept.len(),
                     values: out,
                 });
             }
@@ -643,6 +647,46 @@ impl fmt::Display for SampleSummary {
     }
 }
 
+/// Write `table` to `out` atomically, as GeoParquet for a `.parquet` name, else as CSV.
+fn write_table(
+    out: &Path,
+    table: &SampleTable,
+    grid: &Grid,
+    ids: &[String],
+    classes: &[String],
+    folds: &[Option<usize>],
+    blocks: Option<&[Option<u64>]>,
+) -> Result<()> {
+    let cols = table::SampleColumns {
+        ids,
+        classes,
+        folds,
+        blocks,
+    };
+    let names = table.column_names(blocks.is_some())?;
+    match table::TableFormat::of(out) {
+        table::TableFormat::Csv => {
+            crate::atomic_file::write_streamed(out, |w| table.write_csv(w, &cols, &names))
+        }
+        table::TableFormat::GeoParquet => {
+            let crs = crate::projjson::of(&grid.crs);
+            if crs.is_none() {
+                eprintln!(
+                    "warning: {}: the GeoParquet crs is written as null (unknown): this build \
+                     cannot describe {} as PROJJSON; build terrastack with `--features gdal` \
+                     to record it",
+                    out.display(),
+                    grid.crs.label()
+                );
+            }
+            let geo = geoparquet::geo_metadata(table, crs);
+            crate::atomic_file::write_streamed(out, |w| {
+                geoparquet::write_geoparquet(w, table, &cols, &names, &geo)
+            })
+        }
+    }
+}
+
 /// Make the training table `out` from the stack in `stack_dir` and the samples in
 /// `samples_path`. An existing `out` is replaced only with `force`. With
 /// `options.strict`, any check finding fails the run (`Error::CheckFailed`) before a pixel
@@ -744,7 +788,16 @@ pub fn run(
     let folds = assign_folds(&plan, &has_rows, options);
     let ids: Vec<String> = file.samples.iter().map(|s| s.id.clone()).collect();
     let classes: Vec<String> = file.samples.iter().map(|s| s.class.clone()).collect();
-    crate::atomic_file::write_streamed(out, |w| table.write_csv(w, &ids, &classes, &folds))?;
+    let blocks = plan.blocks.as_ref().map(|b| table::block_ids(b, &has_rows));
+    write_table(
+        out,
+        &table,
+        &grid,
+        &ids,
+        &classes,
+        &folds,
+        blocks.as_deref(),
+    )?;
     let sep = table_separability(&table, &plan, options.correlation_threshold);
     let sep_json = serde_json::to_vec_pretty(&sep)
         .map_err(|e| Error::file(&sep_path, format!("cannot encode the report: {e}")))?;

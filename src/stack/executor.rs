@@ -279,8 +279,24 @@ fn run(
     let heading = SheetHeading::flight(&options.out, options.date.as_deref());
     preview.write_png(&png_path, &plan.target, &heading, &metadata.bands)?;
     metadata.write_to(&out.temp_path("stack.json"))?;
+    let date = options.date.as_deref();
+    let no_item = super::stac::add_item(
+        &mut out,
+        &metadata,
+        &plan.target,
+        &tif_path,
+        date.zip(date),
+        true,
+    )?;
+    if let Some(w) = &no_item {
+        eprintln!("warning: {w}");
+        warnings.push(w.clone());
+    }
     let dir = out.dir().to_path_buf();
     out.commit()?;
+    if no_item.is_some() {
+        super::stac::remove_stale_item(&dir)?;
+    }
     Ok(BuildReport {
         dir,
         metadata,

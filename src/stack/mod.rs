@@ -1,5 +1,5 @@
 //! From a recipe to a finished stack: the resolved recipe, the block plan, the executor,
-//! the sidecar metadata and the preview.
+//! the sidecar metadata, the preview and the STAC Item.
 
 pub mod executor;
 pub mod output;
@@ -9,6 +9,7 @@ pub mod preview;
 pub mod recipe;
 pub mod settings;
 pub mod sidecar;
+pub mod stac;
 pub mod tile_sink;
 
 pub use executor::{build, BuildOptions, BuildReport, Progress};

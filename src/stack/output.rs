@@ -23,7 +23,7 @@ use crate::error::{Error, Result};
 use crate::output_lock::OutputLock;
 
 /// Files a finished stack folder holds, in the order they are committed (sidecar last).
-pub const STACK_FILES: [&str; 3] = ["stack.tif", "preview.png", "stack.json"];
+pub const STACK_FILES: [&str; 4] = ["stack.tif", "preview.png", "stack.stac.json", "stack.json"];
 
 /// Every path a stack build into `dir` writes or replaces: the stack files and the
 /// folder's lock file. None of them may be an input ([`crate::input_guard`]).

@@ -20,7 +20,7 @@ pub struct TerrainFeature {
 
 /// Formats a radius for band names: shortest decimal form ("5", "2.5", "0.25").
 fn radius_label(r: f64) -> String {
-    format!("{r}")
+    format!("{r}").replace('.', "p")
 }
 
 impl TerrainFeature {
@@ -114,8 +114,8 @@ impl TerrainFeature {
         self.method == Some(SlopeMethod::Quadratic) && self.scale_m.is_some()
     }
 
-    /// Stable band name, lower-case `[a-z0-9_.]`: "slope_horn", "tpi_r5m",
-    /// "slope_quadratic_r2.5m".
+    /// Stable band name, an identifier `[a-z0-9_]`: "slope_horn", "tpi_r5m",
+    /// "slope_quadratic_r2p5m".
     pub fn band_name(&self) -> String {
         let stem = self.row().stem;
         match (self.method, self.scale_m) {

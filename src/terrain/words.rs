@@ -192,11 +192,11 @@ mod tests {
             "tpi_r5m"
         );
         let q = TerrainFeature::derivative(Quantity::Slope, SlopeMethod::Quadratic, Some(2.5));
-        assert_eq!(q.band_name(), "slope_quadratic_r2.5m");
+        assert_eq!(q.band_name(), "slope_quadratic_r2p5m");
         assert_eq!(q.scale_m(), Some(2.5));
         assert_eq!(
             TerrainFeature::windowed(Quantity::RoughnessDetrended, 0.5).band_name(),
-            "roughness_detrended_r0.5m"
+            "roughness_detrended_r0p5m"
         );
         assert_eq!(TerrainFeature::new(Quantity::Tri).band_name(), "tri");
         for f in expand(
