@@ -502,7 +502,13 @@ fn killed_sample_keeps_the_old_table_and_the_next_run_cleans_up() {
     if cfg!(target_os = "linux") {
         assert_eq!(
             names(d),
-            vec!["dsm.tif", "samples.geojson", "stack", "t.csv"]
+            vec![
+                "dsm.tif",
+                "samples.geojson",
+                "stack",
+                "t.csv",
+                "t.separability.json"
+            ]
         );
     }
     assert!(fs::read(&table).unwrap() == before);

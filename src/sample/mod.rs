@@ -729,6 +729,13 @@ pub fn run(
     let name = out.file_name().map(|n| n.to_string_lossy().into_owned());
     let folder = out.parent().filter(|p| !p.as_os_str().is_empty());
     crate::atomic_file::remove_stale_partials(folder.unwrap_or(Path::new(".")), name.as_deref());
+    let sep_name = sep_path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned());
+    crate::atomic_file::remove_stale_partials(
+        folder.unwrap_or(Path::new(".")),
+        sep_name.as_deref(),
+    );
     let mut file = inputs::read_samples(samples_path, options.class_field.as_deref())?;
     if file.samples.is_empty() {
         return Err(Error::file(samples_path, "the file holds no samples")
