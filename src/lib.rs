@@ -11,6 +11,7 @@
 //! - [`grid`]: size, transform, CRS, nodata; cell sizes in metres; windows.
 //! - [`raster`]: windowed readers and the GeoTIFF writer (pure Rust; GDAL with `gdal`).
 //! - [`terrain`]: terrain derivatives, one module per family, each citing its method.
+//! - [`ground`]: ground (DTM), height above ground and a ground mask from the DSM (SMRF).
 //! - [`spectral`]: band roles, reflectance scaling, the index catalogue, band math.
 //! - [`align`]: resampling every input onto the target grid.
 //! - [`stack`]: the recipe, the block plan, the executor and the stack's metadata.
@@ -26,6 +27,7 @@ pub mod batch;
 pub mod demo_site;
 pub mod error;
 pub mod grid;
+pub mod ground;
 pub mod input_guard;
 pub mod output_lock;
 pub mod random;
