@@ -106,6 +106,8 @@ pub struct Args {
     /// No progress output.
     #[arg(long, short)]
     pub quiet: bool,
+    #[command(flatten)]
+    pub ground: super::ground_args::GroundArgs,
 }
 
 /// Resampling kinds as typed on the command line.
@@ -151,6 +153,7 @@ pub fn run(args: Args) -> Result<()> {
         reflectance_offset: args.reflectance_offset,
         zero_is_nodata: args.zero_is_nodata,
         compression: args.compression,
+        ground: args.ground.section(),
     };
     let recipe = Recipe::resolve(recipe_file.as_ref(), &flags)?;
     let mut options = BuildOptions::new(args.out);

@@ -28,8 +28,10 @@
 //!
 //! Outputs are analysis aids for mapping vegetation structure, not surveyed ground.
 
+pub mod bands;
 pub mod fill;
 pub mod opening;
+pub mod settings;
 
 use ndarray::{Array2, ArrayView2, Zip};
 
