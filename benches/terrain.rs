@@ -24,7 +24,7 @@ use terrastack::grid::CellSizes;
 use terrastack::terrain::running_extrema::Extrema;
 use terrastack::terrain::window_sums::Layout;
 use terrastack::terrain::{
-    compute, RowSizes, SlopeMethod, TerrainFeature, TerrainParams, WindowShape,
+    compute, Quantity, RowSizes, SlopeMethod, TerrainFeature, TerrainParams, WindowShape,
 };
 
 const H: f64 = 0.05;
@@ -56,51 +56,24 @@ fn three_by_three() -> Vec<TerrainFeature> {
     let (m, s) = h(SlopeMethod::Horn);
     let (e, es) = (SlopeMethod::EvansYoung, None);
     vec![
-        TerrainFeature::Slope {
-            method: m,
-            scale_m: s,
-        },
-        TerrainFeature::Aspect {
-            method: m,
-            scale_m: s,
-        },
-        TerrainFeature::Northness {
-            method: m,
-            scale_m: s,
-        },
-        TerrainFeature::Eastness {
-            method: m,
-            scale_m: s,
-        },
-        TerrainFeature::ProfileCurvature {
-            method: e,
-            scale_m: es,
-        },
-        TerrainFeature::PlanCurvature {
-            method: e,
-            scale_m: es,
-        },
-        TerrainFeature::TangentialCurvature {
-            method: e,
-            scale_m: es,
-        },
-        TerrainFeature::MeanCurvature {
-            method: e,
-            scale_m: es,
-        },
-        TerrainFeature::GaussianCurvature {
-            method: e,
-            scale_m: es,
-        },
-        TerrainFeature::Tri,
+        TerrainFeature::derivative(Quantity::Slope, m, s),
+        TerrainFeature::derivative(Quantity::Aspect, m, s),
+        TerrainFeature::derivative(Quantity::Northness, m, s),
+        TerrainFeature::derivative(Quantity::Eastness, m, s),
+        TerrainFeature::derivative(Quantity::ProfileCurvature, e, es),
+        TerrainFeature::derivative(Quantity::PlanCurvature, e, es),
+        TerrainFeature::derivative(Quantity::TangentialCurvature, e, es),
+        TerrainFeature::derivative(Quantity::MeanCurvature, e, es),
+        TerrainFeature::derivative(Quantity::GaussianCurvature, e, es),
+        TerrainFeature::new(Quantity::Tri),
     ]
 }
 
 fn windowed(r: f64) -> Vec<TerrainFeature> {
     vec![
-        TerrainFeature::Tpi { radius_m: r },
-        TerrainFeature::Roughness { radius_m: r },
-        TerrainFeature::RelativeElevation { radius_m: r },
+        TerrainFeature::windowed(Quantity::Tpi, r),
+        TerrainFeature::windowed(Quantity::Roughness, r),
+        TerrainFeature::windowed(Quantity::RelativeElevation, r),
     ]
 }
 

@@ -14,7 +14,7 @@ use std::path::{Path, PathBuf};
 use ndarray::{s, Array2};
 use serde_json::Value;
 use terrastack::grid::{Crs, Grid};
-use terrastack::terrain::{compute, SlopeMethod, TerrainFeature, TerrainParams};
+use terrastack::terrain::{compute, Quantity, SlopeMethod, TerrainFeature, TerrainParams};
 
 fn read_f32(path: &Path, rows: usize, cols: usize) -> Array2<f32> {
     let bytes = std::fs::read(path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
@@ -128,18 +128,12 @@ fn jacksboro_matches_numpy_and_scipy() {
         .collect();
 
     let mut feats = vec![
-        TerrainFeature::Slope {
-            method: SlopeMethod::Horn,
-            scale_m: None,
-        },
-        TerrainFeature::Aspect {
-            method: SlopeMethod::Horn,
-            scale_m: None,
-        },
+        TerrainFeature::derivative(Quantity::Slope, SlopeMethod::Horn, None),
+        TerrainFeature::derivative(Quantity::Aspect, SlopeMethod::Horn, None),
     ];
     for &r in &radii {
-        feats.push(TerrainFeature::Tpi { radius_m: r });
-        feats.push(TerrainFeature::Roughness { radius_m: r });
+        feats.push(TerrainFeature::windowed(Quantity::Tpi, r));
+        feats.push(TerrainFeature::windowed(Quantity::Roughness, r));
     }
     // Halo from the narrowest cells (the northern row).
     let (hx_min, hy_min) = grid.cell_size_m(0.0).expect("cell size");

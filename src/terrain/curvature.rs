@@ -190,29 +190,14 @@ mod tests {
         h: f64,
         reference_z: f64,
     ) -> Vec<ndarray::Array2<f32>> {
-        use crate::terrain::{compute, SlopeMethod, TerrainFeature as F, TerrainParams};
+        use crate::terrain::{compute, Quantity, SlopeMethod, TerrainFeature, TerrainParams};
         let m = SlopeMethod::EvansYoung;
         let feats = [
-            F::ProfileCurvature {
-                method: m,
-                scale_m: None,
-            },
-            F::TangentialCurvature {
-                method: m,
-                scale_m: None,
-            },
-            F::PlanCurvature {
-                method: m,
-                scale_m: None,
-            },
-            F::MeanCurvature {
-                method: m,
-                scale_m: None,
-            },
-            F::GaussianCurvature {
-                method: m,
-                scale_m: None,
-            },
+            TerrainFeature::derivative(Quantity::ProfileCurvature, m, None),
+            TerrainFeature::derivative(Quantity::TangentialCurvature, m, None),
+            TerrainFeature::derivative(Quantity::PlanCurvature, m, None),
+            TerrainFeature::derivative(Quantity::MeanCurvature, m, None),
+            TerrainFeature::derivative(Quantity::GaussianCurvature, m, None),
         ];
         let cells = crate::grid::CellSizes::uniform(h, h, z.nrows());
         compute(

@@ -313,6 +313,28 @@ pub enum Pointwise {
 }
 
 impl Pointwise {
+    /// Whether it needs second derivatives (the curvatures; Horn 1981 gives none).
+    pub fn second_order(self) -> bool {
+        !matches!(
+            self,
+            Pointwise::Slope | Pointwise::Aspect | Pointwise::Northness | Pointwise::Eastness
+        )
+    }
+
+    /// Whether it needs a slope direction (kn, kc, kt): nodata where the gradient is
+    /// within [`curvature::GRADIENT_SIGNIFICANCE`] standard errors of zero.
+    pub fn needs_direction(self) -> bool {
+        matches!(
+            self,
+            Pointwise::Profile | Pointwise::Plan | Pointwise::Tangential
+        )
+    }
+
+    /// Whether it is undefined where the surface is flat (aspect, kn, kc, kt).
+    pub fn undefined_where_flat(self) -> bool {
+        self == Pointwise::Aspect || self.needs_direction()
+    }
+
     /// The value at one cell by the closed-form formula (kn, kt, kc NaN only where g = 0).
     #[inline]
     pub fn eval(self, d: &Pqrst) -> f64 {

@@ -145,7 +145,9 @@ pub fn local_relief(ex: &Extrema, i: usize, j: usize, cells: u64, n: i64, frac: 
 mod tests {
     use crate::grid::CellSizes;
     use crate::terrain::test_support::{random_dem, sample, SplitMix64};
-    use crate::terrain::{compute, radius_cells, TerrainFeature, TerrainParams, WindowShape};
+    use crate::terrain::{
+        compute, radius_cells, Quantity, TerrainFeature, TerrainParams, WindowShape,
+    };
     use approx::assert_relative_eq;
     use ndarray::Array2;
 
@@ -204,10 +206,10 @@ mod tests {
             let h = 0.5 + rng.next_f64();
             let r = 0.6 + 3.0 * rng.next_f64();
             let feats = [
-                TerrainFeature::Tpi { radius_m: r },
-                TerrainFeature::Dev { radius_m: r },
-                TerrainFeature::RelativeElevation { radius_m: r },
-                TerrainFeature::LocalRelief { radius_m: r },
+                TerrainFeature::windowed(Quantity::Tpi, r),
+                TerrainFeature::windowed(Quantity::Dev, r),
+                TerrainFeature::windowed(Quantity::RelativeElevation, r),
+                TerrainFeature::windowed(Quantity::LocalRelief, r),
             ];
             let p = TerrainParams {
                 min_valid_fraction: 0.6,
@@ -282,7 +284,7 @@ mod tests {
         // nine offsets), so TPI = −(12/9)/200 m.
         let plane = sample(21, 21, 0.5, 0.5, |x, y| 0.3 * x - 0.7 * y + 12.0);
         let out = compute(
-            &[TerrainFeature::Tpi { radius_m: 2.0 }],
+            &[TerrainFeature::windowed(Quantity::Tpi, 2.0)],
             plane.view(),
             &CellSizes::uniform(0.5, 0.5, 21),
             4,
@@ -298,7 +300,7 @@ mod tests {
             ..TerrainParams::default()
         };
         let out = compute(
-            &[TerrainFeature::Tpi { radius_m: 1.0 }],
+            &[TerrainFeature::windowed(Quantity::Tpi, 1.0)],
             bowl.view(),
             &CellSizes::uniform(1.0, 1.0, 11),
             1,
@@ -332,8 +334,8 @@ mod tests {
                     ..TerrainParams::default()
                 };
                 let feats = [
-                    TerrainFeature::Tpi { radius_m: r },
-                    TerrainFeature::Dev { radius_m: r },
+                    TerrainFeature::windowed(Quantity::Tpi, r),
+                    TerrainFeature::windowed(Quantity::Dev, r),
                 ];
                 // Halo 0: windows reach past the array, i.e. past the raster's edge.
                 let out = compute(&feats, z.view(), &cells, 0, 20.0, &p);

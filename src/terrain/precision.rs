@@ -60,7 +60,7 @@ pub fn second_derivative_floor(
 mod tests {
     use super::*;
     use crate::grid::CellSizes;
-    use crate::terrain::{compute, DsmSample, TerrainFeature, TerrainParams};
+    use crate::terrain::{compute, DsmSample, Quantity, TerrainFeature, TerrainParams};
     use approx::assert_relative_eq;
     use ndarray::Array2;
 
@@ -100,10 +100,11 @@ mod tests {
             1500.0 + 0.0123 * (j as f64 * h) - 0.0071 * (i as f64 * h) + 3.0 * u * rng.next_f64()
         });
         let z32 = z64.mapv(|v| v as f32);
-        let feats = [TerrainFeature::MeanCurvature {
-            method: SlopeMethod::EvansYoung,
-            scale_m: None,
-        }];
+        let feats = [TerrainFeature::derivative(
+            Quantity::MeanCurvature,
+            SlopeMethod::EvansYoung,
+            None,
+        )];
         let cells = CellSizes::uniform(h, h, n);
         let p = TerrainParams::default();
         let a = compute(&feats, z32.view(), &cells, 1, 1500.0, &p).remove(0);

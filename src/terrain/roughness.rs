@@ -68,7 +68,9 @@ pub fn tri_3x3(w: &[f64; 9]) -> f64 {
 mod tests {
     use crate::grid::CellSizes;
     use crate::terrain::test_support::{random_dem, sample, SplitMix64};
-    use crate::terrain::{compute, radius_cells, TerrainFeature, TerrainParams, WindowShape};
+    use crate::terrain::{
+        compute, radius_cells, Quantity, TerrainFeature, TerrainParams, WindowShape,
+    };
     use approx::assert_relative_eq;
     use ndarray::Array2;
 
@@ -78,7 +80,7 @@ mod tests {
         // Σ(zᵢ − 5)² = 16 + 9 + 4 + 1 + 1 + 4 + 9 + 16 = 60, TRI = √60.
         let z = Array2::from_shape_fn((3, 3), |(i, j)| (i * 3 + j + 1) as f32);
         let out = compute(
-            &[TerrainFeature::Tri],
+            &[TerrainFeature::new(Quantity::Tri)],
             z.view(),
             &CellSizes::uniform(1.0, 1.0, 3),
             1,
@@ -100,8 +102,8 @@ mod tests {
                 ..TerrainParams::default()
             };
             let feats = [
-                TerrainFeature::RoughnessDetrended { radius_m: 3.0 },
-                TerrainFeature::Roughness { radius_m: 1.0 },
+                TerrainFeature::windowed(Quantity::RoughnessDetrended, 3.0),
+                TerrainFeature::windowed(Quantity::Roughness, 1.0),
             ];
             let out = compute(
                 &feats,
@@ -133,7 +135,7 @@ mod tests {
                 ..TerrainParams::default()
             };
             let out = compute(
-                &[TerrainFeature::RoughnessDetrended { radius_m: r }],
+                &[TerrainFeature::windowed(Quantity::RoughnessDetrended, r)],
                 dem.view(),
                 &CellSizes::uniform(1.0, 1.0, 14),
                 0,

@@ -49,7 +49,7 @@ mod tests {
     use super::*;
     use crate::grid::CellSizes;
     use crate::terrain::test_support::sample;
-    use crate::terrain::{compute, SlopeMethod, TerrainFeature, TerrainParams};
+    use crate::terrain::{compute, Quantity, SlopeMethod, TerrainFeature, TerrainParams};
     use approx::assert_relative_eq;
 
     fn pq(p: f64, q: f64) -> Pqrst {
@@ -111,14 +111,8 @@ mod tests {
             SlopeMethod::EvansYoung,
         ] {
             let f = [
-                TerrainFeature::Slope {
-                    method: m,
-                    scale_m: None,
-                },
-                TerrainFeature::Aspect {
-                    method: m,
-                    scale_m: None,
-                },
+                TerrainFeature::derivative(Quantity::Slope, m, None),
+                TerrainFeature::derivative(Quantity::Aspect, m, None),
             ];
             let out = compute(
                 &f,

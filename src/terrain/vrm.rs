@@ -80,7 +80,7 @@ pub fn vrm(
 mod tests {
     use crate::grid::CellSizes;
     use crate::terrain::test_support::sample;
-    use crate::terrain::{compute, TerrainFeature, TerrainParams, WindowShape};
+    use crate::terrain::{compute, Quantity, TerrainFeature, TerrainParams, WindowShape};
     use approx::assert_relative_eq;
     use ndarray::Array2;
 
@@ -94,7 +94,7 @@ mod tests {
                 ..TerrainParams::default()
             };
             let out = compute(
-                &[TerrainFeature::Vrm { radius_m: 2.0 }],
+                &[TerrainFeature::windowed(Quantity::Vrm, 2.0)],
                 z.view(),
                 &CellSizes::uniform(1.0, 1.0, 15),
                 3,
@@ -119,7 +119,7 @@ mod tests {
             ..TerrainParams::default()
         };
         let out = compute(
-            &[TerrainFeature::Vrm { radius_m: 1.0 }],
+            &[TerrainFeature::windowed(Quantity::Vrm, 1.0)],
             z.view(),
             &CellSizes::uniform(1.0, 1.0, 9),
             2,

@@ -28,10 +28,8 @@ use ndarray::Array2;
 use serde::Serialize;
 
 use crate::grid::CellSizes;
-use crate::terrain::derivatives::Pqrst;
-use crate::terrain::{
-    compute, curvature, slope, SlopeMethod, TerrainFeature, TerrainParams, WindowShape,
-};
+use crate::terrain::derivatives::{Pointwise, Pqrst};
+use crate::terrain::{compute, table, SlopeMethod, TerrainFeature, TerrainParams, WindowShape};
 
 /// A closed-form test surface.
 pub struct Surface {
@@ -275,105 +273,68 @@ impl Report {
     }
 }
 
-/// A quantity computed from derivatives: name, units, exact value function, output feature.
+/// A quantity computed from derivatives, as the feature table gives it: its report name
+/// (the table's word without "_curvature"), units, closed-form value of the exact
+/// derivatives ([`Pointwise::eval`]) and output feature.
 struct Quantity {
     name: &'static str,
+    quantity: table::Quantity,
     units: &'static str,
-    exact: fn(&Pqrst) -> f64,
-    feature: fn(SlopeMethod, Option<f64>) -> TerrainFeature,
-    needs_slope: bool,
-    angle: bool,
-    second_order: bool,
+    pointwise: Pointwise,
 }
 
+impl Quantity {
+    fn exact(&self, d: &Pqrst) -> f64 {
+        self.pointwise.eval(d)
+    }
+
+    fn feature(&self, method: SlopeMethod, scale_m: Option<f64>) -> TerrainFeature {
+        TerrainFeature::derivative(self.quantity, method, scale_m)
+    }
+
+    /// Compared only where the exact slope is at least 2° (aspect, kn, kt, kc).
+    fn needs_slope(&self) -> bool {
+        self.pointwise.undefined_where_flat()
+    }
+
+    /// An angle compared modulo 360° (aspect).
+    fn angle(&self) -> bool {
+        self.quantity == table::Quantity::Aspect
+    }
+
+    fn second_order(&self) -> bool {
+        self.pointwise.second_order()
+    }
+}
+
+/// The derivative quantities verified (northness and eastness are cos and sin of the
+/// verified aspect).
+const VERIFIED: [table::Quantity; 7] = [
+    table::Quantity::Slope,
+    table::Quantity::Aspect,
+    table::Quantity::ProfileCurvature,
+    table::Quantity::PlanCurvature,
+    table::Quantity::TangentialCurvature,
+    table::Quantity::MeanCurvature,
+    table::Quantity::GaussianCurvature,
+];
+
 fn quantities() -> Vec<Quantity> {
-    use TerrainFeature as F;
-    vec![
-        Quantity {
-            name: "slope",
-            units: "degrees",
-            exact: slope::slope_deg,
-            feature: |m, s| F::Slope {
-                method: m,
-                scale_m: s,
-            },
-            needs_slope: false,
-            angle: false,
-            second_order: false,
-        },
-        Quantity {
-            name: "aspect",
-            units: "degrees",
-            exact: slope::aspect_deg,
-            feature: |m, s| F::Aspect {
-                method: m,
-                scale_m: s,
-            },
-            needs_slope: true,
-            angle: true,
-            second_order: false,
-        },
-        Quantity {
-            name: "profile",
-            units: "1/m",
-            exact: curvature::profile,
-            feature: |m, s| F::ProfileCurvature {
-                method: m,
-                scale_m: s,
-            },
-            needs_slope: true,
-            angle: false,
-            second_order: true,
-        },
-        Quantity {
-            name: "plan",
-            units: "1/m",
-            exact: curvature::plan,
-            feature: |m, s| F::PlanCurvature {
-                method: m,
-                scale_m: s,
-            },
-            needs_slope: true,
-            angle: false,
-            second_order: true,
-        },
-        Quantity {
-            name: "tangential",
-            units: "1/m",
-            exact: curvature::tangential,
-            feature: |m, s| F::TangentialCurvature {
-                method: m,
-                scale_m: s,
-            },
-            needs_slope: true,
-            angle: false,
-            second_order: true,
-        },
-        Quantity {
-            name: "mean",
-            units: "1/m",
-            exact: curvature::mean,
-            feature: |m, s| F::MeanCurvature {
-                method: m,
-                scale_m: s,
-            },
-            needs_slope: false,
-            angle: false,
-            second_order: true,
-        },
-        Quantity {
-            name: "gaussian",
-            units: "1/m2",
-            exact: curvature::gaussian,
-            feature: |m, s| F::GaussianCurvature {
-                method: m,
-                scale_m: s,
-            },
-            needs_slope: false,
-            angle: false,
-            second_order: true,
-        },
-    ]
+    VERIFIED
+        .iter()
+        .filter_map(|&q| {
+            let row = q.row();
+            let table::Kernel::Derivative(pointwise) = row.kernel else {
+                return None;
+            };
+            Some(Quantity {
+                name: row.word.trim_end_matches("_curvature"),
+                quantity: q,
+                units: row.units,
+                pointwise,
+            })
+        })
+        .collect()
 }
 
 /// A sampled surface: f32 elevations, cell sizes, and cell-centre coordinates.
@@ -426,13 +387,13 @@ fn errors(
             continue;
         }
         let d = (s.d)(x, y);
-        if q.needs_slope && d.p.hypot(d.q) < min_slope {
+        if q.needs_slope() && d.p.hypot(d.q) < min_slope {
             continue;
         }
-        let exact = (q.exact)(&d);
+        let exact = q.exact(&d);
         scale = scale.max(exact.abs());
         let mut e = (*v as f64 - exact).abs();
-        if q.angle {
+        if q.angle() {
             e = e.min(360.0 - e);
         }
         if !e.is_finite() {
@@ -500,7 +461,7 @@ fn run_surface(s: &Surface, rows: &mut Vec<CheckRow>) {
     for q in quantities() {
         for (m, label, scale_cells) in methods {
             // Horn gives first derivatives only.
-            if m == SlopeMethod::Horn && q.second_order {
+            if m == SlopeMethod::Horn && q.second_order() {
                 continue;
             }
             let mut maxe = Vec::new();
@@ -509,7 +470,7 @@ fn run_surface(s: &Surface, rows: &mut Vec<CheckRow>) {
             let coarse = (samples[0].hx, samples[0].hy);
             for smp in &samples {
                 let scale = scale_cells.map(|k| k * smp.hx.max(smp.hy));
-                let f = (q.feature)(m, scale);
+                let f = q.feature(m, scale);
                 let halo = f.halo_px(smp.hx, smp.hy);
                 let cells = CellSizes::uniform(smp.hx, smp.hy, smp.n);
                 let out = compute(
@@ -614,7 +575,7 @@ fn run_multiscale(rows: &mut Vec<CheckRow>) {
     let smp = sample(&s, h);
     for r in [1.0, 3.0, 8.0] {
         for q in quantities() {
-            let f = (q.feature)(SlopeMethod::Quadratic, Some(r));
+            let f = q.feature(SlopeMethod::Quadratic, Some(r));
             let halo = f.halo_px(h, h);
             let cells = CellSizes::uniform(h, h, smp.n);
             let out = compute(
@@ -663,9 +624,9 @@ fn run_plane_windows(rows: &mut Vec<CheckRow>) {
         };
         for r in [1.0, 5.0] {
             let feats = [
-                TerrainFeature::Tpi { radius_m: r },
-                TerrainFeature::RoughnessDetrended { radius_m: r },
-                TerrainFeature::Vrm { radius_m: r },
+                TerrainFeature::windowed(table::Quantity::Tpi, r),
+                TerrainFeature::windowed(table::Quantity::RoughnessDetrended, r),
+                TerrainFeature::windowed(table::Quantity::Vrm, r),
             ];
             let halo = feats.iter().map(|f| f.halo_px(h, h)).max().unwrap_or(0);
             let out = compute(&feats, z.view(), &cells, halo, 20.0, &params);
@@ -718,6 +679,7 @@ pub fn run() -> Report {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::terrain::{curvature, slope};
     use approx::assert_relative_eq;
 
     #[test]

@@ -20,7 +20,9 @@ use serde::Serialize;
 use crate::grid::CellSizes;
 use crate::terrain::derivatives::pqrst_3x3;
 use crate::terrain::precision::second_derivative_floor;
-use crate::terrain::{compute, curvature, DsmSample, SlopeMethod, TerrainFeature, TerrainParams};
+use crate::terrain::{
+    compute, curvature, DsmSample, Quantity, SlopeMethod, TerrainFeature, TerrainParams,
+};
 
 /// Sphere radius, metres (docs/methods.md worked surface).
 pub const R: f64 = 37.0;
@@ -71,10 +73,7 @@ fn windows(h: f64) -> Array2<f64> {
 
 /// Mean curvature at the window centres (output columns 3k) through the kernels.
 fn through_kernels<T: DsmSample>(z: &Array2<T>, h: f64, reference_z: f64) -> Vec<f64> {
-    let f = TerrainFeature::MeanCurvature {
-        method: SlopeMethod::EvansYoung,
-        scale_m: None,
-    };
+    let f = TerrainFeature::derivative(Quantity::MeanCurvature, SlopeMethod::EvansYoung, None);
     let out = compute(
         std::slice::from_ref(&f),
         z.view(),
