@@ -235,3 +235,24 @@ fn ndvi_guidance_reads_the_orthomosaic() {
     assert_eq!(meta["bands"][0]["ground_filter"]["ndvi_guidance_max"], 0.3);
     assert_eq!(meta["bands"].as_array().unwrap().len(), 2);
 }
+
+#[test]
+fn the_catalogue_lists_the_ground_words() {
+    let o = run(&["features", "--json"]);
+    assert!(o.status.success());
+    let rows: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    let ground: Vec<&str> = rows
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|r| r["kind"] == "ground")
+        .map(|r| r["word"].as_str().unwrap())
+        .collect();
+    assert_eq!(
+        ground,
+        ["dtm", "height", "ground", "ground_distance", "WORD@dtm"]
+    );
+    let help = run(&["build", "--help"]);
+    let text = String::from_utf8_lossy(&help.stdout);
+    assert!(text.contains("--ground-max-object") && text.contains("slope@dtm"));
+}

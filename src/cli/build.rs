@@ -32,8 +32,9 @@ pub struct Args {
     /// One band from its own file: ROLE=FILE or ROLE=FILE:BAND (repeatable).
     #[arg(long = "band", value_name = "ROLE=FILE[:BAND]")]
     pub band: Vec<String>,
-    /// Features to build, comma-separated: terrain words, index names, `reflectance`,
-    /// `indices` (`terrastack features` lists them). Default: a terrain set at every
+    /// Features to build, comma-separated: terrain words, ground words (`dtm`, `height`,
+    /// `ground`, `ground_distance`, and `WORD@dtm` for a terrain word on the ground, e.g.
+    /// `slope@dtm`), index names, `reflectance`, `indices` (`terrastack features` lists them). Default: a terrain set at every
     /// scale plus reflectance and every index the mapped bands allow.
     #[arg(long, value_name = "LIST", value_delimiter = ',')]
     pub features: Option<Vec<String>>,

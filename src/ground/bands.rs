@@ -36,6 +36,70 @@ pub const GROUND_WORDS: &[(&str, &str)] = &[
     ),
 ];
 
+/// One documented ground feature (a line of `terrastack features`).
+#[derive(Clone, Debug, PartialEq, serde::Serialize)]
+pub struct GroundDoc {
+    pub word: &'static str,
+    /// The docs/design.md `feature` value (`"<terrain key>"` for `WORD@dtm`).
+    pub feature: &'static str,
+    pub units: &'static str,
+    pub method: &'static str,
+    pub formula: &'static str,
+    pub reference: &'static str,
+    pub edges: &'static str,
+}
+
+/// Reference of every ground feature.
+pub const REFERENCE: &str = "Pingel, Clarke & McBride 2013 (simple morphological filter), \
+     doi:10.1016/j.isprsjprs.2012.12.002; interpolation and NDVI guidance: docs/methods.md";
+
+/// The ground features, for `terrastack features`.
+pub fn catalogue() -> Vec<GroundDoc> {
+    let edges = "the filter treats cells beyond the raster and nodata as missing; a cell \
+                 farther than the reach from any ground cell has no ground (dtm, height nodata; \
+                 ground 2)";
+    let doc = |word, units, formula| GroundDoc {
+        word,
+        feature: word,
+        units,
+        method: "smrf",
+        formula,
+        reference: REFERENCE,
+        edges,
+    };
+    vec![
+        doc(
+            "dtm",
+            "metres",
+            "openings of growing radius remove objects narrower than --ground-max-object; \
+             removed cells interpolated from ground cells along four lines",
+        ),
+        doc("height", "metres", "DSM − dtm"),
+        doc(
+            "ground",
+            "unitless",
+            "1 where |DSM − dtm| ≤ --ground-threshold + --ground-scaling · |∇dtm|, else 0; \
+             2 where no ground cell lies within --ground-reach",
+        ),
+        doc(
+            "ground_distance",
+            "metres",
+            "Euclidean distance to the nearest ground cell of the filter (how far dtm is \
+             interpolated), nodata beyond --ground-reach",
+        ),
+        GroundDoc {
+            word: "WORD@dtm",
+            feature: "the terrain word's",
+            units: "the terrain word's",
+            method: "the terrain word's",
+            formula: "any terrain word computed on dtm instead of the DSM (slope@dtm, \
+                      tpi@5@dtm); band name + `_dtm`, source `dtm`",
+            reference: REFERENCE,
+            edges: "the terrain word's, on dtm (nodata where dtm is)",
+        },
+    ]
+}
+
 /// One ground band of the stack.
 #[derive(Clone, Debug, PartialEq)]
 pub enum GroundBand {

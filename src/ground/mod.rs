@@ -173,7 +173,8 @@ impl GroundParams {
     /// (interpolation and distance) + 1 (the gradient of the classification).
     pub fn halo_px(&self, h: f64) -> usize {
         let cells = (2.0 * self.max_radius_m() + self.reach_m) / h;
-        cells.ceil() as usize + 2
+        // Saturating: an absurd width is capped by the caller at the raster's side.
+        (cells.ceil().min(1e15) as usize).saturating_add(2)
     }
 }
 

@@ -69,8 +69,19 @@ pub fn progressive_objects(
 ) -> Array2<bool> {
     let mut object = Array2::from_elem(z0.dim(), false);
     let mut last = z0.clone();
+    // A window twice the array's longer side covers the whole array from any centre: a
+    // larger radius gives the same opening, so windows are capped there (the threshold
+    // keeps the radius asked for).
+    let (nr, nc) = z0.dim();
+    let h_max = cells
+        .hx
+        .iter()
+        .chain(&cells.hy)
+        .copied()
+        .fold(0.0f64, f64::max);
+    let cap = 2.0 * nr.max(nc) as f64 * h_max.max(f64::MIN_POSITIVE);
     for &r in radii {
-        let next = opening(z0, cells, shape, r);
+        let next = opening(z0, cells, shape, r.min(cap));
         let threshold = slope * r;
         Zip::from(&mut object)
             .and(z0)

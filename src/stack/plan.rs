@@ -241,7 +241,7 @@ impl StackPlan {
                             Error::Usage { problem, fix } => Error::Usage {
                                 problem,
                                 fix: Some(format!(
-                                    "{}; spectral words: reflectance, indices, {}",
+                                    "{}; ground words: dtm, height, ground, ground_distance, WORD@dtm; spectral words: reflectance, indices, {}",
                                     fix.unwrap_or_default(),
                                     names.join(", ")
                                 )),
@@ -490,7 +490,8 @@ impl StackPlan {
 }
 
 /// Refuse a band-math name that is, or begins with, a built-in word: a terrain feature
-/// word (`slope`, `tpi`, …, so also `slope_horn`, `tpi_r5m`), a catalogue index (`ndvi`,
+/// word (`slope`, `tpi`, …, so also `slope_horn`, `tpi_r5m`), a ground word (`dtm`, `height`,
+/// `ground`), a catalogue index (`ndvi`,
 /// also the multi-temporal `ndvi_mean`), `reflectance` (`reflectance_nir`) or `indices`.
 /// Such a band would hide a built-in band or be hidden by it.
 fn check_expression_name(name: &str) -> Result<()> {
@@ -511,7 +512,8 @@ fn check_expression_name(name: &str) -> Result<()> {
         .iter()
         .map(|(w, _)| *w)
         .chain(spectral::catalogue().iter().map(|i| i.name))
-        .chain(["reflectance", "indices"]);
+        .chain(["reflectance", "indices"])
+        .chain(["dtm", "height", "ground"]);
     for word in builtin {
         if lower == word || lower.starts_with(&format!("{word}_")) {
             return Err(Error::usage(format!(
