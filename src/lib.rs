@@ -13,6 +13,7 @@
 //! - [`projjson`]: PROJJSON descriptions of CRSs (GeoParquet, STAC).
 //! - [`raster`]: windowed readers and the GeoTIFF writer (pure Rust; GDAL with `gdal`).
 //! - [`terrain`]: terrain derivatives, one module per family, each citing its method.
+//! - [`ground`]: ground (DTM), height above ground and a ground mask from the DSM (SMRF).
 //! - [`spectral`]: band roles, reflectance scaling, the index catalogue, band math.
 //! - [`texture`]: co-occurrence (Haralick) and first-order texture of a band or index.
 //! - [`align`]: resampling every input onto the target grid.
@@ -29,6 +30,7 @@ pub mod batch;
 pub mod demo_site;
 pub mod error;
 pub mod grid;
+pub mod ground;
 pub mod input_guard;
 pub mod lonlat;
 pub mod output_lock;

@@ -186,6 +186,45 @@ fn window_radius_past_the_raster() {
 }
 
 #[test]
+fn ground_settings_out_of_range() {
+    let tmp = tempdir();
+    let d = dsm(tmp.path(), "dsm.tif", 40, 30, 0.5);
+    let out = tmp.path().join("out");
+    for (args, names) in [
+        (
+            vec!["--ground-max-object=-5"],
+            vec!["largest object width", "--ground-"],
+        ),
+        (vec!["--ground-window", "hexagon"], vec!["--ground-window"]),
+        (vec!["--ground-ndvi-max", "3"], vec!["NDVI threshold"]),
+        (vec!["--ground-ndvi"], vec!["`red`", "--bands"]),
+    ] {
+        let mut all = vec!["build", "--dsm", d.to_str().unwrap(), "--out"];
+        all.push(out.to_str().unwrap());
+        all.extend(["--features", "dtm,height"]);
+        all.extend(args.iter().copied());
+        let o = run(&all);
+        assert_eq!(code(&o), Some(2), "{args:?}: {}", stderr(&o));
+        assert_clean_failure(&o, &names, Some(&out));
+    }
+    // A largest object far past the raster is no refusal: the filter's context is capped
+    // at the raster's side, and the whole raster is the block.
+    let o = run(&[
+        "build",
+        "--dsm",
+        d.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "-q",
+        "--features",
+        "height",
+        "--ground-max-object",
+        "1e300",
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+}
+
+#[test]
 fn cell_of_1e_minus_300_metres() {
     let tmp = tempdir();
     let path = tmp.path().join("tiny_cells.tif");

@@ -33,8 +33,9 @@ pub struct Args {
     /// One band from its own file: ROLE=FILE or ROLE=FILE:BAND (repeatable).
     #[arg(long = "band", value_name = "ROLE=FILE[:BAND]")]
     pub band: Vec<String>,
-    /// Features to build, comma-separated: terrain words, index names, `reflectance`,
-    /// `indices` (`terrastack features` lists them). Default: a terrain set at every
+    /// Features to build, comma-separated: terrain words, ground words (`dtm`, `height`,
+    /// `ground`, `ground_distance`, and `WORD@dtm` for a terrain word on the ground, e.g.
+    /// `slope@dtm`), index names, `reflectance`, `indices` (`terrastack features` lists them). Default: a terrain set at every
     /// scale plus reflectance and every index the mapped bands allow.
     #[arg(long, value_name = "LIST", value_delimiter = ',')]
     pub features: Option<Vec<String>>,
@@ -112,6 +113,8 @@ pub struct Args {
     /// No progress output.
     #[arg(long, short)]
     pub quiet: bool,
+    #[command(flatten)]
+    pub ground: super::ground_args::GroundArgs,
 }
 
 /// Resampling kinds as typed on the command line.
@@ -157,6 +160,7 @@ pub fn run(args: Args) -> Result<()> {
         reflectance_offset: args.reflectance_offset,
         zero_is_nodata: args.zero_is_nodata,
         compression: args.compression,
+        ground: args.ground.section(),
     };
     if let Some(date) = &args.date {
         terrastack::batch::manifest::check_date(date).map_err(|problem| {

@@ -23,6 +23,11 @@ pub fn run(args: Args) -> Result<()> {
                         "edges": d.edges })
             })
             .collect();
+        rows.extend(terrastack::ground::bands::catalogue().iter().map(|d| {
+            json!({ "word": d.word, "feature": d.feature, "kind": "ground", "units": d.units,
+                    "method": d.method, "formula": d.formula, "reference": d.reference,
+                    "edges": d.edges })
+        }));
         rows.push(json!({ "word": "reflectance", "feature": "reflectance", "kind": "spectral",
             "units": "unitless", "method": "", "formula": "stored · scale + offset, per mapped band",
             "reference": "" }));
@@ -43,6 +48,17 @@ pub fn run(args: Args) -> Result<()> {
     );
     println!();
     for d in &terrain_docs {
+        println!("  {:<24} {:<9} {}", d.word, d.units, d.method);
+        println!("  {:<24} {}", "", d.formula);
+        println!("  {:<24} {}", "", d.reference);
+        println!("  {:<24} edges and holes: {}", "", d.edges);
+        println!();
+    }
+    println!(
+        "Ground and height (the ground filter's settings: --ground-* flags, [ground] in a recipe):"
+    );
+    println!();
+    for d in terrastack::ground::bands::catalogue() {
         println!("  {:<24} {:<9} {}", d.word, d.units, d.method);
         println!("  {:<24} {}", "", d.formula);
         println!("  {:<24} {}", "", d.reference);

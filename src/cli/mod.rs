@@ -9,6 +9,7 @@ mod batch;
 pub mod build;
 mod demo;
 mod features;
+pub mod ground_args;
 mod info;
 mod sample;
 mod verify;

@@ -421,13 +421,15 @@ fn max_abs<T: terrain::DsmSample>(z: &Array2<T>) -> f64 {
 }
 
 /// The terrain bands of block `w` from its padded DSM block `z` (with the halo, at the
-/// precision it was read in), with the block's elevation-range count and its largest |z|.
+/// precision it was read in), with the block's elevation-range count, its largest |z|, and
+/// the padded block in metres (f64, after the z factor) when the ground filter needs it.
+type TerrainBlock = (Vec<Array2<f32>>, RangeCount, f64, Option<Array2<f64>>);
 fn terrain_of_block<T: terrain::DsmSample>(
     plan: &StackPlan,
     z: &Array2<T>,
     w: Window,
     cells: &crate::grid::CellSizes,
-) -> (Vec<Array2<f32>>, RangeCount, f64) {
+) -> TerrainBlock {
     let out = terrain::compute(
         &plan.terrain,
         z.view(),
@@ -436,7 +438,47 @@ fn terrain_of_block<T: terrain::DsmSample>(
         plan.reference_z,
         &plan.terrain_params,
     );
-    (out, dsm_range_count(plan, z, w), max_abs(z))
+    let zf = plan.terrain_params.z_factor;
+    let metres = plan.ground.as_ref().map(|_| z.mapv(|v| v.into() * zf));
+    (out, dsm_range_count(plan, z, w), max_abs(z), metres)
+}
+
+/// The ground bands of the stack (in band order) over block `w`, from the padded DSM block
+/// in metres: NDVI guidance reads red and NIR over the padded block.
+fn ground_of_block(
+    plan: &StackPlan,
+    metres: &Array2<f64>,
+    padded: Window,
+    cells: &crate::grid::CellSizes,
+) -> Result<Vec<Array2<f32>>> {
+    let Some(g) = &plan.ground else {
+        return Ok(Vec::new());
+    };
+    let wanted: Vec<crate::ground::bands::GroundBand> = plan
+        .bands
+        .iter()
+        .filter_map(|b| match &b.producer {
+            Producer::Ground(band) => Some(band.clone()),
+            _ => None,
+        })
+        .collect();
+    let excluded = match g.params.ndvi_max {
+        Some(max) => {
+            let r = read_reflectance(plan, padded)?;
+            let ndvi = spectral::find_index("ndvi")?.compute(&r)?;
+            Some(ndvi.mapv(|v| v as f64 > max))
+        }
+        None => None,
+    };
+    Ok(crate::ground::bands::compute_block(
+        g,
+        metres.view(),
+        cells,
+        plan.halo,
+        excluded.as_ref().map(|e| e.view()),
+        (&plan.terrain_params, plan.reference_z),
+        &wanted,
+    ))
 }
 
 /// Compute every band of the stack over block `w`, with the block's plausibility counts
@@ -445,12 +487,13 @@ fn terrain_of_block<T: terrain::DsmSample>(
 fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Checks, f64)> {
     let mut checks = Checks::new(plan);
     let mut terrain_out: Vec<Option<Array2<f32>>> = Vec::new();
+    let mut ground_out: Vec<Option<Array2<f32>>> = Vec::new();
     let mut block_max_z = 0.0;
-    if !plan.terrain.is_empty() {
+    if !plan.terrain.is_empty() || plan.ground.is_some() {
         let padded = w.grow(plan.halo);
         let cells = plan.target.cell_sizes(padded.row, padded.height)?;
         // float64 (and 32-bit integer) DSMs stay exact until the f32 output.
-        let (out, dsm_count, max_z) = if plan.dsm_reads_f64() {
+        let (out, dsm_count, max_z, metres) = if plan.dsm_reads_f64() {
             let z = if plan.dsm_on_target {
                 plan.dsm.read_window_f64(plan.dsm_band, padded)?
             } else {
@@ -480,7 +523,14 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Check
         checks.dsm = dsm_count;
         block_max_z = max_z;
         terrain_out = out.into_iter().map(Some).collect();
+        if let Some(m) = metres {
+            ground_out = ground_of_block(plan, &m, padded, &cells)?
+                .into_iter()
+                .map(Some)
+                .collect();
+        }
     }
+    let mut ground_next = ground_out.iter_mut();
     let reflectance = if plan.needs_spectral() {
         let r = read_reflectance(plan, w)?;
         for (count, input) in checks.reflectance.iter_mut().zip(&plan.spectral) {
@@ -509,6 +559,10 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Check
             Producer::Expression(expr) => {
                 expr.eval(reflectance.as_ref().expect("spectral read"))?
             }
+            Producer::Ground(_) => ground_next
+                .next()
+                .and_then(Option::take)
+                .expect("each ground output feeds one band, in band order"),
         };
         out.push(data);
     }
@@ -633,7 +687,7 @@ impl Checks {
     /// Refuse the build when the counts so far prove it; warnings once `complete`.
     fn verdict(&self, plan: &StackPlan, grid_cells: u64, complete: bool) -> Result<Vec<String>> {
         let mut warnings = Vec::new();
-        if !plan.terrain.is_empty() {
+        if !plan.terrain.is_empty() || plan.ground.is_some() {
             warnings.extend(plausibility::check_elevations(
                 &plan.recipe.dsm,
                 &self.dsm,

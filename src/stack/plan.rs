@@ -13,6 +13,7 @@ use std::sync::Arc;
 use crate::align::{self, Resampling};
 use crate::error::{Error, Result};
 use crate::grid::{CrsKind, Grid, Window};
+use crate::ground::bands::{self as ground_bands, GroundBand, GroundPlan};
 use crate::raster::{self, RasterSource, SampleType};
 use crate::spectral::{self, BandSource, Expression, PerBand, Role, SpectralIndex};
 use crate::stack::plausibility;
@@ -31,6 +32,8 @@ pub enum Producer {
     Index(&'static SpectralIndex),
     /// A user band-math expression.
     Expression(Expression),
+    /// A band of the ground filter (dtm, height, ground mask, distance, terrain on the dtm).
+    Ground(GroundBand),
 }
 
 /// One band of the stack: what produces it, its preview ramp, and its `stack.json` record.
@@ -106,6 +109,8 @@ pub struct StackPlan {
     pub alpha: Option<AlphaBand>,
     pub terrain: Vec<TerrainFeature>,
     pub terrain_params: TerrainParams,
+    /// The ground filter, when a ground band is asked for.
+    pub ground: Option<GroundPlan>,
     pub bands: Vec<BandPlan>,
     /// Cells of context every terrain block needs on each side.
     pub halo: usize,
@@ -213,9 +218,21 @@ impl StackPlan {
         let (hx_max, hy_max) = largest_cell(&target)?;
         let mut terrain_features: Vec<TerrainFeature> = Vec::new();
         let mut bands: Vec<BandPlan> = Vec::new();
+        let mut ground: Option<GroundPlan> = None;
         for word in &recipe.features {
             let w = word.trim().to_ascii_lowercase();
-            if w == "reflectance" {
+            if GroundBand::from_word(&w).is_some() || ground_bands::on_dtm_word(&w).is_some() {
+                let g = ground.get_or_insert_with(|| new_ground_plan(&recipe, &target, hx.min(hy)));
+                bands.extend(ground_band_plans(
+                    &w,
+                    g,
+                    &recipe,
+                    shape,
+                    (hx, hy),
+                    (hx_max, hy_max),
+                    &target,
+                )?);
+            } else if w == "reflectance" {
                 for input in &spectral_inputs {
                     bands.push(reflectance_band(input, recipe.resampling));
                 }
@@ -250,7 +267,7 @@ impl StackPlan {
                             Error::Usage { problem, fix } => Error::Usage {
                                 problem,
                                 fix: Some(format!(
-                                    "{}; spectral words: reflectance, indices, {}",
+                                    "{}; ground words: dtm, height, ground, ground_distance, WORD@dtm; spectral words: reflectance, indices, {}",
                                     fix.unwrap_or_default(),
                                     names.join(", ")
                                 )),
@@ -353,13 +370,17 @@ impl StackPlan {
         let halo = terrain_features
             .iter()
             .map(|f| f.halo_px(hx, hy))
+            .chain(ground.as_ref().map(GroundPlan::halo))
             .max()
             .unwrap_or(0);
+        if let Some(g) = &ground {
+            check_ground_guidance(g, &mapped)?;
+        }
         let reference_z = reference_elevation(
             dsm.as_ref(),
             dsm_band,
             recipe.z_factor,
-            recipe.allow_any_elevation || terrain_features.is_empty(),
+            recipe.allow_any_elevation || (terrain_features.is_empty() && ground.is_none()),
         )?;
         Ok(StackPlan {
             recipe,
@@ -372,6 +393,7 @@ impl StackPlan {
             alpha,
             terrain: terrain_features,
             terrain_params,
+            ground,
             bands,
             halo,
             reference_z,
@@ -382,7 +404,7 @@ impl StackPlan {
     pub fn needs_spectral(&self) -> bool {
         self.bands
             .iter()
-            .any(|b| !matches!(b.producer, Producer::Terrain(_)))
+            .any(|b| !matches!(b.producer, Producer::Terrain(_) | Producer::Ground(_)))
     }
 
     /// Bytes one block of `block` x `block` cells needs while it is computed: the DSM
@@ -403,12 +425,25 @@ impl StackPlan {
             .iter()
             .filter_map(|f| f.scale_m().map(|s| s.to_bits()))
             .collect();
-        let terrain = if self.terrain.is_empty() {
+        let terrain = if self.terrain.is_empty() && self.ground.is_none() {
             0
         } else {
             padded.saturating_mul(
                 (dsm_cell + 48u64).saturating_add(96u64.saturating_mul(scales.len() as u64)),
             )
+        };
+        // The ground filter: about sixteen 8-byte arrays of the padded block (minimum
+        // surface, openings, erosion, the running extrema's arrays, dtm, height, distance,
+        // gradient, masks), and the padded reflectance when NDVI guides it.
+        let ground = match &self.ground {
+            None => 0,
+            Some(g) => padded.saturating_mul(
+                128 + if g.params.ndvi_max.is_some() {
+                    4 * (2 * self.spectral.len() as u64 + 3)
+                } else {
+                    0
+                },
+            ),
         };
         let spectral = if self.needs_spectral() {
             cells.saturating_mul(4 * (2 * self.spectral.len() as u64 + 2))
@@ -416,6 +451,7 @@ impl StackPlan {
             0
         };
         terrain
+            .saturating_add(ground)
             .saturating_add(spectral)
             .saturating_add(cells.saturating_mul(8 * self.bands.len() as u64))
     }
@@ -487,7 +523,8 @@ impl StackPlan {
 }
 
 /// Refuse a band-math name that is, or begins with, a built-in word: a terrain feature
-/// word (`slope`, `tpi`, …, so also `slope_horn`, `tpi_r5m`), a catalogue index (`ndvi`,
+/// word (`slope`, `tpi`, …, so also `slope_horn`, `tpi_r5m`), a ground word (`dtm`, `height`,
+/// `ground`), a catalogue index (`ndvi`,
 /// also the multi-temporal `ndvi_mean`), `reflectance` (`reflectance_nir`) or `indices`.
 /// Such a band would hide a built-in band or be hidden by it.
 fn check_expression_name(name: &str) -> Result<()> {
@@ -508,7 +545,8 @@ fn check_expression_name(name: &str) -> Result<()> {
         .iter()
         .map(|(w, _)| *w)
         .chain(spectral::catalogue().iter().map(|i| i.name))
-        .chain(["reflectance", "indices"]);
+        .chain(["reflectance", "indices"])
+        .chain(["dtm", "height", "ground"]);
     for word in builtin {
         if lower == word || lower.starts_with(&format!("{word}_")) {
             return Err(Error::usage(format!(
@@ -922,4 +960,115 @@ fn ramp_for(feature: &str) -> RampKind {
         | "gaussian_curvature" => RampKind::Diverging,
         _ => RampKind::Sequential,
     }
+}
+
+/// The ground filter's plan from the recipe's `[ground]` settings, on `target` whose
+/// smallest cell size is `h` metres.
+fn new_ground_plan(recipe: &Recipe, target: &Grid, h: f64) -> GroundPlan {
+    let params = recipe.ground.params();
+    // Beyond the raster's longer side a padded block holds the whole raster: more halo
+    // changes nothing.
+    let filter_halo = params.halo_px(h).min(target.width.max(target.height));
+    GroundPlan {
+        params,
+        h_min: h,
+        filter_halo,
+        dtm_features: Vec::new(),
+        dtm_halo: 0,
+    }
+}
+
+/// The bands of one ground word (`dtm`, `height`, `ground`, `ground_distance` or
+/// `WORD@dtm`), adding any terrain features on the DTM to `g`.
+fn ground_band_plans(
+    w: &str,
+    g: &mut GroundPlan,
+    recipe: &Recipe,
+    shape: crate::terrain::WindowShape,
+    (hx, hy): (f64, f64),
+    (hx_max, hy_max): (f64, f64),
+    target: &Grid,
+) -> Result<Vec<BandPlan>> {
+    let mut extra = serde_json::Map::new();
+    extra.insert("ground_filter".into(), g.record());
+    if let Some(band) = GroundBand::from_word(w) {
+        let (name, units) = band.name_and_units().expect("a filter band");
+        return Ok(vec![BandPlan {
+            producer: Producer::Ground(band),
+            ramp: RampKind::Sequential,
+            meta: band_record(
+                name.into(),
+                name.into(),
+                Some("smrf".into()),
+                None,
+                None,
+                units,
+                "dsm".into(),
+                extra,
+            ),
+        }]);
+    }
+    let word = ground_bands::on_dtm_word(w).expect("a WORD@dtm word");
+    let features = terrain::expand(&[word.to_string()], &recipe.scales_m)?;
+    let mut out = Vec::new();
+    for feature in features {
+        if let Some(r) = feature.scale_m() {
+            terrain::validate_window_radius(
+                r,
+                &format!("`{w}` in the feature list"),
+                hx_max,
+                hy_max,
+            )?;
+        }
+        let (wx, wy) = feature.window_px(hx, hy);
+        check_window_fits(&feature, (wx, wy), (hx, hy), target)?;
+        let index = match g.dtm_features.iter().position(|f| f == &feature) {
+            Some(i) => i,
+            None => {
+                g.dtm_features.push(feature.clone());
+                g.dtm_features.len() - 1
+            }
+        };
+        g.dtm_halo = g.dtm_halo.max(feature.halo_px(hx, hy));
+        let method = feature.method_with_shape(shape);
+        let mut extra = extra.clone();
+        extra.insert(
+            "edge_rule".into(),
+            terrain::catalogue::edge_rule(feature.feature_key(), method.as_deref().unwrap_or(""))
+                .into(),
+        );
+        out.push(BandPlan {
+            producer: Producer::Ground(GroundBand::OnDtm(index)),
+            ramp: ramp_for(feature.feature_key()),
+            meta: band_record(
+                format!("{}_dtm", feature.band_name()),
+                feature.feature_key().to_string(),
+                method,
+                feature.scale_m(),
+                feature.scale_m().map(|_| 2 * wx.max(wy) + 1),
+                feature.units(),
+                "dtm".into(),
+                extra,
+            ),
+        });
+    }
+    Ok(out)
+}
+
+/// NDVI guidance needs the red and near-infrared bands.
+fn check_ground_guidance(g: &GroundPlan, mapped: &[Role]) -> Result<()> {
+    if g.params.ndvi_max.is_none() {
+        return Ok(());
+    }
+    for role in [Role::Red, Role::Nir] {
+        if !mapped.contains(&role) {
+            return Err(Error::usage(format!(
+                "NDVI guidance of the ground filter needs the `{role}` band, which is not mapped"
+            ))
+            .with_fix(format!(
+                "map it with --ortho FILE --bands {role}=N or --band {role}=FILE, or drop --ground-ndvi/--ground-ndvi-max"
+            )));
+        }
+    }
+    Ok(())
 }

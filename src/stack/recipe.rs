@@ -31,6 +31,16 @@
 //!
 //! [output]
 //! compression = "deflate"                       # or "zstd"
+//!
+//! [ground]                                      # the ground filter (dtm, height, ground)
+//! max_object_m = 20.0                           # width of the widest object removed
+//! slope = 0.15                                  # slope threshold, rise over run
+//! elevation_threshold_m = 0.5
+//! slope_scale_m = 1.25                          # elevation scaling factor
+//! window = "square"                             # or "disc"
+//! reach_m = 20.0                                # default: max_object_m
+//! ndvi = false                                  # NDVI guidance (needs red and nir) …
+//! ndvi_max = 0.5                                # … or guidance at this threshold
 //! ```
 //!
 //! Flags override the recipe key by key; the merged result is a [`Recipe`] whose every
@@ -92,6 +102,9 @@ pub struct RecipeFile {
     /// The file it was read from (errors about its values name it); not a key.
     #[serde(skip)]
     pub path: Option<PathBuf>,
+    /// The ground filter's settings (`crate::ground::settings`).
+    #[serde(default)]
+    pub ground: crate::ground::settings::GroundSection,
 }
 
 #[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
@@ -203,6 +216,8 @@ pub struct RecipeFlags {
     pub reflectance_offset: Option<String>,
     pub zero_is_nodata: bool,
     pub compression: Option<OutputCompression>,
+    /// `--ground-*` flags.
+    pub ground: crate::ground::settings::GroundSection,
 }
 
 /// A fully resolved recipe: every choice explicit. Recorded in `stack.json`.
@@ -241,6 +256,9 @@ pub struct Recipe {
     pub extent: ExtentRule,
     pub resampling: Resampling,
     pub compression: OutputCompression,
+    /// The ground filter's settings (used when a ground band is asked for).
+    #[serde(default)]
+    pub ground: crate::ground::settings::GroundSettings,
 }
 
 impl Recipe {
@@ -392,6 +410,7 @@ impl Recipe {
             extent,
             resampling: flags.resampling.or(f.grid.resampling).unwrap_or_default(),
             compression,
+            ground: crate::ground::settings::GroundSettings::resolve(&f.ground, &flags.ground)?,
         })
     }
 }
