@@ -295,7 +295,7 @@ fn run(
     let text = serde_json::to_string_pretty(&metadata).expect("stack metadata serialises");
     std::fs::write(&json_path, text + "\n").map_err(|e| Error::io(&json_path, e))?;
     let date = options.date.as_deref();
-    let no_item = super::stac::add_item(
+    let (item, no_item) = super::stac::add_item(
         &mut out,
         &metadata,
         &plan.target,
@@ -309,7 +309,7 @@ fn run(
     }
     let dir = out.dir().to_path_buf();
     out.commit()?;
-    if no_item.is_some() {
+    if !item {
         super::stac::remove_stale_item(&dir)?;
     }
     Ok(BuildReport {
