@@ -418,13 +418,14 @@ pub fn write_temporal(
         .first()
         .map(String::as_str)
         .zip(dates.last().map(String::as_str));
-    let no_item = crate::stack::stac::add_item(&mut dir, &metadata, grid, &tif_path, span, false)?;
+    let (item, no_item) =
+        crate::stack::stac::add_item(&mut dir, &metadata, grid, &tif_path, span, false)?;
     if let Some(w) = &no_item {
         eprintln!("warning: {w}");
     }
     let folder = dir.dir().to_path_buf();
     dir.commit()?;
-    if no_item.is_some() {
+    if !item {
         crate::stack::stac::remove_stale_item(&folder)?;
     }
     Ok(metadata)

@@ -280,7 +280,7 @@ fn run(
     preview.write_png(&png_path, &plan.target, &heading, &metadata.bands)?;
     metadata.write_to(&out.temp_path("stack.json"))?;
     let date = options.date.as_deref();
-    let no_item = super::stac::add_item(
+    let (item, no_item) = super::stac::add_item(
         &mut out,
         &metadata,
         &plan.target,
@@ -294,7 +294,7 @@ fn run(
     }
     let dir = out.dir().to_path_buf();
     out.commit()?;
-    if no_item.is_some() {
+    if !item {
         super::stac::remove_stale_item(&dir)?;
     }
     Ok(BuildReport {

@@ -221,7 +221,9 @@ pub fn item(
 }
 
 /// Write the Item of a stack being built into `out` (a temporary file committed with the
-/// stack), or print why none is written. `tif` is the temporary path of its stack.tif.
+/// stack). `tif` is the temporary path of its stack.tif. Returns whether an Item was
+/// written, and a warning when one is missing for a reason other than an unknown date (an
+/// undated stack has no Item, as `--help` says, without a warning).
 pub fn add_item(
     out: &mut super::output::OutputDir,
     metadata: &StackMetadata,
@@ -229,7 +231,10 @@ pub fn add_item(
     tif: &Path,
     dates: Option<(&str, &str)>,
     preview: bool,
-) -> Result<Option<String>> {
+) -> Result<(bool, Option<String>)> {
+    if dates.is_none() {
+        return Ok((false, None));
+    }
     let id = out
         .dir()
         .file_name()
@@ -240,9 +245,9 @@ pub fn add_item(
             let path = out.temp_path(ITEM_FILE);
             let text = serde_json::to_string_pretty(&v).expect("item serialises") + "\n";
             std::fs::write(&path, text).map_err(|e| Error::io(&path, e))?;
-            Ok(None)
+            Ok((true, None))
         }
-        Err(warning) => Ok(Some(warning)),
+        Err(warning) => Ok((false, Some(warning))),
     }
 }
 
