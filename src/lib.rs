@@ -12,7 +12,9 @@
 //! - [`raster`]: windowed readers and the GeoTIFF writer (pure Rust; GDAL with `gdal`).
 //! - [`terrain`]: terrain derivatives, one module per family, each citing its method.
 //! - [`spectral`]: band roles, reflectance scaling, the index catalogue, band math.
-//! - [`align`]: resampling every input onto the target grid.
+//! - [`target_grid`]: the one grid every layer is computed on.
+//! - [`resample`]: resampling kernels onto windows of the target grid.
+//! - [`align`]: the earlier names of the target grid and resampling, re-exported.
 //! - [`stack`]: the recipe, the block plan, the executor and the stack's metadata.
 //! - [`verify`]: closed-form test surfaces and error tables.
 //! - [`sample`]: training tables at labelled samples, with honest folds.
@@ -30,9 +32,11 @@ pub mod input_guard;
 pub mod output_lock;
 pub mod random;
 pub mod raster;
+pub mod resample;
 pub mod sample;
 pub mod spectral;
 pub mod stack;
+pub mod target_grid;
 pub mod terrain;
 pub mod verify;
 

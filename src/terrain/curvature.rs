@@ -24,7 +24,7 @@
 //! a noisy DSM gave |kc| above 10⁴ 1/m. H and K need no direction and are defined
 //! everywhere. Pointwise, O(1) per cell.
 
-use super::derivatives::Pqrst;
+use super::pqrst::Pqrst;
 
 /// How many standard errors the gradient must exceed for kn, kt and kc to be defined: 2,
 /// the usual two-sigma rule (common practice). On pure noise over a 3x3 window the share

@@ -25,29 +25,9 @@ use ndarray::{Array2, ArrayView2, Zip};
 use rayon::prelude::*;
 
 use super::arctan::select;
+pub use super::pqrst::Pqrst;
 use super::{curvature, slope, DsmSample, RowSizes, SlopeMethod};
 use crate::terrain::roughness::tri_3x3;
-
-/// Partial derivatives at one cell (units: p, q unitless; r, s, t in 1/m).
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub struct Pqrst {
-    pub p: f64,
-    pub q: f64,
-    pub r: f64,
-    pub s: f64,
-    pub t: f64,
-}
-
-impl Pqrst {
-    /// All NaN.
-    pub const NAN: Pqrst = Pqrst {
-        p: f64::NAN,
-        q: f64::NAN,
-        r: f64::NAN,
-        s: f64::NAN,
-        t: f64::NAN,
-    };
-}
 
 /// Partial derivatives over a region, one array each (NaN where unavailable), and the
 /// squared gradient below which the slope direction is undefined at each cell

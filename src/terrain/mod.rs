@@ -37,6 +37,7 @@ pub mod derivatives;
 pub mod feature;
 pub mod params;
 pub mod position;
+pub mod pqrst;
 pub mod precision;
 pub mod quadratic_fit;
 pub mod radius;

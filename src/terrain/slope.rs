@@ -12,7 +12,7 @@
 //! machine), and the functions are branch-free so row loops vectorise.
 
 use super::arctan::{self, select};
-use super::derivatives::Pqrst;
+use super::pqrst::Pqrst;
 
 /// Slope angle in degrees, atan(√(p² + q²)).
 #[inline]

@@ -179,6 +179,19 @@ pub fn expand(words: &[String], scales_m: &[f64]) -> Result<Vec<TerrainFeature>>
     Ok(out)
 }
 
+impl TerrainFeature {
+    /// Features from a comma-separated list of words, each windowed word carrying its
+    /// radius as `@METRES` (e.g. `"slope,tpi@5,slope:quadratic@2.5"`).
+    pub fn parse(text: &str) -> Result<Vec<TerrainFeature>> {
+        let words: Vec<String> = text
+            .split(',')
+            .map(|w| w.trim().to_string())
+            .filter(|w| !w.is_empty())
+            .collect();
+        expand(&words, &[])
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
