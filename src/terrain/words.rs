@@ -83,6 +83,19 @@ fn quantities_of(base: &str) -> Option<Vec<Quantity>> {
 /// roughness_detrended, vrm, relative_elevation, local_relief, and any `:quadratic`
 /// derivative) expand over `scales_m` (radii in metres) unless they carry `@METRES`.
 /// Duplicates are dropped, order is kept. An unknown word is an error listing the valid ones.
+///
+/// ```
+/// use terrastack::terrain::expand;
+///
+/// let words = ["slope:zt".to_string(), "tpi".to_string(), "vrm@2".to_string()];
+/// let names: Vec<String> = expand(&words, &[1.0, 5.0])
+///     .unwrap()
+///     .iter()
+///     .map(|f| f.band_name())
+///     .collect();
+/// assert_eq!(names, ["slope_zevenbergen_thorne", "tpi_r1m", "tpi_r5m", "vrm_r2m"]);
+/// assert!(expand(&["slop".to_string()], &[]).is_err());
+/// ```
 pub fn expand(words: &[String], scales_m: &[f64]) -> Result<Vec<TerrainFeature>> {
     for &s in scales_m {
         check_radius_value(s, "--scales")?;
