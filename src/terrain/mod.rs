@@ -41,6 +41,7 @@ pub mod pqrst;
 pub mod precision;
 pub mod quadratic_fit;
 pub mod radius;
+pub mod relief_position;
 pub mod roughness;
 pub mod running_extrema;
 pub mod schedule;

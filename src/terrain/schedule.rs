@@ -527,7 +527,8 @@ mod tests {
     fn flat_surface() {
         // A flat surface: slope 0, aspect NaN, northness = eastness = 0, curvatures 0 or
         // NaN (kn, kt, kc undefined where the gradient vanishes), TPI, roughness, TRI,
-        // VRM, relative elevation and local relief 0, DEV 0 (documented rule).
+        // VRM, relative elevation and local relief 0, DEV 0 (documented rule); relief
+        // position NaN (a flat window has no position, documented rule).
         let z = Array2::from_elem((15, 15), 42.0f32);
         let feats = all_features(2.0);
         let out = compute(
@@ -545,7 +546,8 @@ mod tests {
                 Quantity::Aspect
                 | Quantity::ProfileCurvature
                 | Quantity::PlanCurvature
-                | Quantity::TangentialCurvature => {
+                | Quantity::TangentialCurvature
+                | Quantity::ReliefPosition => {
                     assert!(v.is_nan(), "{} = {v}", f.band_name())
                 }
                 _ => assert_eq!(v, 0.0, "{}", f.band_name()),

@@ -268,6 +268,7 @@ mod tests {
                 "vrm",
                 "relative_elevation",
                 "local_relief",
+                "relief_position",
             ]
         );
     }
