@@ -11,6 +11,7 @@ use serde::{Deserialize, Serialize};
 use crate::error::{Error, Result};
 use crate::grid::Grid;
 
+/// Which extent the target grid covers.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize, Default)]
 #[serde(rename_all = "lowercase")]
 pub enum ExtentRule {

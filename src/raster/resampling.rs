@@ -45,8 +45,6 @@ impl Resampling {
     }
 }
 
-/// Which extent the target grid covers.
-
 #[cfg(test)]
 mod tests {
     use super::*;
