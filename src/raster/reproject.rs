@@ -4,7 +4,9 @@
 use ndarray::Array2;
 
 use super::{RasterSource, Resampling};
-use crate::error::{Error, Result};
+#[cfg(not(feature = "gdal"))]
+use crate::error::Error;
+use crate::error::Result;
 use crate::grid::{Grid, Window};
 
 /// Band `band` of `source` (in another CRS than `target`) warped onto `window` of
