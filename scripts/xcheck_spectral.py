@@ -199,7 +199,7 @@ def gen_resample(root):
         for mname, method in methods.items():
             dst = np.full((th, tw), np.nan, dtype=np.float32)
             # XSCALE/YSCALE = 1 keep GDAL's bilinear and cubic kernels unstretched when
-            # going coarser, which is what terrastack computes (see src/align.rs).
+            # going coarser, which is what terrastack computes (see src/resample.rs).
             options = {"XSCALE": 1, "YSCALE": 1} if mname in ("bilinear", "cubic") else {}
             reproject(
                 source=z,

@@ -164,20 +164,8 @@ impl Crs {
         }
     }
 
-    /// Whether two CRSs are the same. Equal EPSG codes decide at once; different codes
-    /// mean different CRSs. Otherwise (a code missing on either side) the `gdal` feature
-    /// compares through GDAL's spatial-reference API (`raster::gdal::same_crs`); without it,
-    /// equal WKT texts are the same and unknown CRSs only equal each other.
-    pub fn same_as(&self, other: &Crs) -> bool {
-        if let (Some(a), Some(b)) = (self.epsg, other.epsg) {
-            return a == b;
-        }
-        #[cfg(feature = "gdal")]
-        if self.kind != CrsKind::Unknown && other.kind != CrsKind::Unknown {
-            return crate::raster::gdal::same_crs(self, other);
-        }
-        self.same_as_without_gdal(other)
-    }
+    // `Crs::same_as` (GDAL's comparison with the `gdal` feature) is in
+    // `raster::crs_equality`: GDAL sits above the grid.
 
     /// [`Crs::same_as`] from what the two values hold alone: equal EPSG codes, else equal
     /// WKT texts; two CRSs with neither (user-defined GeoTIFF CRSs) when they are equal in

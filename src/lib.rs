@@ -16,7 +16,9 @@
 //! - [`ground`]: ground (DTM), height above ground and a ground mask from the DSM (SMRF).
 //! - [`spectral`]: band roles, reflectance scaling, the index catalogue, band math.
 //! - [`texture`]: co-occurrence (Haralick) and first-order texture of a band or index.
-//! - [`align`]: resampling every input onto the target grid.
+//! - [`target_grid`]: the one grid every layer is computed on.
+//! - [`resample`]: resampling kernels onto windows of the target grid.
+//! - [`align`]: the earlier names of the target grid and resampling, re-exported.
 //! - [`stack`]: the recipe, the block plan, the executor and the stack's metadata.
 //! - [`verify`]: closed-form test surfaces and error tables.
 //! - [`sample`]: training tables at labelled samples, with honest folds.
@@ -37,9 +39,11 @@ pub mod output_lock;
 pub mod projjson;
 pub mod random;
 pub mod raster;
+pub mod resample;
 pub mod sample;
 pub mod spectral;
 pub mod stack;
+pub mod target_grid;
 pub mod terrain;
 pub mod texture;
 pub mod verify;

@@ -13,10 +13,17 @@ use serde::{Deserialize, Serialize};
 use crate::error::{Error, Result};
 use crate::grid::{Grid, RasterSpace, Window};
 
+pub mod crs_equality;
 #[cfg(feature = "gdal")]
 pub mod gdal;
 pub mod geotiff;
+pub mod memory;
 pub mod orientation;
+pub mod reproject;
+pub mod resampling;
+
+pub use memory::MemoryRaster;
+pub use resampling::Resampling;
 
 /// The numeric type of a band's samples as stored in the file.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]

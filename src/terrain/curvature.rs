@@ -24,7 +24,7 @@
 //! a noisy DSM gave |kc| above 10⁴ 1/m. H and K need no direction and are defined
 //! everywhere. Pointwise, O(1) per cell.
 
-use super::derivatives::Pqrst;
+use super::pqrst::Pqrst;
 
 /// How many standard errors the gradient must exceed for kn, kt and kc to be defined: 2,
 /// the usual two-sigma rule (common practice). On pure noise over a 3x3 window the share
@@ -48,6 +48,19 @@ fn undirected_nan(g: f64, k: f64) -> f64 {
 }
 
 /// Profile curvature kn (1/m): normal curvature along the slope line; NaN where g = 0.
+///
+/// On z = x − 0.05x² at x = 0 (p = 1, q = 0, r = −0.1, s = t = 0) the slope line is the
+/// curve itself, so kn = −r/(1 + p²)^1.5 = 0.1/2^1.5 (closed form; convex positive), and
+/// the contours are straight, so plan curvature is 0:
+///
+/// ```
+/// use terrastack::terrain::curvature::{plan, profile};
+/// use terrastack::terrain::pqrst::Pqrst;
+///
+/// let d = Pqrst { p: 1.0, q: 0.0, r: -0.1, s: 0.0, t: 0.0 };
+/// assert!((profile(&d) - 0.1 / 2f64.powf(1.5)).abs() < 1e-15);
+/// assert_eq!(plan(&d), 0.0);
+/// ```
 #[inline]
 pub fn profile(d: &Pqrst) -> f64 {
     let g = d.p * d.p + d.q * d.q;
@@ -75,6 +88,20 @@ pub fn plan(d: &Pqrst) -> f64 {
 }
 
 /// Mean curvature H (1/m), the average of the principal curvatures.
+///
+/// At the top of the paraboloid z = −(x² + y²)/(2R) (p = q = 0, r = t = −1/R, s = 0)
+/// both principal curvatures are 1/R, so H = 1/R and K = 1/R² (closed form; convex
+/// positive):
+///
+/// ```
+/// use terrastack::terrain::curvature::{gaussian, mean};
+/// use terrastack::terrain::pqrst::Pqrst;
+///
+/// let r_m = 25.0;
+/// let top = Pqrst { p: 0.0, q: 0.0, r: -1.0 / r_m, s: 0.0, t: -1.0 / r_m };
+/// assert!((mean(&top) - 1.0 / r_m).abs() < 1e-15);
+/// assert!((gaussian(&top) - 1.0 / (r_m * r_m)).abs() < 1e-15);
+/// ```
 #[inline]
 pub fn mean(d: &Pqrst) -> f64 {
     let w = 1.0 + d.p * d.p + d.q * d.q;

@@ -25,29 +25,9 @@ use ndarray::{Array2, ArrayView2, Zip};
 use rayon::prelude::*;
 
 use super::arctan::select;
+pub use super::pqrst::Pqrst;
 use super::{curvature, slope, DsmSample, RowSizes, SlopeMethod};
 use crate::terrain::roughness::tri_3x3;
-
-/// Partial derivatives at one cell (units: p, q unitless; r, s, t in 1/m).
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub struct Pqrst {
-    pub p: f64,
-    pub q: f64,
-    pub r: f64,
-    pub s: f64,
-    pub t: f64,
-}
-
-impl Pqrst {
-    /// All NaN.
-    pub const NAN: Pqrst = Pqrst {
-        p: f64::NAN,
-        q: f64::NAN,
-        r: f64::NAN,
-        s: f64::NAN,
-        t: f64::NAN,
-    };
-}
 
 /// Partial derivatives over a region, one array each (NaN where unavailable), and the
 /// squared gradient below which the slope direction is undefined at each cell
@@ -89,6 +69,27 @@ impl Derivatives {
 
 /// Derivatives from the nine elevations `w` (metres, row-major from the north-west) and
 /// cell sizes `hx`, `hy` (metres). `None` when any cell is not finite.
+///
+/// Every estimator is exact on a plane: z = 0.3x + 0.4y sampled at 2 m cells (x east,
+/// y north, so the north row is 0.8 m higher than the centre row) gives p = 0.3,
+/// q = 0.4 and no second derivatives:
+///
+/// ```
+/// use terrastack::terrain::derivatives::pqrst_3x3;
+/// use terrastack::terrain::SlopeMethod;
+///
+/// let h = 2.0;
+/// let z = |col: f64, row: f64| 0.3 * (col - 1.0) * h - 0.4 * (row - 1.0) * h;
+/// let w: [f64; 9] = std::array::from_fn(|k| z((k % 3) as f64, (k / 3) as f64));
+/// for m in [SlopeMethod::Horn, SlopeMethod::ZevenbergenThorne, SlopeMethod::EvansYoung] {
+///     let d = pqrst_3x3(&w, h, h, m).unwrap();
+///     assert!((d.p - 0.3).abs() < 1e-12 && (d.q - 0.4).abs() < 1e-12, "{m:?}");
+///     assert!(d.r.abs() < 1e-12 && d.s.abs() < 1e-12 && d.t.abs() < 1e-12, "{m:?}");
+/// }
+/// let mut hole = w;
+/// hole[4] = f64::NAN;
+/// assert!(pqrst_3x3(&hole, h, h, SlopeMethod::Horn).is_none());
+/// ```
 pub fn pqrst_3x3(w: &[f64; 9], hx: f64, hy: f64, method: SlopeMethod) -> Option<Pqrst> {
     if w.iter().any(|v| !v.is_finite()) {
         return None;

@@ -6,11 +6,11 @@
 use super::params::{SlopeMethod, WindowShape};
 use super::radius::radius_cells;
 use super::table::{edge_rule, Family, Kernel, Quantity, QuantityRow, EDGES_FIT};
-use crate::error::Result;
 
 /// One output band of terrain analysis. Build it with [`TerrainFeature::new`] (elevation,
 /// 3x3 indices), [`TerrainFeature::windowed`] (window statistics) or
-/// [`TerrainFeature::derivative`], or from words with [`super::words::expand`].
+/// [`TerrainFeature::derivative`], or from words with [`super::words::expand`] and
+/// `TerrainFeature::parse` (in [`super::words`]).
 #[derive(Clone, Debug, PartialEq)]
 pub struct TerrainFeature {
     quantity: Quantity,
@@ -189,17 +189,6 @@ impl TerrainFeature {
     pub fn halo_px(&self, hx: f64, hy: f64) -> usize {
         let (x, y) = self.window_px(hx, hy);
         x.max(y) + self.row().halo_beyond_window
-    }
-
-    /// Features from a comma-separated list of words, each windowed word carrying its
-    /// radius as `@METRES` (e.g. `"slope,tpi@5,slope:quadratic@2.5"`).
-    pub fn parse(text: &str) -> Result<Vec<TerrainFeature>> {
-        let words: Vec<String> = text
-            .split(',')
-            .map(|w| w.trim().to_string())
-            .filter(|w| !w.is_empty())
-            .collect();
-        super::words::expand(&words, &[])
     }
 }
 

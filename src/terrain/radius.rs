@@ -5,6 +5,14 @@ use crate::error::{Error, Result};
 
 /// Window radius in cells for radius `r` metres and cell size `h` metres: ⌊r/h⌋, with a
 /// relative tolerance of 1e-9 so that r = k·h given in decimal counts k cells.
+///
+/// ```
+/// use terrastack::terrain::radius_cells;
+///
+/// assert_eq!(radius_cells(0.3, 0.1), 3); // 0.3/0.1 is 2.9999999999999996 in f64
+/// assert_eq!(radius_cells(2.5, 1.0), 2);
+/// assert_eq!(radius_cells(-1.0, 1.0), 0);
+/// ```
 pub fn radius_cells(r: f64, h: f64) -> usize {
     if !(r.is_finite() && h.is_finite() && h > 0.0 && r > 0.0) {
         return 0;

@@ -59,6 +59,19 @@ pub fn detrended_std(cells: u64, s: &CellSums, min_valid_fraction: f64) -> f64 {
 }
 
 /// TRI (metres) of one 3x3 window `w` (row-major from the north-west, all finite).
+///
+/// Riley et al.'s formula on the window 1..9 (centre 5): Σ(zᵢ − 5)² = 16 + 9 + 4 + 1 + 1 +
+/// 4 + 9 + 16 = 60, so TRI = √60 (hand computation); a plane tilted along x by 1 m per
+/// cell gives √6:
+///
+/// ```
+/// use terrastack::terrain::roughness::tri_3x3;
+///
+/// let w: [f64; 9] = std::array::from_fn(|k| (k + 1) as f64);
+/// assert!((tri_3x3(&w) - 60f64.sqrt()).abs() < 1e-12);
+/// let tilted: [f64; 9] = std::array::from_fn(|k| (k % 3) as f64);
+/// assert!((tri_3x3(&tilted) - 6f64.sqrt()).abs() < 1e-12);
+/// ```
 pub fn tri_3x3(w: &[f64; 9]) -> f64 {
     let z5 = w[4];
     w.iter().map(|v| (v - z5) * (v - z5)).sum::<f64>().sqrt()

@@ -79,6 +79,32 @@ pub fn passes<T: DsmSample>() -> [Pass<T>; 6] {
 ///
 /// The block's halo must be at least [`TerrainFeature::halo_px`] of every feature for the
 /// interior to be complete; cells the window would need beyond the array count as nodata.
+///
+/// On the plane z = 0.3x + 0.4y + 100 at 1 m cells (closed forms): slope atan(0.5); TPI 0;
+/// and over a square window of radius 2 m (5 x 5 cells), local relief
+/// 2·2 m·(0.3 + 0.4) = 2.8 m and relative elevation half of it:
+///
+/// ```
+/// use ndarray::Array2;
+/// use terrastack::grid::CellSizes;
+/// use terrastack::terrain::{compute, expand, TerrainParams, WindowShape};
+///
+/// let words: Vec<String> = ["slope", "tpi@2", "local_relief@2", "relative_elevation@2"]
+///     .iter()
+///     .map(|w| w.to_string())
+///     .collect();
+/// let features = expand(&words, &[]).unwrap();
+/// let halo = features.iter().map(|f| f.halo_px(1.0, 1.0)).max().unwrap();
+/// // Row i lies at y = −i (rows run south), column j at x = j.
+/// let z = Array2::from_shape_fn((9, 9), |(i, j)| 0.3 * j as f32 - 0.4 * i as f32 + 100.0);
+/// let params = TerrainParams { shape: WindowShape::Square, ..TerrainParams::default() };
+/// let out = compute(&features, z.view(), &CellSizes::uniform(1.0, 1.0, 9), halo, 100.0, &params);
+/// let centre = |k: usize| out[k][[2, 2]] as f64;
+/// assert!((centre(0) - 0.5f64.atan().to_degrees()).abs() < 1e-4);
+/// assert!(centre(1).abs() < 1e-5);
+/// assert!((centre(2) - 2.8).abs() < 1e-4);
+/// assert!((centre(3) - 1.4).abs() < 1e-4);
+/// ```
 pub fn compute<T: DsmSample>(
     features: &[TerrainFeature],
     z: ArrayView2<T>,
@@ -501,7 +527,8 @@ mod tests {
     fn flat_surface() {
         // A flat surface: slope 0, aspect NaN, northness = eastness = 0, curvatures 0 or
         // NaN (kn, kt, kc undefined where the gradient vanishes), TPI, roughness, TRI,
-        // VRM, relative elevation and local relief 0, DEV 0 (documented rule).
+        // VRM, relative elevation and local relief 0, DEV 0 (documented rule); relief
+        // position NaN (a flat window has no position, documented rule).
         let z = Array2::from_elem((15, 15), 42.0f32);
         let feats = all_features(2.0);
         let out = compute(
@@ -519,7 +546,8 @@ mod tests {
                 Quantity::Aspect
                 | Quantity::ProfileCurvature
                 | Quantity::PlanCurvature
-                | Quantity::TangentialCurvature => {
+                | Quantity::TangentialCurvature
+                | Quantity::ReliefPosition => {
                     assert!(v.is_nan(), "{} = {v}", f.band_name())
                 }
                 _ => assert_eq!(v, 0.0, "{}", f.band_name()),

@@ -12,9 +12,20 @@
 //! machine), and the functions are branch-free so row loops vectorise.
 
 use super::arctan::{self, select};
-use super::derivatives::Pqrst;
+use super::pqrst::Pqrst;
 
 /// Slope angle in degrees, atan(√(p² + q²)).
+///
+/// On the plane z = 0.3x + 0.4y (p = 0.3, q = 0.4) the gradient is 0.5, so the slope is
+/// atan(0.5) = 26.565° (closed form):
+///
+/// ```
+/// use terrastack::terrain::pqrst::Pqrst;
+/// use terrastack::terrain::slope::slope_deg;
+///
+/// let plane = Pqrst { p: 0.3, q: 0.4, r: 0.0, s: 0.0, t: 0.0 };
+/// assert!((slope_deg(&plane) - 0.5f64.atan().to_degrees()).abs() < 1e-12);
+/// ```
 #[inline]
 pub fn slope_deg(d: &Pqrst) -> f64 {
     arctan::atan((d.p * d.p + d.q * d.q).sqrt()).to_degrees()
@@ -22,6 +33,22 @@ pub fn slope_deg(d: &Pqrst) -> f64 {
 
 /// Aspect in degrees clockwise from north, the direction of steepest descent; NaN when
 /// the cell is flat (p = q = 0) or the derivatives are missing.
+///
+/// The plane z = 0.3x + 0.4y rises to the north-east, so it drains south-west:
+/// 180° + atan(0.3/0.4) = 216.87° (closed form); northness = −0.4/0.5, eastness = −0.3/0.5.
+///
+/// ```
+/// use terrastack::terrain::pqrst::Pqrst;
+/// use terrastack::terrain::slope::{aspect_deg, eastness, northness};
+///
+/// let plane = Pqrst { p: 0.3, q: 0.4, r: 0.0, s: 0.0, t: 0.0 };
+/// let expected = 180.0 + (0.3f64 / 0.4).atan().to_degrees();
+/// assert!((aspect_deg(&plane) - expected).abs() < 1e-12);
+/// assert!((northness(&plane) + 0.8).abs() < 1e-15);
+/// assert!((eastness(&plane) + 0.6).abs() < 1e-15);
+/// let flat = Pqrst { p: 0.0, q: 0.0, r: 0.0, s: 0.0, t: 0.0 };
+/// assert!(aspect_deg(&flat).is_nan());
+/// ```
 #[inline]
 pub fn aspect_deg(d: &Pqrst) -> f64 {
     let a = arctan::atan2(-d.p, -d.q).to_degrees();

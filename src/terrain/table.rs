@@ -12,6 +12,7 @@
 
 use super::derivatives::{PointJob, Pointwise};
 use super::position;
+use super::relief_position::relief_position;
 use super::roughness;
 use super::running_extrema::Extrema;
 use super::window_sums::{CellSums, SumOptions};
@@ -38,6 +39,7 @@ pub enum Quantity {
     Vrm,
     RelativeElevation,
     LocalRelief,
+    ReliefPosition,
 }
 
 /// How a quantity is asked for and scaled: the grammar of its word and its window.
@@ -174,6 +176,9 @@ pub const EDGES_DETRENDED: &str = "residuals from the plane through the valid ce
 pub const EDGES_VRM: &str = "normals of the valid cells (each needs its full 3x3 window): 0 on any plane, cut or not; NaN below the valid fraction";
 /// Edge rule of relative elevation and local relief.
 pub const EDGES_EXTREMA: &str = "minimum and maximum of the valid cells only: on a slope a window cut by the edge or nodata reads lower than a full one (not corrected); NaN below the valid fraction";
+
+/// Edge rule of relief position.
+pub const EDGES_RELIEF_POSITION: &str = "minimum and maximum of the valid cells only, as relative_elevation; NaN where the window is flat (maximum = minimum) or below the valid fraction";
 
 /// The undefined rule of kn, kc, kt, shared by their formulas.
 macro_rules! gated {
@@ -435,6 +440,15 @@ pub const QUANTITIES: &[QuantityRow] = &[
         "window maximum − minimum, per scale",
         EDGES_EXTREMA,
         &[doc("local_relief", "disc", "max(window) − min(window)", EXTREMA)],
+    ),
+    window(
+        Quantity::ReliefPosition,
+        "relief_position",
+        "percent",
+        Kernel::Extrema(relief_position),
+        "where z lies between window minimum (0) and maximum (100), per scale",
+        EDGES_RELIEF_POSITION,
+        &[doc("relief_position", "disc", "100 · (z − min(window)) / (max(window) − min(window)); NaN where the window is flat", "percent elevation range, Newman, Lindsay & Cockburn 2018, Geomorphology 312, 40–50")],
     ),
 ];
 

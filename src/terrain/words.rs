@@ -83,6 +83,19 @@ fn quantities_of(base: &str) -> Option<Vec<Quantity>> {
 /// roughness_detrended, vrm, relative_elevation, local_relief, and any `:quadratic`
 /// derivative) expand over `scales_m` (radii in metres) unless they carry `@METRES`.
 /// Duplicates are dropped, order is kept. An unknown word is an error listing the valid ones.
+///
+/// ```
+/// use terrastack::terrain::expand;
+///
+/// let words = ["slope:zt".to_string(), "tpi".to_string(), "vrm@2".to_string()];
+/// let names: Vec<String> = expand(&words, &[1.0, 5.0])
+///     .unwrap()
+///     .iter()
+///     .map(|f| f.band_name())
+///     .collect();
+/// assert_eq!(names, ["slope_zevenbergen_thorne", "tpi_r1m", "tpi_r5m", "vrm_r2m"]);
+/// assert!(expand(&["slop".to_string()], &[]).is_err());
+/// ```
 pub fn expand(words: &[String], scales_m: &[f64]) -> Result<Vec<TerrainFeature>> {
     for &s in scales_m {
         check_radius_value(s, "--scales")?;
@@ -179,6 +192,19 @@ pub fn expand(words: &[String], scales_m: &[f64]) -> Result<Vec<TerrainFeature>>
     Ok(out)
 }
 
+impl TerrainFeature {
+    /// Features from a comma-separated list of words, each windowed word carrying its
+    /// radius as `@METRES` (e.g. `"slope,tpi@5,slope:quadratic@2.5"`).
+    pub fn parse(text: &str) -> Result<Vec<TerrainFeature>> {
+        let words: Vec<String> = text
+            .split(',')
+            .map(|w| w.trim().to_string())
+            .filter(|w| !w.is_empty())
+            .collect();
+        expand(&words, &[])
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -242,6 +268,7 @@ mod tests {
                 "vrm",
                 "relative_elevation",
                 "local_relief",
+                "relief_position",
             ]
         );
     }

@@ -478,7 +478,7 @@ mod tests {
                 1,
                 src.grid(),
                 Window::full(src.grid()),
-                crate::align::Resampling::Nearest,
+                crate::raster::Resampling::Nearest,
             )
             .unwrap();
             for r in 0..3 {

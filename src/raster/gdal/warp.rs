@@ -19,9 +19,9 @@ use ndarray::Array2;
 
 use super::crs::srs_of;
 use super::{gdal_message, open_raster};
-use crate::align::Resampling;
 use crate::error::{Error, Result};
 use crate::grid::{Grid, Window};
+use crate::raster::Resampling;
 
 /// Band `band` (1-based) of the raster at `path`, warped onto `window` of `target` by
 /// GDAL's warper with an exact transformation (error threshold 0).
