@@ -7,6 +7,7 @@
 //! - [`error`]: the one error type; every error names its file, problem and fix.
 //! - [`atomic_file`]: the one atomic write (temporary name, then rename) and stale-partial cleanup.
 //! - [`output_lock`]: exclusive locks on output folders and files.
+//! - [`checksum`]: SHA-256 digests of whole files.
 //! - [`input_guard`]: outputs never overwrite inputs (canonical path and file identity).
 //! - [`grid`]: size, transform, CRS, nodata; cell sizes in metres; windows.
 //! - [`lonlat`]: WGS84 longitude/latitude of grid coordinates (catalogue footprints).
@@ -29,6 +30,7 @@
 pub mod align;
 pub mod atomic_file;
 pub mod batch;
+pub mod checksum;
 pub mod demo_site;
 pub mod error;
 pub mod grid;

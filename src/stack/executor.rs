@@ -14,15 +14,13 @@
 //! so with the same block size (it depends on the largest window, and on the budget only
 //! when the budget is too small for it) the file's bytes are identical too.
 
-use std::fs::File;
-use std::io::{IsTerminal, Read};
-use std::path::{Path, PathBuf};
+use std::io::IsTerminal;
+use std::path::PathBuf;
 use std::time::Instant;
 
 use indicatif::{ProgressBar, ProgressStyle};
 use ndarray::{s, Array2};
 use rayon::prelude::*;
-use sha2::{Digest, Sha256};
 
 use crate::align::{self, Resampling};
 use crate::error::{Error, Result};
@@ -835,24 +833,7 @@ fn hash_sources(plan: &StackPlan) -> Result<Vec<SourceMetadata>> {
         .collect()
 }
 
-/// Hex SHA-256 of a file's bytes, read in 1 MiB pieces.
-pub fn sha256_file(path: &Path) -> Result<String> {
-    let mut file = File::open(path).map_err(|e| Error::io(path, e))?;
-    let mut hasher = Sha256::new();
-    let mut buf = vec![0u8; 1 << 20];
-    loop {
-        let n = file.read(&mut buf).map_err(|e| Error::io(path, e))?;
-        if n == 0 {
-            break;
-        }
-        hasher.update(&buf[..n]);
-    }
-    Ok(hasher
-        .finalize()
-        .iter()
-        .map(|b| format!("{b:02x}"))
-        .collect())
-}
+pub use crate::checksum::sha256_file;
 
 /// Progress on a terminal (bar with rate and time left) or as log lines.
 enum Reporter {

@@ -144,7 +144,7 @@ pub fn item(
         )));
     };
     let size = std::fs::metadata(tif).map_err(|e| Error::io(tif, e))?.len();
-    let sha = super::executor::sha256_file(tif)?;
+    let sha = crate::checksum::sha256_file(tif)?;
     let cells = (grid.width * grid.height) as u64;
     let mut bands = metadata.bands.clone();
     bands.sort_by_key(|b| b.index);
