@@ -14,7 +14,7 @@ use std::path::{Path, PathBuf};
 use ndarray::{s, Array2};
 use serde_json::Value;
 use terrastack::grid::{Crs, Grid};
-use terrastack::terrain::{compute, SlopeMethod, TerrainFeature, TerrainParams};
+use terrastack::terrain::{compute, SlopeMethod, TerrainFeature, TerrainParams, WindowShape};
 
 fn read_f32(path: &Path, rows: usize, cols: usize) -> Array2<f32> {
     let bytes = std::fs::read(path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
@@ -155,8 +155,10 @@ fn jacksboro_matches_numpy_and_scipy() {
     let cells = grid
         .cell_sizes(-(halo as i64), rows + 2 * halo)
         .expect("cell sizes");
+    // The reference computes disc windows (the non-default shape, given explicitly).
     let params = TerrainParams {
         min_valid_fraction: frac,
+        shape: WindowShape::Disc,
         ..TerrainParams::default()
     };
     let out = compute(&feats, padded.view(), &cells, halo, 500.0, &params);

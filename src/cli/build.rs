@@ -61,8 +61,10 @@ pub struct Args {
     /// Extent of the stack: the DSM's, or the intersection of all inputs.
     #[arg(long, value_name = "dsm|intersection")]
     pub extent: Option<String>,
-    /// Window shape of windowed features.
-    #[arg(long, value_name = "disc|square")]
+    /// Window shape of windowed features: square (default; the same cost per cell at any
+    /// radius) or disc (exact disc, cells within the radius; cost grows with the radius,
+    /// about 80x more at 25 m than at 0.5 m on 5 cm cells)
+    #[arg(long, value_name = "square|disc")]
     pub window: Option<String>,
     /// Fraction of a window's cells that must be valid (default 0.75).
     #[arg(long, value_name = "F")]

@@ -19,7 +19,7 @@
 //! [features]
 //! list = ["elevation", "slope", "curvature", "tpi", "ndvi"]   # terrain words and index names
 //! scales_m = [1.0, 5.0]                        # window radii in metres
-//! window = "disc"                              # or "square"
+//! window = "square"                            # or "disc"
 //! min_valid_fraction = 0.75
 //! z_factor = 1.0
 //! expressions = { wet = "(green - nir) / (green + nir)" }
@@ -286,7 +286,7 @@ impl Recipe {
             .window
             .clone()
             .or_else(|| f.features.window.clone())
-            .unwrap_or_else(|| "disc".into());
+            .unwrap_or_else(|| crate::terrain::WindowShape::default().name().into());
         if window != "disc" && window != "square" {
             return Err(Error::usage(format!(
                 "window shape {window:?} is not disc or square"
@@ -417,7 +417,7 @@ mod tests {
     fn defaults_are_explicit() {
         let r = Recipe::resolve(None, &flags_with_dsm()).unwrap();
         assert_eq!(r.scales_m, DEFAULT_SCALES_M);
-        assert_eq!(r.window, "disc");
+        assert_eq!(r.window, "square");
         assert_eq!(r.min_valid_fraction, 0.75);
         assert_eq!(r.resampling, Resampling::Bilinear);
         assert_eq!(r.features.len(), DEFAULT_FEATURES.len());

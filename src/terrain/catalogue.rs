@@ -96,14 +96,14 @@ pub fn catalogue() -> Vec<FeatureDoc> {
         doc("tangential_curvature", "tangential_curvature", "1/m", "evans_young", "kt = −(q²r − 2pqs + p²t)/(g·w^0.5); nodata where √g ≤ 2σp (the gradient within two standard errors of zero; σp from the residual of the local least-squares quadratic, e.g. Evans–Young σp = σ̂/(√6·h), σ̂² = RSS/3); convex positive", CURV),
         doc("mean_curvature", "mean_curvature", "1/m", "evans_young", "H = −((1 + q²)r − 2pqs + (1 + p²)t)/(2w^1.5); convex positive", CURV),
         doc("gaussian_curvature", "gaussian_curvature", "1/m2", "evans_young", "K = (rt − s²)/w²", CURV),
-        doc("tpi", "tpi", "metres", "disc", "z − mean(window)", "Weiss 2001; Guisan et al. 1999, Plant Ecology 143, 107–122, doi:10.1023/A:1009841519580"),
-        doc("dev", "dev", "unitless", "disc", "(z − mean)/std over the window; 0 where the window is flat", "Wilson & Gallant 2000; De Reu et al. 2013, Geomorphology 186, 39–49, doi:10.1016/j.geomorph.2012.12.015"),
-        doc("roughness", "roughness", "metres", "disc", "population std of z over the window", "common practice"),
-        doc("roughness_detrended", "roughness", "metres", "detrended_disc", "population std of residuals from the least-squares plane over the window", "common practice"),
+        doc("tpi", "tpi", "metres", "square", "z − mean(window)", "Weiss 2001; Guisan et al. 1999, Plant Ecology 143, 107–122, doi:10.1023/A:1009841519580"),
+        doc("dev", "dev", "unitless", "square", "(z − mean)/std over the window; 0 where the window is flat", "Wilson & Gallant 2000; De Reu et al. 2013, Geomorphology 186, 39–49, doi:10.1016/j.geomorph.2012.12.015"),
+        doc("roughness", "roughness", "metres", "square", "population std of z over the window", "common practice"),
+        doc("roughness_detrended", "roughness", "metres", "detrended_square", "population std of residuals from the least-squares plane over the window", "common practice"),
         doc("tri", "tri", "metres", "riley", "√(Σ over 8 neighbours (zᵢ − z5)²)", "Riley, DeGloria & Elliot 1999, Intermountain Journal of Sciences 5(1–4), 23–27"),
-        doc("vrm", "vrm", "unitless", "disc", "1 − |Σ n|/N, n = (−p, −q, 1)/√(1 + p² + q²) (Horn p, q)", "Sappington, Longshore & Thompson 2007, J. Wildlife Management 71(5), 1419–1426, doi:10.2193/2005-723"),
-        doc("relative_elevation", "relative_elevation", "metres", "disc", "z − min(window)", "common practice; running extrema after van Herk 1992, Gil & Werman 1993"),
-        doc("local_relief", "local_relief", "metres", "disc", "max(window) − min(window)", "common practice; running extrema after van Herk 1992, Gil & Werman 1993"),
+        doc("vrm", "vrm", "unitless", "square", "1 − |Σ n|/N, n = (−p, −q, 1)/√(1 + p² + q²) (Horn p, q)", "Sappington, Longshore & Thompson 2007, J. Wildlife Management 71(5), 1419–1426, doi:10.2193/2005-723"),
+        doc("relative_elevation", "relative_elevation", "metres", "square", "z − min(window)", "common practice; running extrema after van Herk 1992, Gil & Werman 1993"),
+        doc("local_relief", "local_relief", "metres", "square", "max(window) − min(window)", "common practice; running extrema after van Herk 1992, Gil & Werman 1993"),
     ];
     v.push(doc("curvature:zt", "profile_curvature", "1/m", "zevenbergen_thorne", "all five curvatures with r = (z4 − 2z5 + z6)/hx², t = (z2 − 2z5 + z8)/hy², s = (z3 + z7 − z1 − z9)/(4hx·hy)", ZT));
     v.push(doc("curvature:quadratic", "profile_curvature", "1/m", "quadratic", "all five curvatures from the least-squares quadratic over (2k+1)² cells: r = 2a, t = 2b, s = c", WOOD));

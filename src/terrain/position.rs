@@ -209,8 +209,10 @@ mod tests {
                 TerrainFeature::RelativeElevation { radius_m: r },
                 TerrainFeature::LocalRelief { radius_m: r },
             ];
+            // The reference walks a disc (not the default shape).
             let p = TerrainParams {
                 min_valid_fraction: 0.6,
+                shape: WindowShape::Disc,
                 ..TerrainParams::default()
             };
             let out = compute(
