@@ -493,7 +493,9 @@ mod tests {
         // Ours decoded by flate2 (zlib-rs, an independent implementation), and zlib-rs's
         // decoded by ours, including a stream holding more than its block (cut to it).
         use std::io::Write;
-        let data: Vec<u8> = (0..300_000u32).map(|i| (i % 251 ^ i / 977) as u8).collect();
+        let data: Vec<u8> = (0..300_000u32)
+            .map(|i| ((i % 251) ^ (i / 977)) as u8)
+            .collect();
         let ours = compress(Codec::Deflate, data.clone(), 1000).unwrap();
         let mut back = Vec::new();
         flate2::read::ZlibDecoder::new(&ours[..])
