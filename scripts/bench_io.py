@@ -98,6 +98,11 @@ def main():
           f"{'GDAL all-CPU MB/s':>19}{'ratio':>8}")
     for op, ours, gdal1, gdaln in rows:
         print(f"{op:<22}{ours:>16.1f}{gdal1:>12.1f}{ours / gdal1:>8.2f}{gdaln:>19.1f}{ours / gdaln:>8.2f}")
+    # Issue #13 target 4: read and write at least GDAL's throughput on the same files
+    # (terrastack on all cores against GDAL with NUM_THREADS=ALL_CPUS).
+    for op, ours, gdal1, gdaln in rows:
+        print(f"target: {op} at least GDAL's throughput: {ours / gdaln:.2f}x GDAL all-CPU, "
+              f"{'met' if ours >= gdaln else 'NOT met'}")
     return 0
 
 

@@ -16,7 +16,7 @@ use std::path::{Path, PathBuf};
 use ndarray::{s, Array2};
 use serde_json::Value;
 use terrastack::grid::{Crs, Grid};
-use terrastack::terrain::{compute, Quantity, SlopeMethod, TerrainFeature, TerrainParams};
+use terrastack::terrain::{compute, Quantity, SlopeMethod, TerrainFeature, TerrainParams, WindowShape};
 
 /// The DEM through terrastack's raster reader when this build has one, else the raw
 /// float32 copy the script writes alongside the GeoTIFF.
@@ -130,8 +130,10 @@ fn jacksboro_matches_numpy_and_scipy() {
     let cells = grid
         .cell_sizes(-(halo as i64), rows + 2 * halo)
         .expect("cell sizes");
+    // The reference computes disc windows (the non-default shape, given explicitly).
     let params = TerrainParams {
         min_valid_fraction: frac,
+        shape: WindowShape::Disc,
         ..TerrainParams::default()
     };
     let out = compute(&feats, padded.view(), &cells, halo, 500.0, &params);

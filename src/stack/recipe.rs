@@ -19,7 +19,7 @@
 //! [features]
 //! list = ["elevation", "slope", "curvature", "tpi", "ndvi"]   # terrain words and index names
 //! scales_m = [1.0, 5.0]                        # window radii in metres
-//! window = "disc"                              # or "square"
+//! window = "square"                            # or "disc"
 //! min_valid_fraction = 0.75
 //! z_factor = 1.0
 //! expressions = { wet = "(green - nir) / (green + nir)" }
@@ -489,7 +489,7 @@ mod tests {
     fn defaults_are_explicit() {
         let r = Recipe::resolve(None, &flags_with_dsm()).unwrap();
         assert_eq!(r.scales_m, DEFAULT_SCALES_M);
-        assert_eq!(r.window, WindowShape::Disc);
+        assert_eq!(r.window, WindowShape::Square);
         assert_eq!(r.min_valid_fraction, 0.75);
         assert_eq!(r.resampling, Resampling::Bilinear);
         assert_eq!(r.features.len(), DEFAULT_FEATURES.len());

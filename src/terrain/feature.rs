@@ -134,10 +134,11 @@ impl TerrainFeature {
     }
 
     /// The method label for metadata: the derivative estimator, "riley" for TRI,
-    /// "detrended_disc" for detrended roughness, `None` for elevation. Windowed statistics
-    /// report their window shape through [`TerrainFeature::method_with_shape`].
+    /// "detrended_square" for detrended roughness (the default window), `None` for
+    /// elevation. Windowed statistics report their window shape through
+    /// [`TerrainFeature::method_with_shape`].
     pub fn method(&self) -> Option<String> {
-        self.method_with_shape(WindowShape::Disc)
+        self.method_with_shape(WindowShape::default())
     }
 
     /// Like [`TerrainFeature::method`], with the window shape actually used.
@@ -226,10 +227,10 @@ mod tests {
     fn methods_and_edge_rules() {
         use super::super::table::{EDGES_DETRENDED, EDGES_STD};
         let d = TerrainFeature::windowed(Quantity::RoughnessDetrended, 2.0);
-        assert_eq!(d.method().as_deref(), Some("detrended_disc"));
+        assert_eq!(d.method().as_deref(), Some("detrended_square"));
         assert_eq!(
-            d.method_with_shape(WindowShape::Square).as_deref(),
-            Some("detrended_square")
+            d.method_with_shape(WindowShape::Disc).as_deref(),
+            Some("detrended_disc")
         );
         assert_eq!(d.edge_rule(WindowShape::Square), EDGES_DETRENDED);
         assert_eq!(

@@ -26,13 +26,16 @@ impl SlopeMethod {
     }
 }
 
-/// Which cells form a window of radius r metres.
+/// Which cells form a window of radius r metres. The default is the square: its cost per
+/// cell does not grow with the radius (integral images, as in Lindsay, Cockburn & Russell
+/// 2015, docs/methods.md), so the large radii of multi-scale position cost what the small
+/// ones do; the exact disc costs O(r/h) per cell.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord, Default)]
 pub enum WindowShape {
     /// Cells whose centres lie within r of the centre cell's centre (centre included).
-    #[default]
     Disc,
     /// The (2kx+1) x (2ky+1) cells with kx = ⌊r/hx⌋, ky = ⌊r/hy⌋ at the centre row.
+    #[default]
     Square,
 }
 
@@ -54,7 +57,7 @@ pub struct TerrainParams {
     pub min_valid_fraction: f64,
     /// Multiplies every elevation before anything else (e.g. 0.3048 for DSMs in feet).
     pub z_factor: f64,
-    /// Window shape of windowed statistics. Default disc.
+    /// Window shape of windowed statistics. Default square.
     pub shape: WindowShape,
 }
 
@@ -63,7 +66,7 @@ impl Default for TerrainParams {
         TerrainParams {
             min_valid_fraction: 0.75,
             z_factor: 1.0,
-            shape: WindowShape::Disc,
+            shape: WindowShape::default(),
         }
     }
 }

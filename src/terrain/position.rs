@@ -211,8 +211,10 @@ mod tests {
                 TerrainFeature::windowed(Quantity::RelativeElevation, r),
                 TerrainFeature::windowed(Quantity::LocalRelief, r),
             ];
+            // The reference walks a disc (not the default shape).
             let p = TerrainParams {
                 min_valid_fraction: 0.6,
+                shape: WindowShape::Disc,
                 ..TerrainParams::default()
             };
             let out = compute(

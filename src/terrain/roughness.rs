@@ -143,8 +143,10 @@ mod tests {
         for _ in 0..6 {
             let dem = random_dem(&mut rng, 14, 14, 0.15);
             let r = 1.5 + 2.0 * rng.next_f64();
+            // The reference walks a disc (not the default shape).
             let p = TerrainParams {
                 min_valid_fraction: 0.5,
+                shape: WindowShape::Disc,
                 ..TerrainParams::default()
             };
             let out = compute(

@@ -357,7 +357,7 @@ pub const QUANTITIES: &[QuantityRow] = &[
         Kernel::Moments { sums: sums(false, true), stat: position::tpi },
         "topographic position index, per scale",
         EDGES_TPI,
-        &[doc("tpi", "disc", "z − mean(window)", "Weiss 2001; Guisan et al. 1999, Plant Ecology 143, 107–122, doi:10.1023/A:1009841519580")],
+        &[doc("tpi", "square", "z − mean(window)", "Weiss 2001; Guisan et al. 1999, Plant Ecology 143, 107–122, doi:10.1023/A:1009841519580")],
     ),
     window(
         Quantity::Dev,
@@ -366,7 +366,7 @@ pub const QUANTITIES: &[QuantityRow] = &[
         Kernel::Moments { sums: sums(true, true), stat: position::dev },
         "deviation from mean elevation, per scale",
         EDGES_DEV,
-        &[doc("dev", "disc", "(z − mean)/std over the window; 0 where the window is flat", "Wilson & Gallant 2000; De Reu et al. 2013, Geomorphology 186, 39–49, doi:10.1016/j.geomorph.2012.12.015")],
+        &[doc("dev", "square", "(z − mean)/std over the window; 0 where the window is flat", "Wilson & Gallant 2000; De Reu et al. 2013, Geomorphology 186, 39–49, doi:10.1016/j.geomorph.2012.12.015")],
     ),
     window(
         Quantity::Roughness,
@@ -378,7 +378,7 @@ pub const QUANTITIES: &[QuantityRow] = &[
         },
         "standard deviation of elevation, per scale",
         EDGES_STD,
-        &[doc("roughness", "disc", "population std of z over the window", "common practice")],
+        &[doc("roughness", "square", "population std of z over the window", "common practice")],
     ),
     QuantityRow {
         quantity: Quantity::RoughnessDetrended,
@@ -395,7 +395,7 @@ pub const QUANTITIES: &[QuantityRow] = &[
         halo_beyond_window: 0,
         summary: "std of residuals from a fitted plane, per scale",
         edges: EDGES_DETRENDED,
-        docs: &[doc("roughness_detrended", "detrended_disc", "population std of residuals from the least-squares plane over the window", "common practice")],
+        docs: &[doc("roughness_detrended", "detrended_square", "population std of residuals from the least-squares plane over the window", "common practice")],
     },
     QuantityRow {
         quantity: Quantity::Tri,
@@ -420,7 +420,7 @@ pub const QUANTITIES: &[QuantityRow] = &[
             Kernel::Vrm,
             "vector ruggedness measure, per scale",
             EDGES_VRM,
-            &[doc("vrm", "disc", "1 − |Σ n|/N, n = (−p, −q, 1)/√(1 + p² + q²) (Horn p, q)", "Sappington, Longshore & Thompson 2007, J. Wildlife Management 71(5), 1419–1426, doi:10.2193/2005-723")],
+            &[doc("vrm", "square", "1 − |Σ n|/N, n = (−p, −q, 1)/√(1 + p² + q²) (Horn p, q)", "Sappington, Longshore & Thompson 2007, J. Wildlife Management 71(5), 1419–1426, doi:10.2193/2005-723")],
         )
     },
     window(
@@ -430,7 +430,7 @@ pub const QUANTITIES: &[QuantityRow] = &[
         Kernel::Extrema(position::relative_elevation),
         "z − window minimum, per scale",
         EDGES_EXTREMA,
-        &[doc("relative_elevation", "disc", "z − min(window)", EXTREMA)],
+        &[doc("relative_elevation", "square", "z − min(window)", EXTREMA)],
     ),
     window(
         Quantity::LocalRelief,
@@ -439,7 +439,7 @@ pub const QUANTITIES: &[QuantityRow] = &[
         Kernel::Extrema(|_, ex, i, j, cells, n, frac| position::local_relief(ex, i, j, cells, n, frac)),
         "window maximum − minimum, per scale",
         EDGES_EXTREMA,
-        &[doc("local_relief", "disc", "max(window) − min(window)", EXTREMA)],
+        &[doc("local_relief", "square", "max(window) − min(window)", EXTREMA)],
     ),
     window(
         Quantity::ReliefPosition,
@@ -448,7 +448,7 @@ pub const QUANTITIES: &[QuantityRow] = &[
         Kernel::Extrema(relief_position),
         "where z lies between window minimum (0) and maximum (100), per scale",
         EDGES_RELIEF_POSITION,
-        &[doc("relief_position", "disc", "100 · (z − min(window)) / (max(window) − min(window)); NaN where the window is flat", "percent elevation range, Newman, Lindsay & Cockburn 2018, Geomorphology 312, 40–50")],
+        &[doc("relief_position", "square", "100 · (z − min(window)) / (max(window) − min(window)); NaN where the window is flat", "percent elevation range, Newman, Lindsay & Cockburn 2018, Geomorphology 312, 40–50")],
     ),
 ];
 
