@@ -16,7 +16,9 @@ use std::path::{Path, PathBuf};
 use ndarray::{s, Array2};
 use serde_json::Value;
 use terrastack::grid::{Crs, Grid};
-use terrastack::terrain::{compute, Quantity, SlopeMethod, TerrainFeature, TerrainParams, WindowShape};
+use terrastack::terrain::{
+    compute, Quantity, SlopeMethod, TerrainFeature, TerrainParams, WindowShape,
+};
 
 /// The DEM through terrastack's raster reader when this build has one, else the raw
 /// float32 copy the script writes alongside the GeoTIFF.

@@ -574,9 +574,37 @@ pub struct SampleSummary {
 }
 
 /// The separability report written beside table `out`: `NAME.separability.json` for
-/// `NAME.csv` (or any other extension).
+/// `NAME.csv`, and `NAME.parquet.separability.json` for `NAME.parquet` (any other file
+/// name keeps its extension), so that the CSV and GeoParquet tables of one name in one
+/// folder each have their own report.
 pub fn separability_path(out: &Path) -> PathBuf {
-    out.with_extension("separability.json")
+    let is_csv = out
+        .extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("csv"));
+    if is_csv {
+        out.with_extension("separability.json")
+    } else {
+        let mut name = out.file_name().unwrap_or_default().to_os_string();
+        name.push(".separability.json");
+        out.with_file_name(name)
+    }
+}
+
+#[cfg(test)]
+mod separability_path_tests {
+    use super::*;
+
+    #[test]
+    fn csv_and_parquet_tables_of_one_name_get_their_own_report() {
+        assert_eq!(
+            separability_path(Path::new("d/t.csv")),
+            Path::new("d/t.separability.json")
+        );
+        assert_eq!(
+            separability_path(Path::new("d/t.parquet")),
+            Path::new("d/t.parquet.separability.json")
+        );
+    }
 }
 
 impl fmt::Display for SampleSummary {
