@@ -298,7 +298,7 @@ impl StackPlan {
                     );
                     bands.push(BandPlan {
                         producer: Producer::Terrain(terrain_features.len()),
-                        ramp: ramp_for(feature.feature_key()),
+                        ramp: RampKind::for_feature(feature.feature_key()),
                         meta: band_record(
                             feature.band_name(),
                             feature.feature_key().to_string(),
@@ -945,23 +945,6 @@ fn index_band(index: &'static SpectralIndex, resampling: Resampling) -> BandPlan
     }
 }
 
-/// Colour ramp for a terrain feature key.
-fn ramp_for(feature: &str) -> RampKind {
-    match feature {
-        "aspect" => RampKind::Cyclic,
-        "tpi"
-        | "dev"
-        | "northness"
-        | "eastness"
-        | "profile_curvature"
-        | "plan_curvature"
-        | "tangential_curvature"
-        | "mean_curvature"
-        | "gaussian_curvature" => RampKind::Diverging,
-        _ => RampKind::Sequential,
-    }
-}
-
 /// The ground filter's plan from the recipe's `[ground]` settings, on `target` whose
 /// smallest cell size is `h` metres.
 fn new_ground_plan(recipe: &Recipe, target: &Grid, h: f64) -> GroundPlan {
@@ -1039,7 +1022,7 @@ fn ground_band_plans(
         );
         out.push(BandPlan {
             producer: Producer::Ground(GroundBand::OnDtm(index)),
-            ramp: ramp_for(feature.feature_key()),
+            ramp: RampKind::for_feature(feature.feature_key()),
             meta: band_record(
                 format!("{}_dtm", feature.band_name()),
                 feature.feature_key().to_string(),
