@@ -46,15 +46,18 @@ def main():
     with open(table, newline="") as f:
         rows = list(csv.reader(f))
     header, rows = rows[0], rows[1:]
-    bands = header[5:]
-    texts = [v for r in rows for v in r[5:] if v != ""]
+    # sample_id, class, x, y, fold, then `block` (--block-size) and `cells` (--aggregate)
+    # when present, then the bands.
+    first = 5 + sum(1 for c in ("block", "cells") if c in header[5:7])
+    bands = header[first:]
+    texts = [v for r in rows for v in r[first:] if v != ""]
     # Cell tables hold float32 values printed in their shortest form, aggregated tables
     # float64 ones: read every value as float32 when every text is a float32's shortest
     # form, so both sides see the same numbers.
     as_f32 = all(float(np.format_float_positional(np.float32(t), unique=True)) == float(t)
                  for t in texts)
     read = (lambda t: float(np.float32(t))) if as_f32 else float
-    X = np.array([[read(v) if v != "" else np.nan for v in r[5:]] for r in rows]).reshape(-1, len(bands))
+    X = np.array([[read(v) if v != "" else np.nan for v in r[first:]] for r in rows]).reshape(-1, len(bands))
     y = np.array([r[1] for r in rows])
     classes = report["classes"]
     if [b["band"] for b in report["bands"]] != bands:
