@@ -35,7 +35,8 @@ pub struct Args {
     pub band: Vec<String>,
     /// Features to build, comma-separated: terrain words, ground words (`dtm`, `height`,
     /// `ground`, `ground_distance`, and `WORD@dtm` for a terrain word on the ground, e.g.
-    /// `slope@dtm`), index names, `reflectance`, `indices` (`terrastack features` lists them). Default: a terrain set at every
+    /// `slope@dtm`), texture words (`glcm@1.5@ndvi`, `stddev@2@nir`), index names,
+    /// `reflectance`, `indices` (`terrastack features` lists them). Default: a terrain set at every
     /// scale plus reflectance and every index the mapped bands allow.
     #[arg(long, value_name = "LIST", value_delimiter = ',')]
     pub features: Option<Vec<String>>,
@@ -117,6 +118,8 @@ pub struct Args {
     pub quiet: bool,
     #[command(flatten)]
     pub ground: super::ground_args::GroundArgs,
+    #[command(flatten)]
+    pub texture: super::texture_args::TextureArgs,
 }
 
 /// Resampling kinds as typed on the command line.
@@ -163,6 +166,7 @@ pub fn run(args: Args) -> Result<()> {
         zero_is_nodata: args.zero_is_nodata,
         compression: args.compression,
         ground: args.ground.section(),
+        texture: args.texture.section(),
     };
     if let Some(date) = &args.date {
         terrastack::batch::manifest::check_date(date).map_err(|problem| {

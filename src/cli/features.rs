@@ -28,6 +28,12 @@ pub fn run(args: Args) -> Result<()> {
                     "method": d.method, "formula": d.formula, "reference": d.reference,
                     "edges": d.edges })
         }));
+        rows.extend(terrastack::texture::bands::TEXTURE_WORDS.iter().map(|d| {
+            json!({ "word": d.word, "feature": d.word.split('@').next().unwrap_or(""),
+                    "kind": "texture", "units": d.units, "method": "", "formula": d.summary,
+                    "reference": if d.word.starts_with("glcm") {
+                        terrastack::texture::bands::GLCM_REFERENCE } else { "" } })
+        }));
         rows.push(json!({ "word": "reflectance", "feature": "reflectance", "kind": "spectral",
             "units": "unitless", "method": "", "formula": "stored · scale + offset, per mapped band",
             "reference": "" }));
@@ -65,6 +71,20 @@ pub fn run(args: Args) -> Result<()> {
         println!("  {:<24} edges and holes: {}", "", d.edges);
         println!();
     }
+    println!(
+        "Texture of a band, index or band-math expression SOURCE (R: radius in metres; without @R, every --scales radius;"
+    );
+    println!("grey levels, pair distance and ranges: --texture-* flags, [texture] in a recipe):");
+    println!();
+    for d in terrastack::texture::bands::TEXTURE_WORDS {
+        println!("  {:<26} {:<13} {}", d.word, d.units, d.summary);
+    }
+    println!(
+        "  {:<26} {}",
+        "",
+        terrastack::texture::bands::GLCM_REFERENCE
+    );
+    println!();
     println!("Spectral features (reflectance 0–1; `indices` asks for every index the mapped bands allow):");
     println!();
     println!(

@@ -12,6 +12,7 @@ mod features;
 pub mod ground_args;
 mod info;
 mod sample;
+mod texture_args;
 mod verify;
 
 /// Turn drone DSMs and multispectral orthomosaics into a co-registered, documented stack

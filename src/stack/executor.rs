@@ -529,8 +529,42 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Check
         }
     }
     let mut ground_next = ground_out.iter_mut();
+    let mut texture_out: Vec<Array2<f32>> = Vec::new();
     let reflectance = if plan.needs_spectral() {
-        let r = read_reflectance(plan, w)?;
+        let texture = plan.texture_bands();
+        let r = if texture.is_empty() {
+            read_reflectance(plan, w)?
+        } else {
+            // Texture windows reach past the block: read the reflectance with their halo,
+            // compute the texture bands, and keep the block's part for the other bands.
+            let halo = plan.texture_halo();
+            let padded = w.grow(halo);
+            let wide = read_reflectance(plan, padded)?;
+            let cells = plan.target.cell_sizes(padded.row, padded.height)?;
+            texture_out = crate::texture::bands::compute_block(
+                &texture,
+                &wide,
+                crate::texture::bands::PaddedOnGrid {
+                    row0: padded.row,
+                    col0: padded.col,
+                    grid: (plan.target.height, plan.target.width),
+                },
+                &cells,
+                halo,
+                (w.height, w.width),
+                plan.recipe.window,
+                plan.recipe.min_valid_fraction,
+            )?;
+            let mut core = spectral::BandArrays::new();
+            for role in wide.roles() {
+                let a = wide.get(&role).expect("a role of the block");
+                core.insert(
+                    role,
+                    crate::texture::bands::core(a, halo, (w.height, w.width)),
+                )?;
+            }
+            core
+        };
         for (count, input) in checks.reflectance.iter_mut().zip(&plan.spectral) {
             if let Some(a) = r.get(&input.band.role) {
                 *count = RangeCount::of(a.iter().copied(), 1.0, REFLECTANCE_RANGE);
@@ -540,6 +574,7 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Check
     } else {
         None
     };
+    let mut texture_next = texture_out.into_iter();
     let mut out = Vec::with_capacity(plan.bands.len());
     for band in &plan.bands {
         let data = match &band.producer {
@@ -561,6 +596,9 @@ fn compute_block(plan: &StackPlan, w: Window) -> Result<(Vec<Array2<f32>>, Check
                 .next()
                 .and_then(Option::take)
                 .expect("each ground output feeds one band, in band order"),
+            Producer::Texture(_) => texture_next
+                .next()
+                .expect("each texture output feeds one band, in band order"),
         };
         out.push(data);
     }

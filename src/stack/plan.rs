@@ -21,6 +21,7 @@ use crate::stack::preview::RampKind;
 use crate::stack::recipe::Recipe;
 use crate::stack::sidecar::{BandMetadata, BandStats};
 use crate::terrain::{self, TerrainFeature, TerrainParams};
+use crate::texture::bands::{self as texture_bands, TextureBand, TextureContext};
 
 /// What computes one band of the stack.
 pub enum Producer {
@@ -34,6 +35,9 @@ pub enum Producer {
     Expression(Expression),
     /// A band of the ground filter (dtm, height, ground mask, distance, terrain on the dtm).
     Ground(GroundBand),
+    /// A texture band of a band or index (co-occurrence features, window standard
+    /// deviation), computed over the block and its halo.
+    Texture(TextureBand),
 }
 
 /// One band of the stack: what produces it, its preview ramp, and its `stack.json` record.
@@ -232,6 +236,15 @@ impl StackPlan {
                     (hx_max, hy_max),
                     &target,
                 )?);
+            } else if texture_bands::is_texture_word(&w) {
+                bands.extend(texture_band_plans(
+                    &w,
+                    &recipe,
+                    &mapped,
+                    (hx, hy),
+                    (hx_max, hy_max),
+                    &target,
+                )?);
             } else if w == "reflectance" {
                 for input in &spectral_inputs {
                     bands.push(reflectance_band(input, recipe.resampling));
@@ -267,7 +280,7 @@ impl StackPlan {
                             Error::Usage { problem, fix } => Error::Usage {
                                 problem,
                                 fix: Some(format!(
-                                    "{}; ground words: dtm, height, ground, ground_distance, WORD@dtm; spectral words: reflectance, indices, {}",
+                                    "{}; ground words: dtm, height, ground, ground_distance, WORD@dtm; texture words: glcm@R@SOURCE, glcm_contrast@R@SOURCE (homogeneity, entropy, correlation), stddev@R@SOURCE; spectral words: reflectance, indices, {}",
                                     fix.unwrap_or_default(),
                                     names.join(", ")
                                 )),
@@ -371,6 +384,10 @@ impl StackPlan {
             .iter()
             .map(|f| f.halo_px(hx, hy))
             .chain(ground.as_ref().map(GroundPlan::halo))
+            .chain(bands.iter().filter_map(|b| match &b.producer {
+                Producer::Texture(t) => Some(t.halo_px()),
+                _ => None,
+            }))
             .max()
             .unwrap_or(0);
         if let Some(g) = &ground {
@@ -405,6 +422,27 @@ impl StackPlan {
         self.bands
             .iter()
             .any(|b| !matches!(b.producer, Producer::Terrain(_) | Producer::Ground(_)))
+    }
+
+    /// The texture bands, in band order.
+    pub fn texture_bands(&self) -> Vec<&TextureBand> {
+        self.bands
+            .iter()
+            .filter_map(|b| match &b.producer {
+                Producer::Texture(t) => Some(t),
+                _ => None,
+            })
+            .collect()
+    }
+
+    /// Cells of context the texture bands need around a block (0 without texture): the
+    /// reflectance is read that much wider, not by the terrain's halo.
+    pub fn texture_halo(&self) -> usize {
+        self.texture_bands()
+            .iter()
+            .map(|t| t.halo_px())
+            .max()
+            .unwrap_or(0)
     }
 
     /// Bytes one block of `block` x `block` cells needs while it is computed: the DSM
@@ -450,9 +488,33 @@ impl StackPlan {
         } else {
             0
         };
+        // Texture: the padded reflectance instead of the block's; per distinct source its
+        // padded values and grey levels (6 bytes a cell); per standard deviation the window
+        // sums (96 bytes a padded cell, as the terrain statistics); per co-occurrence source
+        // and radius the four f64 features of the block.
+        let texture = self.texture_bands();
+        let texture_side = (block as u64).saturating_add(2 * self.texture_halo() as u64);
+        let texture_padded = texture_side.saturating_mul(texture_side);
+        let texture_bytes = if texture.is_empty() {
+            0
+        } else {
+            let sources: BTreeSet<String> = texture.iter().map(|t| t.source.name()).collect();
+            let glcm: BTreeSet<(String, u64)> = texture
+                .iter()
+                .filter(|t| t.quantiser.is_some())
+                .map(|t| (t.source.name(), t.radius_m.to_bits()))
+                .collect();
+            let stds = texture.iter().filter(|t| t.quantiser.is_none()).count() as u64;
+            let per_padded =
+                4 * (2 * self.spectral.len() as u64 + 2) + 6 * sources.len() as u64 + 96 * stds;
+            texture_padded
+                .saturating_mul(per_padded)
+                .saturating_add(cells.saturating_mul(32 * glcm.len() as u64))
+        };
         terrain
             .saturating_add(ground)
             .saturating_add(spectral)
+            .saturating_add(texture_bytes)
             .saturating_add(cells.saturating_mul(8 * self.bands.len() as u64))
     }
 
@@ -1033,6 +1095,72 @@ fn ground_band_plans(
                 "dtm".into(),
                 extra,
             ),
+        });
+    }
+    Ok(out)
+}
+
+/// The bands of one texture word (`glcm@1.5@ndvi`, `stddev@nir`), their radii checked
+/// against the grid as every windowed radius is.
+fn texture_band_plans(
+    w: &str,
+    recipe: &Recipe,
+    mapped: &[Role],
+    (hx, hy): (f64, f64),
+    (hx_max, hy_max): (f64, f64),
+    target: &Grid,
+) -> Result<Vec<BandPlan>> {
+    let ctx = TextureContext {
+        mapped,
+        expressions: &recipe.expressions,
+        scales_m: &recipe.scales_m,
+        settings: &recipe.texture,
+        h_min: (hx, hy),
+    };
+    let shape = recipe.window;
+    let mut out = Vec::new();
+    for band in texture_bands::plan_word(w, &ctx)? {
+        let origin = if w.matches('@').count() == 2 {
+            format!("`{w}` in the feature list")
+        } else {
+            "--scales, or scales_m in the recipe".to_string()
+        };
+        terrain::validate_window_radius(band.radius_m, &origin, hx_max, hy_max)?;
+        let side = band.window_px();
+        if side > target.width.max(target.height) {
+            return Err(Error::usage(format!(
+                "{} at radius {} m: the window is {side} cells across, larger than the raster ({} x {} cells)",
+                band.quantity.key(),
+                compact(band.radius_m),
+                target.width,
+                target.height
+            ))
+            .with_fix("use a smaller radius (--scales, or WORD@METRES@SOURCE)"));
+        }
+        let ramp = if band.quantity == texture_bands::TextureQuantity::Correlation {
+            RampKind::Diverging
+        } else {
+            RampKind::Sequential
+        };
+        let mut extra = band.record(shape);
+        extra.insert(
+            "resampling".into(),
+            serde_json::to_value(recipe.resampling).unwrap_or_default(),
+        );
+        let meta = band_record(
+            band.band_name(),
+            band.quantity.key().to_string(),
+            Some(band.method(shape)),
+            Some(band.radius_m),
+            Some(side),
+            band.quantity.units(),
+            band.source.name(),
+            extra,
+        );
+        out.push(BandPlan {
+            producer: Producer::Texture(band),
+            ramp,
+            meta,
         });
     }
     Ok(out)

@@ -41,6 +41,11 @@
 //! reach_m = 20.0                                # default: max_object_m
 //! ndvi = false                                  # NDVI guidance (needs red and nir) …
 //! ndvi_max = 0.5                                # … or guidance at this threshold
+//!
+//! [texture]                                     # glcm@R@SOURCE and stddev@R@SOURCE bands
+//! levels = 32                                   # grey levels of the co-occurrence features
+//! distance_px = 1                               # cells between the two cells of a pair
+//! ranges = { ndvi = "0..1" }                    # quantisation range per source
 //! ```
 //!
 //! Flags override the recipe key by key; the merged result is a [`Recipe`] whose every
@@ -105,6 +110,9 @@ pub struct RecipeFile {
     /// The ground filter's settings (`crate::ground::settings`).
     #[serde(default)]
     pub ground: crate::ground::settings::GroundSection,
+    /// Texture settings (`crate::texture::settings`).
+    #[serde(default)]
+    pub texture: crate::texture::settings::TextureSection,
 }
 
 #[derive(Clone, Debug, Default, Deserialize, Serialize, PartialEq)]
@@ -218,6 +226,8 @@ pub struct RecipeFlags {
     pub compression: Option<OutputCompression>,
     /// `--ground-*` flags.
     pub ground: crate::ground::settings::GroundSection,
+    /// `--texture-*` flags.
+    pub texture: crate::texture::settings::TextureSection,
 }
 
 /// A fully resolved recipe: every choice explicit. Recorded in `stack.json`.
@@ -259,6 +269,9 @@ pub struct Recipe {
     /// The ground filter's settings (used when a ground band is asked for).
     #[serde(default)]
     pub ground: crate::ground::settings::GroundSettings,
+    /// Texture settings (used when a texture band is asked for).
+    #[serde(default)]
+    pub texture: crate::texture::settings::TextureSettings,
 }
 
 impl Recipe {
@@ -411,6 +424,10 @@ impl Recipe {
             resampling: flags.resampling.or(f.grid.resampling).unwrap_or_default(),
             compression,
             ground: crate::ground::settings::GroundSettings::resolve(&f.ground, &flags.ground)?,
+            texture: crate::texture::settings::TextureSettings::resolve(
+                &f.texture,
+                &flags.texture,
+            )?,
         })
     }
 }
