@@ -428,6 +428,9 @@ impl TextureBand {
     }
 }
 
+/// A co-occurrence pass: source name and radius bits.
+type GlcmKey = (String, u64);
+
 /// Where a padded block lies on the stack's grid: its first row and column (negative
 /// beyond the top or left edge) and the grid's size (rows, cols). Cells outside the grid
 /// are nodata for texture, even where an orthomosaic reaches beyond the stack.
@@ -477,7 +480,7 @@ pub fn compute_block(
     min_valid_fraction: f64,
 ) -> Result<Vec<Array2<f32>>> {
     let mut sources: Vec<(String, Array2<f32>)> = Vec::new();
-    let mut glcm: Vec<((String, u64), [Array2<f64>; 4])> = Vec::new();
+    let mut glcm: Vec<(GlcmKey, [Array2<f64>; 4])> = Vec::new();
     let mut out = Vec::with_capacity(bands.len());
     for band in bands {
         let name = band.source.name();
