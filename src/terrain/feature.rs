@@ -18,8 +18,9 @@ pub struct TerrainFeature {
     scale_m: Option<f64>,
 }
 
-/// Formats a radius for band names: shortest decimal form ("5", "2.5", "0.25").
-fn radius_label(r: f64) -> String {
+/// Formats a radius for band names: shortest decimal form ("5", "2.5", "0.25"), with `p`
+/// for the point ("2p5").
+pub(crate) fn radius_label(r: f64) -> String {
     format!("{r}").replace('.', "p")
 }
 

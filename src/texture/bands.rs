@@ -25,6 +25,7 @@ use super::settings::TextureSettings;
 use crate::error::{Error, Result};
 use crate::grid::CellSizes;
 use crate::spectral::{self, BandArrays, Expression, Role, SpectralIndex};
+use crate::terrain::feature::radius_label;
 use crate::terrain::{radius_cells, WindowShape};
 
 /// One texture word as `terrastack features` lists it.
@@ -349,11 +350,6 @@ fn find_source(word: &str, text: &str, ctx: &TextureContext) -> Result<TextureSo
             mapped.join(", ")
         }
     )))
-}
-
-/// Formats a radius for band names: shortest decimal form with `p` for the point.
-fn radius_label(r: f64) -> String {
-    format!("{r}").replace('.', "p")
 }
 
 impl TextureBand {
