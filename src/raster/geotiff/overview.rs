@@ -122,17 +122,35 @@ fn sin_cos_small(t: f64) -> (f64, f64) {
     let mut s = 0.0;
     let mut c = 0.0;
     // sin t = t Σ (−t²)^k / (2k+1)!, cos t = Σ (−t²)^k / (2k)!, k = 0..=8.
-    for k in (0..=8u32).rev() {
-        let sk = (if k % 2 == 0 { 1.0 } else { -1.0 }) / factorial(2 * k + 1);
-        let ck = (if k % 2 == 0 { 1.0 } else { -1.0 }) / factorial(2 * k);
-        s = s * t2 + sk;
-        c = c * t2 + ck;
+    for k in (0..=8).rev() {
+        s = s * t2 + SIN_TERMS[k];
+        c = c * t2 + COS_TERMS[k];
     }
     (s * t, c)
 }
 
-fn factorial(n: u32) -> f64 {
-    (1..=n).fold(1.0, |a, k| a * k as f64)
+/// (−1)^k / (2k+1)!, k = 0..=8: the Taylor coefficients of sin t / t.
+const SIN_TERMS: [f64; 9] = taylor_terms(1);
+/// (−1)^k / (2k)!, k = 0..=8: the Taylor coefficients of cos t.
+const COS_TERMS: [f64; 9] = taylor_terms(0);
+
+/// (−1)^k / (2k + odd)! for k = 0..=8, the factorial multiplied up from 1 in f64 (exact
+/// through 18!, which is below 2^53), computed when the program is compiled.
+const fn taylor_terms(odd: u32) -> [f64; 9] {
+    let mut out = [0.0; 9];
+    let mut k = 0;
+    while k < 9 {
+        let n = 2 * k as u32 + odd;
+        let mut f = 1.0;
+        let mut j = 1;
+        while j <= n {
+            f *= j as f64;
+            j += 1;
+        }
+        out[k] = if k % 2 == 0 { 1.0 / f } else { -1.0 / f };
+        k += 1;
+    }
+    out
 }
 
 #[cfg(test)]
