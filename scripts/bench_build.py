@@ -28,7 +28,11 @@ Steps:
    disc windows through FFT convolution with a disc kernel (scipy.signal.fftconvolve)
    and minimum_filter with a disc footprint, the orthomosaic resampled with
    rasterio.warp.reproject (bilinear), reflectance scaling, the indices; written band by
-   band to a tiled (512), Deflate, floating-point-predictor float32 GeoTIFF with rasterio.
+   band with rasterio to an uncompressed tiled (512) float32 GeoTIFF, then copied by
+   GDAL's COG driver (rasterio.shutil.copy) to a Cloud Optimized GeoTIFF, Deflate with the
+   floating-point predictor and average overviews: the same product as terrastack's
+   stack.tif. `--peer-layout plain` writes a Deflate, floating-point-predictor tiled
+   GeoTIFF without overviews instead (less work than terrastack does).
 4. Each side runs in its own child process; wall time and peak resident memory
    (getrusage of that child, ru_maxrss) are measured the same way for both.
 5. Print both wall times and the ratios (the numpy/scipy + rasterio pipeline runs on one
@@ -186,8 +190,9 @@ def disc_kernel(radius_m, hx, hy, shape="disc"):
     return (i * i + j * j <= radius_m * radius_m * (1 + 1e-9)).astype(np.float64)
 
 
-def python_pipeline(stack_json, dsm_path, ortho_path, out_path):
+def python_pipeline(stack_json, dsm_path, ortho_path, out_path, layout="cog"):
     import rasterio
+    import rasterio.shutil
     from rasterio.warp import reproject, Resampling
     from scipy import ndimage, signal
 
@@ -372,6 +377,14 @@ def python_pipeline(stack_json, dsm_path, ortho_path, out_path):
         blockxsize=512, blockysize=512, compress="deflate", predictor=3,
         interleave="band", BIGTIFF="IF_SAFER",
     )
+    # The same product as terrastack's (a Cloud Optimized GeoTIFF with overviews): the
+    # bands go to an uncompressed tiled GeoTIFF first (the cheapest intermediate), then
+    # GDAL's COG driver writes the file, Deflate + predictor, average overviews.
+    final_path = out_path
+    if layout == "cog":
+        out_path = out_path + ".bands.tif"
+        out_profile.update(compress="none")
+        out_profile.pop("predictor")
     # Intermediates are dropped after the last band that uses them.
     def keys(b):
         feat = b["feature"]
@@ -396,6 +409,14 @@ def python_pipeline(stack_json, dsm_path, ortho_path, out_path):
             del data
             for k in [k for k, last in last_use.items() if last == i]:
                 cache.pop(k, None)
+    if layout == "cog":
+        cache.clear()
+        refl.clear()
+        rasterio.shutil.copy(
+            out_path, final_path, driver="COG", COMPRESS="DEFLATE", PREDICTOR="YES",
+            BLOCKSIZE=512, OVERVIEW_RESAMPLING="AVERAGE", BIGTIFF="IF_SAFER",
+        )
+        os.remove(out_path)
 
 
 INDEX_NAMES = {"ndvi", "gndvi", "ndre", "savi", "osavi", "msavi2", "evi", "evi2", "ndwi",
@@ -441,12 +462,16 @@ def main():
     ap.add_argument("--skip-python", action="store_true",
                     help="time terrastack only (when the hand-written pipeline cannot fit)")
     ap.add_argument("--keep", action="store_true", help="keep the generated files")
+    ap.add_argument("--peer-layout", choices=["cog", "plain"], default="cog",
+                    help="what the hand-written pipeline writes: a Cloud Optimized GeoTIFF "
+                         "with average overviews through GDAL's COG driver, as terrastack "
+                         "does (default), or a plain tiled GeoTIFF without overviews")
     ap.add_argument("--python-pipeline", nargs=4, metavar=("STACK_JSON", "DSM", "ORTHO", "OUT"),
                     help=argparse.SUPPRESS)
     args = ap.parse_args()
 
     if args.python_pipeline:
-        python_pipeline(*args.python_pipeline)
+        python_pipeline(*args.python_pipeline, layout=args.peer_layout)
         return 0
 
     if not os.path.exists(args.binary):
@@ -503,7 +528,8 @@ def main():
         if not args.skip_python:
             py_tif = os.path.join(work, "python.tif")
             cmd = [sys.executable, os.path.abspath(__file__), "--python-pipeline",
-                   os.path.join(ts_out, "stack.json"), dsm, ortho, py_tif]
+                   os.path.join(ts_out, "stack.json"), dsm, ortho, py_tif,
+                   "--peer-layout", args.peer_layout]
             print("numpy/scipy + rasterio:", " ".join(cmd))
             py_wall, py_cpu, py_rss, rc = run_measured(cmd, os.path.join(work, "python.log"))
             if rc != 0:
@@ -517,6 +543,9 @@ def main():
         print()
         print(f"size {n} x {n}, {len(names)} bands, {os.cpu_count()} cores (machine shared "
               "with other work: compare ratios, not seconds)")
+        print("terrastack writes a Cloud Optimized GeoTIFF with overviews; the numpy way "
+              + ("does too (GDAL's COG driver)" if args.peer_layout == "cog"
+                 else "writes a plain GeoTIFF without overviews (--peer-layout plain)"))
         print(f"terrastack one thread: {t1_wall:.1f} s wall; all cores: {ts_wall:.1f} s; "
               f"speed-up {t1_wall / ts_wall:.2f}x on {os.cpu_count()} cores; same bytes: "
               f"{'yes' if same else 'NO'}")

@@ -96,24 +96,32 @@ pub fn reduce(kind: OverviewResampling, v: &[f64]) -> f64 {
 /// (`%` and `90 − x` are exact in floating point), then the Taylor series of sin and cos
 /// to degree 17 and 16 (truncation below 1e-18 on [0, π/4]).
 pub fn sin_cos_degrees(deg: f64) -> (f64, f64) {
-    let mut d = deg % 360.0;
+    // Aspects are already in [0, 360): no remainder to take (`%` is a slow library call).
+    let mut d = if (0.0..360.0).contains(&deg) {
+        deg
+    } else {
+        deg % 360.0
+    };
     if d < 0.0 {
         d += 360.0;
     }
-    let quadrant = (d / 90.0).floor() as u32 % 4;
-    let r = d - 90.0 * quadrant as f64; // [0, 90)
-    let (s, c) = if r > 45.0 {
-        let (s, c) = sin_cos_small((90.0 - r).to_radians());
-        (c, s)
-    } else {
-        sin_cos_small(r.to_radians())
-    };
-    match quadrant {
-        0 => (s, c),
-        1 => (c, -s),
-        2 => (-s, -c),
-        _ => (-c, s),
+    // 360 − a hair plus 360 rounds to 360.
+    if d >= 360.0 {
+        d = 0.0;
     }
+    // The quadrant by comparison (d / 90 could round up to the next whole number), and
+    // the selections below without branches: directions of a real surface come in no
+    // order a branch predictor could learn.
+    let quadrant = (d >= 90.0) as usize + (d >= 180.0) as usize + (d >= 270.0) as usize;
+    let r = d - 90.0 * quadrant as f64; // [0, 90), exact
+    let high = r > 45.0;
+    let (s, c) = sin_cos_small(if high { 90.0 - r } else { r }.to_radians());
+    let (s, c) = if high { (c, s) } else { (s, c) };
+    // Quadrants 0..3: (s, c), (c, −s), (−s, −c), (−c, s); multiplying by ±1 is exact.
+    const SIN_SIGN: [f64; 4] = [1.0, 1.0, -1.0, -1.0];
+    const COS_SIGN: [f64; 4] = [1.0, -1.0, -1.0, 1.0];
+    let (a, b) = if quadrant % 2 == 1 { (c, s) } else { (s, c) };
+    (a * SIN_SIGN[quadrant], b * COS_SIGN[quadrant])
 }
 
 /// (sin, cos) of `t` in [0, π/4] by the Taylor series, evaluated by Horner's rule.

@@ -309,6 +309,8 @@ pub struct GeoTiffWriter {
     output: Option<File>,
     /// The spill file, removed when the writer ends (held for its `Drop`).
     _spill: Option<SpillFile>,
+    /// Overview level 1 made from each full-resolution tile while it is in memory.
+    quarters: Option<Quarters>,
     grid: Grid,
     plan: Plan,
     space: RasterSpace,
@@ -316,6 +318,18 @@ pub struct GeoTiffWriter {
     units: Vec<Option<String>>,
     resampling: Vec<OverviewResampling>,
     state: Mutex<State>,
+}
+
+/// Each full-resolution tile of a Cloud Optimized file reduced to its quarter of an
+/// overview level 1 tile (t/2 x t/2 cells, uncompressed little-endian samples) when it is
+/// compressed, in slot `tile index` of a temporary file: level 1 is then assembled from
+/// the quarters instead of decompressing every full-resolution tile again. Same bytes
+/// either way: the quarter reduces the same cells in the same order.
+struct Quarters {
+    file: File,
+    /// Bytes of one quarter.
+    slot: usize,
+    _guard: SpillFile,
 }
 
 /// A temporary file removed when dropped.
@@ -381,9 +395,19 @@ impl GeoTiffWriter {
                 .map_err(|e| Error::io(path, e))
         };
         let first = open(path)?;
+        let mut quarters = None;
         let (file, output, spill, end) = if plan.cog {
             let spill_path = crate::atomic_file::temp_path_for(path)?;
             let spill_file = open(&spill_path)?;
+            if !plan.levels.is_empty() {
+                let quarter_path = crate::atomic_file::temp_path_for(&spill_path)?;
+                let half = plan.block_w / 2;
+                quarters = Some(Quarters {
+                    file: open(&quarter_path)?,
+                    slot: half * half * plan.samples_per_block_pixel() * plan.sample_type.size(),
+                    _guard: SpillFile { path: quarter_path },
+                });
+            }
             let guard = SpillFile { path: spill_path };
             (spill_file, Some(first), Some(guard), 0)
         } else {
@@ -402,6 +426,7 @@ impl GeoTiffWriter {
             file,
             output,
             _spill: spill,
+            quarters,
             grid: grid.clone(),
             space: options.raster_space,
             descriptions: vec![None; bands],
@@ -439,8 +464,18 @@ impl GeoTiffWriter {
     /// numbers outside the file's bands are ignored. In a pixel-interleaved file each
     /// band of a tile is reduced with its own rule.
     pub fn set_band_overview(&mut self, band: usize, resampling: OverviewResampling) {
-        if band >= 1 && band <= self.plan.bands {
+        if band >= 1 && band <= self.plan.bands && self.resampling[band - 1] != resampling {
             self.resampling[band - 1] = resampling;
+            // Quarters already made used the old resampling: level 1 is then made from the
+            // full-resolution tiles.
+            let started = self
+                .state
+                .get_mut()
+                .map(|st| st.written.iter().any(|w| *w) || !st.pending.is_empty())
+                .unwrap_or(true);
+            if started {
+                self.quarters = None;
+            }
         }
     }
 
@@ -623,7 +658,7 @@ impl GeoTiffWriter {
             (band - 1) * p.per_plane() * usize::from(p.planar) + block_row * p.across + block_col;
         Ok(EncodedBlock {
             index,
-            packed: self.pack(block_row, raw)?,
+            packed: self.pack(Some(index), block_row, raw)?,
         })
     }
 
@@ -632,8 +667,22 @@ impl GeoTiffWriter {
         self.append(block.index, block.packed)
     }
 
-    /// Predict and compress the little-endian samples `raw` of a block of block row `br`.
-    fn pack(&self, br: usize, mut raw: Vec<u8>) -> Result<Vec<u8>> {
+    /// Predict and compress the little-endian samples `raw` of block `index` (block row
+    /// `br`; `None` for an overview tile), first keeping its quarter of overview level 1.
+    fn pack(&self, index: Option<usize>, br: usize, mut raw: Vec<u8>) -> Result<Vec<u8>> {
+        if let (Some(q), Some(index)) = (&self.quarters, index) {
+            let quarter = match self.plan.sample_type {
+                SampleType::U8 => self.quarter::<u8>(index, &raw),
+                SampleType::U16 => self.quarter::<u16>(index, &raw),
+                SampleType::I16 => self.quarter::<i16>(index, &raw),
+                SampleType::U32 => self.quarter::<u32>(index, &raw),
+                SampleType::I32 => self.quarter::<i32>(index, &raw),
+                SampleType::F32 => self.quarter::<f32>(index, &raw),
+                SampleType::F64 => self.quarter::<f64>(index, &raw),
+            };
+            tags::write_all_at(&q.file, &quarter, (index * q.slot) as u64)
+                .map_err(|e| Error::io(&self.path, e))?;
+        }
         let shape = self.plan.shape(br);
         codec::encode_samples(&mut raw, shape, self.plan.predictor);
         let row_bytes = shape.row_samples * shape.sample_size;
@@ -643,7 +692,7 @@ impl GeoTiffWriter {
     /// Predict, compress and append block `index` (block row `br`) whose little-endian
     /// samples are `raw`, padded to the full block.
     pub(super) fn store(&self, index: usize, br: usize, raw: Vec<u8>) -> Result<()> {
-        let packed = self.pack(br, raw)?;
+        let packed = self.pack(Some(index), br, raw)?;
         self.append(index, packed)
     }
 
@@ -855,6 +904,8 @@ impl GeoTiffWriter {
                 let packed: Vec<Result<Vec<u8>>> = (first..last)
                     .into_par_iter()
                     .map(|i| match p.sample_type {
+                        _ if k == 1 && self.quarters.is_some() => self
+                            .level_one_from_quarters(self.quarters.as_ref().expect("checked"), i),
                         SampleType::U8 => self.overview_tile::<u8>(k, i, prev),
                         SampleType::U16 => self.overview_tile::<u16>(k, i, prev),
                         SampleType::I16 => self.overview_tile::<i16>(k, i, prev),
@@ -997,7 +1048,9 @@ impl GeoTiffWriter {
         let spp = p.samples_per_block_pixel();
         let ss = T::TYPE.size();
         const QUAD: [(usize, usize); 4] = [(0, 0), (1, 0), (0, 1), (1, 1)];
-        let mut children: [Option<Vec<u8>>; 4] = Default::default();
+        let nodata = self.grid.nodata.and_then(T::nodata_match);
+        // The four child tiles as f64 samples, nodata as NaN (absent past the edge).
+        let mut children: [Option<Vec<f64>>; 4] = Default::default();
         for (j, (dx, dy)) in QUAD.iter().enumerate() {
             let (cc, cr) = (2 * tc + dx, 2 * tr + dy);
             if cc >= pa || cr >= pd {
@@ -1011,32 +1064,53 @@ impl GeoTiffWriter {
             let mut data = codec::decompress(p.codec, raw, shape.bytes())
                 .map_err(|e| Error::file(&self.path, format!("reading back a tile: {e}")))?;
             codec::decode_samples(&mut data, shape, tags::ByteOrder::Little, p.predictor);
-            children[j] = Some(data);
+            let values = data
+                .chunks_exact(ss)
+                .map(|b| {
+                    let v = T::from_ne(b).to_f64();
+                    if nodata == Some(v) {
+                        f64::NAN
+                    } else {
+                        v
+                    }
+                })
+                .collect();
+            children[j] = Some(values);
         }
-        let nodata = self.grid.nodata.and_then(T::nodata_match);
         let fill = T::from_f64_saturating(self.grid.nodata.unwrap_or(0.0));
         let mut out = T::fill_le(fill, t * t * spp);
         let (vw, vh) = (t.min(w - tc * t), t.min(h - tr * t));
+        // Tiles are aligned: output cell (r, c) covers rows 2r, 2r + 1 and columns 2c,
+        // 2c + 1 of the children's 2t x 2t mosaic, so the child is (2r / t, 2c / t) and the
+        // place in it (2r mod t, 2c mod t). A second row or column past level k − 1's edge
+        // does not take part.
+        let (row0, col0) = (2 * tr * t, 2 * tc * t);
         let mut vals = [f64::NAN; 4];
         for r in 0..vh {
+            let (cy, lr) = ((2 * r) / t, (2 * r) % t);
+            let second_row = row0 + 2 * r + 1 < ph;
             for c in 0..vw {
+                let (cx, lc) = ((2 * c) / t, (2 * c) % t);
+                let Some(d) = &children[2 * cy + cx] else {
+                    continue;
+                };
+                let second_col = col0 + 2 * c + 1 < pw;
+                let top = (lr * t + lc) * spp;
+                let below = top + t * spp;
                 for s in 0..spp {
                     let band = if p.planar { plane } else { s };
-                    for (j, (dx, dy)) in QUAD.iter().enumerate() {
-                        let (sr, sc) = (2 * (tr * t + r) + dy, 2 * (tc * t + c) + dx);
-                        vals[j] = f64::NAN;
-                        if sr >= ph || sc >= pw {
-                            continue;
-                        }
-                        let child = (sc / t - 2 * tc) + 2 * (sr / t - 2 * tr);
-                        if let Some(d) = &children[child] {
-                            let i = (((sr % t) * t + sc % t) * spp + s) * ss;
-                            let v = T::from_ne(&d[i..i + ss]).to_f64();
-                            if nodata != Some(v) {
-                                vals[j] = v;
-                            }
-                        }
-                    }
+                    vals[0] = d[top + s];
+                    vals[1] = if second_col {
+                        d[top + spp + s]
+                    } else {
+                        f64::NAN
+                    };
+                    vals[2] = if second_row { d[below + s] } else { f64::NAN };
+                    vals[3] = if second_row && second_col {
+                        d[below + spp + s]
+                    } else {
+                        f64::NAN
+                    };
                     let v = overview::reduce(self.resampling[band], &vals);
                     if !v.is_nan() {
                         let i = ((r * t + c) * spp + s) * ss;
@@ -1045,8 +1119,129 @@ impl GeoTiffWriter {
                 }
             }
         }
-        self.pack(0, out)
+        self.pack(None, 0, out)
     }
+
+    /// Full-resolution tile `index` (little-endian samples `raw`, padded to the tile)
+    /// reduced to the t/2 x t/2 cells it covers at overview level 1, as little-endian
+    /// samples: cell (r, c) reduces cells (2r, 2c), (2r, 2c + 1), (2r + 1, 2c),
+    /// (2r + 1, 2c + 1) of the tile, those past the raster's edge and nodata left out;
+    /// cells with none left hold the nodata fill.
+    fn quarter<T: TiffSample>(&self, index: usize, raw: &[u8]) -> Vec<u8> {
+        let p = &self.plan;
+        let t = p.block_w;
+        let half = t / 2;
+        let spp = p.samples_per_block_pixel();
+        let ss = T::TYPE.size();
+        let per_plane = p.per_plane();
+        let plane = index / per_plane;
+        let (bc, br) = (index % per_plane % p.across, index % per_plane / p.across);
+        let (vw, vh) = p.valid_size(bc, br);
+        let nodata = self.grid.nodata.and_then(T::nodata_match);
+        let fill = T::from_f64_saturating(self.grid.nodata.unwrap_or(0.0));
+        let mut out = T::fill_le(fill, half * half * spp);
+        let at = |r: usize, c: usize, s: usize| {
+            let i = ((r * t + c) * spp + s) * ss;
+            let v = sample_le::<T>(&raw[i..i + ss]).to_f64();
+            if nodata == Some(v) {
+                f64::NAN
+            } else {
+                v
+            }
+        };
+        let mut vals = [f64::NAN; 4];
+        for r in 0..vh.div_ceil(2) {
+            let second_row = 2 * r + 1 < vh;
+            for c in 0..vw.div_ceil(2) {
+                let second_col = 2 * c + 1 < vw;
+                for s in 0..spp {
+                    let band = if p.planar { plane } else { s };
+                    vals[0] = at(2 * r, 2 * c, s);
+                    vals[1] = if second_col {
+                        at(2 * r, 2 * c + 1, s)
+                    } else {
+                        f64::NAN
+                    };
+                    vals[2] = if second_row {
+                        at(2 * r + 1, 2 * c, s)
+                    } else {
+                        f64::NAN
+                    };
+                    vals[3] = if second_row && second_col {
+                        at(2 * r + 1, 2 * c + 1, s)
+                    } else {
+                        f64::NAN
+                    };
+                    let v = overview::reduce(self.resampling[band], &vals);
+                    if !v.is_nan() {
+                        let i = ((r * half + c) * spp + s) * ss;
+                        T::from_f64_saturating(v).put_le(&mut out[i..i + ss]);
+                    }
+                }
+            }
+        }
+        out
+    }
+
+    /// Tile `index` of overview level 1 put together from the quarters of the (up to)
+    /// four full-resolution tiles it covers, predicted and compressed.
+    fn level_one_from_quarters(&self, q: &Quarters, index: usize) -> Result<Vec<u8>> {
+        let p = &self.plan;
+        let t = p.block_w;
+        let half = t / 2;
+        let (across, down) = p.level_grid(1);
+        let per_plane = across * down;
+        let plane = index / per_plane;
+        let (tc, tr) = (index % per_plane % across, index % per_plane / across);
+        let (pa, pd) = p.level_grid(0);
+        let spp = p.samples_per_block_pixel();
+        let ss = p.sample_type.size();
+        let row_bytes = half * spp * ss;
+        let mut out = self.fill_tile();
+        let mut quarter = vec![0u8; q.slot];
+        for (dx, dy) in [(0, 0), (1, 0), (0, 1), (1, 1)] {
+            let (cc, cr) = (2 * tc + dx, 2 * tr + dy);
+            if cc >= pa || cr >= pd {
+                continue;
+            }
+            let ci = plane * pa * pd + cr * pa + cc;
+            tags::read_exact_at(&q.file, &mut quarter, (ci * q.slot) as u64)
+                .map_err(|e| Error::io(&self.path, e))?;
+            for r in 0..half {
+                let to = ((dy * half + r) * t + dx * half) * spp * ss;
+                out[to..to + row_bytes]
+                    .copy_from_slice(&quarter[r * row_bytes..(r + 1) * row_bytes]);
+            }
+        }
+        self.pack(None, 0, out)
+    }
+
+    /// A whole tile of the nodata fill, little-endian.
+    fn fill_tile(&self) -> Vec<u8> {
+        let p = &self.plan;
+        let n = p.block_w * p.block_w * p.samples_per_block_pixel();
+        let v = self.grid.nodata.unwrap_or(0.0);
+        match p.sample_type {
+            SampleType::U8 => u8::fill_le(u8::from_f64_saturating(v), n),
+            SampleType::U16 => u16::fill_le(u16::from_f64_saturating(v), n),
+            SampleType::I16 => i16::fill_le(i16::from_f64_saturating(v), n),
+            SampleType::U32 => u32::fill_le(u32::from_f64_saturating(v), n),
+            SampleType::I32 => i32::fill_le(i32::from_f64_saturating(v), n),
+            SampleType::F32 => f32::fill_le(f32::from_f64_saturating(v), n),
+            SampleType::F64 => f64::fill_le(f64::from_f64_saturating(v), n),
+        }
+    }
+}
+
+/// A sample from its little-endian bytes.
+fn sample_le<T: TiffSample>(bytes: &[u8]) -> T {
+    let mut b = [0u8; 8];
+    let n = bytes.len();
+    b[..n].copy_from_slice(bytes);
+    if cfg!(target_endian = "big") {
+        b[..n].reverse();
+    }
+    T::from_ne(&b[..n])
 }
 
 /// Where one level's tiles lie in the spill file: the byte range of the level, and each
