@@ -1,6 +1,6 @@
 //! GeoTIFF read and write throughput on a generated 4096 x 4096 float32 DSM (64 MiB),
-//! tiled 512 x 512, Deflate with the floating-point predictor (the stack's default) and
-//! uncompressed. Criterion reports bytes of raster per second; `scripts/bench_io.py` runs
+//! tiled 512 x 512 without overviews, Deflate with the floating-point predictor (the
+//! stack's default) and uncompressed. Criterion reports bytes of raster per second; `scripts/bench_io.py` runs
 //! this benchmark, times rasterio (GDAL) on the same files in the same run and prints
 //! the ratios.
 //!
@@ -49,10 +49,13 @@ fn dsm(n: usize) -> Array2<f32> {
 }
 
 fn cases() -> [(&'static str, WriteOptions); 2] {
+    // Plain tiled GeoTIFFs, as rasterio writes them in scripts/bench_io.py: no overviews
+    // (the Cloud Optimized layout with overviews is timed whole in scripts/bench_build.py).
     let tiled = WriteOptions {
         layout: Layout::Tiled { size: 512 },
         interleave: Interleave::Band,
         bigtiff: BigTiff::Auto,
+        overviews: false,
         ..WriteOptions::default()
     };
     [

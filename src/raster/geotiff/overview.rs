@@ -124,17 +124,21 @@ pub fn sin_cos_degrees(deg: f64) -> (f64, f64) {
     (a * SIN_SIGN[quadrant], b * COS_SIGN[quadrant])
 }
 
-/// (sin, cos) of `t` in [0, π/4] by the Taylor series, evaluated by Horner's rule.
+/// (sin, cos) of `t` in [0, π/4] by the Taylor series, sin t = t Σ (−t²)^k / (2k+1)! and
+/// cos t = Σ (−t²)^k / (2k)!, k = 0..=8, each polynomial in u = t² evaluated by Estrin's
+/// scheme (pairs, then pairs of pairs: four dependent steps instead of Horner's nine).
 fn sin_cos_small(t: f64) -> (f64, f64) {
-    let t2 = t * t;
-    let mut s = 0.0;
-    let mut c = 0.0;
-    // sin t = t Σ (−t²)^k / (2k+1)!, cos t = Σ (−t²)^k / (2k)!, k = 0..=8.
-    for k in (0..=8).rev() {
-        s = s * t2 + SIN_TERMS[k];
-        c = c * t2 + COS_TERMS[k];
-    }
-    (s * t, c)
+    let u = t * t;
+    (t * estrin(&SIN_TERMS, u), estrin(&COS_TERMS, u))
+}
+
+/// Σ a_k u^k, k = 0..=8, by Estrin's scheme.
+fn estrin(a: &[f64; 9], u: f64) -> f64 {
+    let u2 = u * u;
+    let u4 = u2 * u2;
+    let low = (a[0] + a[1] * u) + (a[2] + a[3] * u) * u2;
+    let high = (a[4] + a[5] * u) + (a[6] + a[7] * u) * u2;
+    (low + high * u4) + a[8] * (u4 * u4)
 }
 
 /// (−1)^k / (2k+1)!, k = 0..=8: the Taylor coefficients of sin t / t.
