@@ -320,6 +320,13 @@ pub struct GeoTiffWriter {
     state: Mutex<State>,
 }
 
+/// Sines and cosines of a tile's directions (NaN where a cell has none), for the circular
+/// mean.
+struct CircularParts {
+    sin: Vec<f64>,
+    cos: Vec<f64>,
+}
+
 /// Each full-resolution tile of a Cloud Optimized file reduced to its quarter of an
 /// overview level 1 tile (t/2 x t/2 cells, uncompressed little-endian samples) when it is
 /// compressed, in slot `tile index` of a temporary file: level 1 is then assembled from
@@ -1050,7 +1057,7 @@ impl GeoTiffWriter {
         const QUAD: [(usize, usize); 4] = [(0, 0), (1, 0), (0, 1), (1, 1)];
         let nodata = self.grid.nodata.and_then(T::nodata_match);
         // The four child tiles as f64 samples, nodata as NaN (absent past the edge).
-        let mut children: [Option<Vec<f64>>; 4] = Default::default();
+        let mut children: [Option<(Vec<f64>, Option<CircularParts>)>; 4] = Default::default();
         for (j, (dx, dy)) in QUAD.iter().enumerate() {
             let (cc, cr) = (2 * tc + dx, 2 * tr + dy);
             if cc >= pa || cr >= pd {
@@ -1064,7 +1071,7 @@ impl GeoTiffWriter {
             let mut data = codec::decompress(p.codec, raw, shape.bytes())
                 .map_err(|e| Error::file(&self.path, format!("reading back a tile: {e}")))?;
             codec::decode_samples(&mut data, shape, tags::ByteOrder::Little, p.predictor);
-            let values = data
+            let values: Vec<f64> = data
                 .chunks_exact(ss)
                 .map(|b| {
                     let v = T::from_ne(b).to_f64();
@@ -1075,7 +1082,8 @@ impl GeoTiffWriter {
                     }
                 })
                 .collect();
-            children[j] = Some(values);
+            let parts = self.circular_parts(plane, &values);
+            children[j] = Some((values, parts));
         }
         let fill = T::from_f64_saturating(self.grid.nodata.unwrap_or(0.0));
         let mut out = T::fill_le(fill, t * t * spp);
@@ -1085,13 +1093,12 @@ impl GeoTiffWriter {
         // place in it (2r mod t, 2c mod t). A second row or column past level k − 1's edge
         // does not take part.
         let (row0, col0) = (2 * tr * t, 2 * tc * t);
-        let mut vals = [f64::NAN; 4];
         for r in 0..vh {
             let (cy, lr) = ((2 * r) / t, (2 * r) % t);
             let second_row = row0 + 2 * r + 1 < ph;
             for c in 0..vw {
                 let (cx, lc) = ((2 * c) / t, (2 * c) % t);
-                let Some(d) = &children[2 * cy + cx] else {
+                let Some((d, parts)) = &children[2 * cy + cx] else {
                     continue;
                 };
                 let second_col = col0 + 2 * c + 1 < pw;
@@ -1099,19 +1106,13 @@ impl GeoTiffWriter {
                 let below = top + t * spp;
                 for s in 0..spp {
                     let band = if p.planar { plane } else { s };
-                    vals[0] = d[top + s];
-                    vals[1] = if second_col {
-                        d[top + spp + s]
-                    } else {
-                        f64::NAN
-                    };
-                    vals[2] = if second_row { d[below + s] } else { f64::NAN };
-                    vals[3] = if second_row && second_col {
-                        d[below + spp + s]
-                    } else {
-                        f64::NAN
-                    };
-                    let v = overview::reduce(self.resampling[band], &vals);
+                    let cells = [
+                        Some(top + s),
+                        second_col.then_some(top + spp + s),
+                        second_row.then_some(below + s),
+                        (second_row && second_col).then_some(below + spp + s),
+                    ];
+                    let v = self.reduce_cells(band, &cells, d, parts.as_ref());
                     if !v.is_nan() {
                         let i = ((r * t + c) * spp + s) * ss;
                         T::from_f64_saturating(v).put_le(&mut out[i..i + ss]);
@@ -1140,39 +1141,32 @@ impl GeoTiffWriter {
         let nodata = self.grid.nodata.and_then(T::nodata_match);
         let fill = T::from_f64_saturating(self.grid.nodata.unwrap_or(0.0));
         let mut out = T::fill_le(fill, half * half * spp);
-        let at = |r: usize, c: usize, s: usize| {
-            let i = ((r * t + c) * spp + s) * ss;
-            let v = sample_le::<T>(&raw[i..i + ss]).to_f64();
-            if nodata == Some(v) {
-                f64::NAN
-            } else {
-                v
-            }
-        };
-        let mut vals = [f64::NAN; 4];
+        let values: Vec<f64> = raw
+            .chunks_exact(ss)
+            .map(|b| {
+                let v = sample_le::<T>(b).to_f64();
+                if nodata == Some(v) {
+                    f64::NAN
+                } else {
+                    v
+                }
+            })
+            .collect();
+        let parts = self.circular_parts(plane, &values);
+        let at = |r: usize, c: usize, s: usize| (r * t + c) * spp + s;
         for r in 0..vh.div_ceil(2) {
             let second_row = 2 * r + 1 < vh;
             for c in 0..vw.div_ceil(2) {
                 let second_col = 2 * c + 1 < vw;
                 for s in 0..spp {
                     let band = if p.planar { plane } else { s };
-                    vals[0] = at(2 * r, 2 * c, s);
-                    vals[1] = if second_col {
-                        at(2 * r, 2 * c + 1, s)
-                    } else {
-                        f64::NAN
-                    };
-                    vals[2] = if second_row {
-                        at(2 * r + 1, 2 * c, s)
-                    } else {
-                        f64::NAN
-                    };
-                    vals[3] = if second_row && second_col {
-                        at(2 * r + 1, 2 * c + 1, s)
-                    } else {
-                        f64::NAN
-                    };
-                    let v = overview::reduce(self.resampling[band], &vals);
+                    let cells = [
+                        Some(at(2 * r, 2 * c, s)),
+                        second_col.then(|| at(2 * r, 2 * c + 1, s)),
+                        second_row.then(|| at(2 * r + 1, 2 * c, s)),
+                        (second_row && second_col).then(|| at(2 * r + 1, 2 * c + 1, s)),
+                    ];
+                    let v = self.reduce_cells(band, &cells, &values, parts.as_ref());
                     if !v.is_nan() {
                         let i = ((r * half + c) * spp + s) * ss;
                         T::from_f64_saturating(v).put_le(&mut out[i..i + ss]);
@@ -1181,6 +1175,53 @@ impl GeoTiffWriter {
             }
         }
         out
+    }
+
+    /// The sines and cosines of `values` when they are all of one band (a band-sequential
+    /// or one-band file) whose overviews take the circular mean; `None` otherwise.
+    fn circular_parts(&self, plane: usize, values: &[f64]) -> Option<CircularParts> {
+        let p = &self.plan;
+        let band = if p.planar { plane } else { 0 };
+        if !(p.planar || p.bands == 1) || self.resampling[band] != OverviewResampling::Circular {
+            return None;
+        }
+        let mut parts = CircularParts {
+            sin: vec![0.0; values.len()],
+            cos: vec![0.0; values.len()],
+        };
+        overview::sin_cos_degrees_many(values, &mut parts.sin, &mut parts.cos);
+        Some(parts)
+    }
+
+    /// Reduce the (up to) four cells `cells` (indices into `values`, in the order upper
+    /// left, upper right, lower left, lower right; `None` for one that does not take part)
+    /// of band `band` (0-based); with their sines and cosines in `parts` when the band
+    /// takes the circular mean. The same value as [`overview::reduce`] of the cells.
+    fn reduce_cells(
+        &self,
+        band: usize,
+        cells: &[Option<usize>; 4],
+        values: &[f64],
+        parts: Option<&CircularParts>,
+    ) -> f64 {
+        if let Some(parts) = parts {
+            let (mut s, mut c, mut n) = (0.0, 0.0, 0u32);
+            for &i in cells.iter().flatten() {
+                if !parts.sin[i].is_nan() {
+                    s += parts.sin[i];
+                    c += parts.cos[i];
+                    n += 1;
+                }
+            }
+            return overview::mean_direction(s, c, n);
+        }
+        let mut vals = [f64::NAN; 4];
+        for (v, i) in vals.iter_mut().zip(cells.iter()) {
+            if let Some(i) = i {
+                *v = values[*i];
+            }
+        }
+        overview::reduce(self.resampling[band], &vals)
     }
 
     /// Tile `index` of overview level 1 put together from the quarters of the (up to)
