@@ -911,8 +911,6 @@ impl GeoTiffWriter {
                 let packed: Vec<Result<Vec<u8>>> = (first..last)
                     .into_par_iter()
                     .map(|i| match p.sample_type {
-                        _ if k == 1 && self.quarters.is_some() => self
-                            .level_one_from_quarters(self.quarters.as_ref().expect("checked"), i),
                         SampleType::U8 => self.overview_tile::<u8>(k, i, prev),
                         SampleType::U16 => self.overview_tile::<u16>(k, i, prev),
                         SampleType::I16 => self.overview_tile::<i16>(k, i, prev),
@@ -1043,6 +1041,9 @@ impl GeoTiffWriter {
         index: usize,
         prev: &LevelTiles,
     ) -> Result<Vec<u8>> {
+        if let (1, Some(q)) = (k, &self.quarters) {
+            return self.level_one_from_quarters::<T>(q, index);
+        }
         let p = &self.plan;
         let t = p.block_w;
         let (across, down) = p.level_grid(k);
@@ -1055,7 +1056,6 @@ impl GeoTiffWriter {
         let spp = p.samples_per_block_pixel();
         let ss = T::TYPE.size();
         const QUAD: [(usize, usize); 4] = [(0, 0), (1, 0), (0, 1), (1, 1)];
-        let nodata = self.grid.nodata.and_then(T::nodata_match);
         // The four child tiles as f64 samples, nodata as NaN (absent past the edge).
         let mut children: [Option<(Vec<f64>, Option<CircularParts>)>; 4] = Default::default();
         for (j, (dx, dy)) in QUAD.iter().enumerate() {
@@ -1071,17 +1071,7 @@ impl GeoTiffWriter {
             let mut data = codec::decompress(p.codec, raw, shape.bytes())
                 .map_err(|e| Error::file(&self.path, format!("reading back a tile: {e}")))?;
             codec::decode_samples(&mut data, shape, tags::ByteOrder::Little, p.predictor);
-            let values: Vec<f64> = data
-                .chunks_exact(ss)
-                .map(|b| {
-                    let v = T::from_ne(b).to_f64();
-                    if nodata == Some(v) {
-                        f64::NAN
-                    } else {
-                        v
-                    }
-                })
-                .collect();
+            let values = self.values(&data, T::from_ne);
             let parts = self.circular_parts(plane, &values);
             children[j] = Some((values, parts));
         }
@@ -1138,20 +1128,9 @@ impl GeoTiffWriter {
         let plane = index / per_plane;
         let (bc, br) = (index % per_plane % p.across, index % per_plane / p.across);
         let (vw, vh) = p.valid_size(bc, br);
-        let nodata = self.grid.nodata.and_then(T::nodata_match);
         let fill = T::from_f64_saturating(self.grid.nodata.unwrap_or(0.0));
         let mut out = T::fill_le(fill, half * half * spp);
-        let values: Vec<f64> = raw
-            .chunks_exact(ss)
-            .map(|b| {
-                let v = sample_le::<T>(b).to_f64();
-                if nodata == Some(v) {
-                    f64::NAN
-                } else {
-                    v
-                }
-            })
-            .collect();
+        let values = self.values(raw, sample_le::<T>);
         let parts = self.circular_parts(plane, &values);
         let at = |r: usize, c: usize, s: usize| (r * t + c) * spp + s;
         for r in 0..vh.div_ceil(2) {
@@ -1175,6 +1154,22 @@ impl GeoTiffWriter {
             }
         }
         out
+    }
+
+    /// The samples of `bytes` (each read by `read`) as f64, the nodata value as NaN.
+    fn values<T: TiffSample>(&self, bytes: &[u8], read: fn(&[u8]) -> T) -> Vec<f64> {
+        let nodata = self.grid.nodata.and_then(T::nodata_match);
+        bytes
+            .chunks_exact(T::TYPE.size())
+            .map(|b| {
+                let v = read(b).to_f64();
+                if nodata == Some(v) {
+                    f64::NAN
+                } else {
+                    v
+                }
+            })
+            .collect()
     }
 
     /// The sines and cosines of `values` when they are all of one band (a band-sequential
@@ -1226,7 +1221,11 @@ impl GeoTiffWriter {
 
     /// Tile `index` of overview level 1 put together from the quarters of the (up to)
     /// four full-resolution tiles it covers, predicted and compressed.
-    fn level_one_from_quarters(&self, q: &Quarters, index: usize) -> Result<Vec<u8>> {
+    fn level_one_from_quarters<T: TiffSample>(
+        &self,
+        q: &Quarters,
+        index: usize,
+    ) -> Result<Vec<u8>> {
         let p = &self.plan;
         let t = p.block_w;
         let half = t / 2;
@@ -1236,9 +1235,10 @@ impl GeoTiffWriter {
         let (tc, tr) = (index % per_plane % across, index % per_plane / across);
         let (pa, pd) = p.level_grid(0);
         let spp = p.samples_per_block_pixel();
-        let ss = p.sample_type.size();
+        let ss = T::TYPE.size();
         let row_bytes = half * spp * ss;
-        let mut out = self.fill_tile();
+        let fill = T::from_f64_saturating(self.grid.nodata.unwrap_or(0.0));
+        let mut out = T::fill_le(fill, t * t * spp);
         let mut quarter = vec![0u8; q.slot];
         for (dx, dy) in [(0, 0), (1, 0), (0, 1), (1, 1)] {
             let (cc, cr) = (2 * tc + dx, 2 * tr + dy);
@@ -1255,22 +1255,6 @@ impl GeoTiffWriter {
             }
         }
         self.pack(None, 0, out)
-    }
-
-    /// A whole tile of the nodata fill, little-endian.
-    fn fill_tile(&self) -> Vec<u8> {
-        let p = &self.plan;
-        let n = p.block_w * p.block_w * p.samples_per_block_pixel();
-        let v = self.grid.nodata.unwrap_or(0.0);
-        match p.sample_type {
-            SampleType::U8 => u8::fill_le(u8::from_f64_saturating(v), n),
-            SampleType::U16 => u16::fill_le(u16::from_f64_saturating(v), n),
-            SampleType::I16 => i16::fill_le(i16::from_f64_saturating(v), n),
-            SampleType::U32 => u32::fill_le(u32::from_f64_saturating(v), n),
-            SampleType::I32 => i32::fill_le(i32::from_f64_saturating(v), n),
-            SampleType::F32 => f32::fill_le(f32::from_f64_saturating(v), n),
-            SampleType::F64 => f64::fill_le(f64::from_f64_saturating(v), n),
-        }
     }
 }
 
