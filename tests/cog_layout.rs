@@ -314,6 +314,16 @@ fn write_stack(path: &Path, g: &Grid, bands: &[Array2<f32>], o: WriteOptions, th
     });
 }
 
+/// Fails when `dir` holds a hidden file: a writer's temporary names start with a dot.
+fn assert_no_temporary_files(dir: &Path) {
+    let left: Vec<_> = std::fs::read_dir(dir)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .filter(|n| n.starts_with('.'))
+        .collect();
+    assert!(left.is_empty(), "{left:?}");
+}
+
 fn options(tile: usize) -> WriteOptions {
     WriteOptions {
         layout: Layout::Tiled { size: tile },
@@ -432,12 +442,7 @@ fn layouts_and_determinism() {
             .zip(b.iter())
             .all(|(x, y)| x.to_bits() == y.to_bits()));
         // No spill file is left beside the output.
-        let left: Vec<_> = std::fs::read_dir(dir.path())
-            .unwrap()
-            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
-            .filter(|n| n.starts_with('.'))
-            .collect();
-        assert!(left.is_empty(), "{left:?}");
+        assert_no_temporary_files(dir.path());
     }
     // Without overviews the directory follows the data, as before.
     let flat = dir.path().join("flat.tif");
@@ -530,10 +535,5 @@ fn level_one_kept_while_writing_equals_level_one_read_back() {
         );
     }
     // The writer's temporary files are gone.
-    let left: Vec<_> = std::fs::read_dir(dir.path())
-        .unwrap()
-        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
-        .filter(|n| n.starts_with('.'))
-        .collect();
-    assert!(left.is_empty(), "{left:?}");
+    assert_no_temporary_files(dir.path());
 }

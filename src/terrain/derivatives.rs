@@ -592,7 +592,7 @@ impl RowTask<'_> {
 }
 
 /// Whether the running CPU has AVX2 (x86-64 only).
-fn wide_vectors_available() -> bool {
+pub(crate) fn wide_vectors_available() -> bool {
     #[cfg(target_arch = "x86_64")]
     {
         std::arch::is_x86_feature_detected!("avx2")

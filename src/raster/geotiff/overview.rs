@@ -104,7 +104,7 @@ pub fn mean_direction(s: f64, c: f64, n: u32) -> f64 {
 /// contracts a·b + c).
 pub fn sin_cos_degrees_many(deg: &[f64], sin: &mut [f64], cos: &mut [f64]) {
     #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx2") {
+    if crate::terrain::derivatives::wide_vectors_available() {
         // SAFETY: the CPU reports AVX2.
         unsafe { sin_cos_many_avx2(deg, sin, cos) };
         return;
