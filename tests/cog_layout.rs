@@ -537,3 +537,78 @@ fn level_one_kept_while_writing_equals_level_one_read_back() {
     // The writer's temporary files are gone.
     assert_no_temporary_files(dir.path());
 }
+
+/// Values that Deflate cannot shrink much (so that a few megacells make more than
+/// `IN_PLACE_MIN_BYTES` of tiles), with a pattern of nodata cells.
+fn rough(w: usize, h: usize, seed: u64) -> Array2<f32> {
+    Array2::from_shape_fn((h, w), |(r, c)| {
+        let bits = terrastack::random::mix64(seed ^ ((r as u64) << 32 | c as u64));
+        if bits.is_multiple_of(97) {
+            f32::NAN
+        } else {
+            (100.0 + terrastack::random::unit_f64(bits) * 50.0) as f32
+        }
+    })
+}
+
+#[test]
+fn large_files_finished_in_the_spill_file_equal_copied_ones() {
+    use terrastack::raster::geotiff::file_ranges::{
+        in_place_count, insert_at_front, set_in_place_allowed, IN_PLACE_ALIGN, IN_PLACE_MIN_BYTES,
+    };
+    let dir = util::tempdir();
+    let (w, h) = (2100, 2050);
+    let g = grid(w, h);
+    let bands = [rough(w, h, 1), rough(w, h, 2)];
+    let in_place = dir.path().join("in-place.tif");
+    let copied = dir.path().join("copied.tif");
+    let before = in_place_count();
+    write_stack(&in_place, &g, &bands, options(512), 2);
+    let used = in_place_count() > before;
+    set_in_place_allowed(false);
+    write_stack(&copied, &g, &bands, options(512), 2);
+    set_in_place_allowed(true);
+    let bytes = std::fs::read(&in_place).unwrap();
+    assert_eq!(
+        bytes,
+        std::fs::read(&copied).unwrap(),
+        "the same bytes both ways"
+    );
+    assert_no_temporary_files(dir.path());
+    // Where this file system can insert a range, the in-place way was taken.
+    let probe = std::fs::OpenOptions::new()
+        .read(true)
+        .write(true)
+        .create(true)
+        .truncate(true)
+        .open(dir.path().join("probe"))
+        .unwrap();
+    probe.set_len(2 * IN_PLACE_ALIGN).unwrap();
+    assert_eq!(used, insert_at_front(&probe, IN_PLACE_ALIGN).unwrap());
+    // A Cloud Optimized file whose full resolution is large, starting on an aligned offset,
+    // read back by an independent decoder at full resolution and at overview level 1.
+    let dirs = assert_cog(&in_place);
+    let first = *dirs[0].offsets.iter().min().unwrap();
+    assert_eq!(first % IN_PLACE_ALIGN, 0);
+    assert!(dirs[0].counts.iter().sum::<u64>() >= IN_PLACE_MIN_BYTES);
+    assert_eq!(
+        bytes.len() as u64,
+        first + dirs[0].counts.iter().sum::<u64>()
+    );
+    let full = decode_level(&in_place, 0);
+    for (got, want) in full.iter().zip(&bands) {
+        assert!(got
+            .iter()
+            .zip(want)
+            .all(|(a, b)| a == b || a.is_nan() && b.is_nan()));
+    }
+    let level1 = decode_level(&in_place, 1);
+    let naive = halve(&bands[0]);
+    assert_eq!(level1[0].dim(), naive.dim());
+    for (a, b) in level1[0].iter().zip(&naive) {
+        assert!(
+            a.is_nan() && b.is_nan() || (a - b).abs() <= 1e-4 * b.abs(),
+            "{a} {b}"
+        );
+    }
+}

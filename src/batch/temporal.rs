@@ -342,7 +342,7 @@ pub fn write_temporal(
         for (bi, o) in origins.iter().enumerate() {
             if let Origin::Dated { flight, band } = o {
                 let data = readers[*flight].read_window(*band, w)?;
-                stats[bi] = StatsAccumulator::from_values(data.iter());
+                stats[bi] = StatsAccumulator::from_array(&data);
                 preview.record(bi, w, data.view());
                 encoded.encode(bi + 1, data.view())?;
             }
@@ -359,7 +359,7 @@ pub fn write_temporal(
             for (bi, o) in origins.iter().enumerate() {
                 if let Origin::Summary { name, which: wi } = o {
                     if *name == ni {
-                        stats[bi] = StatsAccumulator::from_values(sums[*wi].iter());
+                        stats[bi] = StatsAccumulator::from_array(&sums[*wi]);
                         preview.record(bi, w, sums[*wi].view());
                         encoded.encode(bi + 1, sums[*wi].view())?;
                     }

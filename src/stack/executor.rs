@@ -221,7 +221,7 @@ fn run(
         for (i, data) in bands.iter().enumerate() {
             tiles.encode(i + 1, data.view())?;
             preview.record(i, w, data.view());
-            block_stats.push(StatsAccumulator::from_values(data.iter()));
+            block_stats.push(StatsAccumulator::from_array(data));
             if let Producer::Index(index) = &plan.bands[i].producer {
                 block_checks.index[i] =
                     RangeCount::of(data.iter().copied(), 1.0, index.valid_range);

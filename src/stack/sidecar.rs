@@ -144,9 +144,13 @@ pub struct BandStats {
     pub valid_fraction: f64,
 }
 
+/// Values summarised at a time by [`StatsAccumulator::from_values`] before they are merged.
+pub const STATS_CHUNK: usize = 4096;
+
 /// Partial statistics of one block: count, min, max, mean and the sum of squared
-/// deviations from the mean (Welford 1962), merged pairwise by Chan, Golub & LeVeque 1979
-/// ("Updating formulae and a pairwise algorithm for computing sample variances").
+/// deviations from the mean (two passes per chunk of [`STATS_CHUNK`] values), merged
+/// pairwise by Chan, Golub & LeVeque 1979 ("Updating formulae and a pairwise algorithm for
+/// computing sample variances").
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct StatsAccumulator {
     pub count: u64,
@@ -169,22 +173,81 @@ impl Default for StatsAccumulator {
 }
 
 impl StatsAccumulator {
-    /// Statistics of the non-NaN values in `values`.
-    pub fn from_values<'a>(values: impl IntoIterator<Item = &'a f32>) -> StatsAccumulator {
+    /// Statistics of the non-NaN values in `values`: chunks of [`STATS_CHUNK`] values, each
+    /// summarised in two passes (count, sum, min and max, then the squared deviations from
+    /// the chunk's mean) over eight interleaved partial sums that the compiler can keep in
+    /// vector registers, merged in order by [`Self::merge`] (Chan, Golub & LeVeque 1979).
+    /// The same values in the same order always give the same bits.
+    pub fn from_values(values: &[f32]) -> StatsAccumulator {
         let mut acc = StatsAccumulator::default();
-        for &v in values {
-            if v.is_nan() {
-                continue;
-            }
-            let v = v as f64;
-            acc.count += 1;
-            acc.min = acc.min.min(v);
-            acc.max = acc.max.max(v);
-            let delta = v - acc.mean;
-            acc.mean += delta / acc.count as f64;
-            acc.m2 += delta * (v - acc.mean);
+        for chunk in values.chunks(STATS_CHUNK) {
+            acc.merge(&StatsAccumulator::of_chunk(chunk));
         }
         acc
+    }
+
+    /// [`Self::from_values`] of an array's cells, in memory order.
+    pub fn from_array<S, D>(values: &ndarray::ArrayBase<S, D>) -> StatsAccumulator
+    where
+        S: ndarray::Data<Elem = f32>,
+        D: ndarray::Dimension,
+    {
+        match values.as_slice_memory_order() {
+            Some(cells) => StatsAccumulator::from_values(cells),
+            None => StatsAccumulator::from_values(&values.iter().copied().collect::<Vec<f32>>()),
+        }
+    }
+
+    /// One chunk, two passes; NaN cells are left out of every sum (a NaN compares false,
+    /// so it never becomes the minimum or the maximum).
+    fn of_chunk(chunk: &[f32]) -> StatsAccumulator {
+        const LANES: usize = 8;
+        let mut count = [0u32; LANES];
+        let mut sum = [0.0f64; LANES];
+        let mut lo = [f32::INFINITY; LANES];
+        let mut hi = [f32::NEG_INFINITY; LANES];
+        let mut lane = |l: usize, v: f32| {
+            let valid = !v.is_nan();
+            count[l] += valid as u32;
+            sum[l] += if valid { v as f64 } else { 0.0 };
+            lo[l] = if v < lo[l] { v } else { lo[l] };
+            hi[l] = if v > hi[l] { v } else { hi[l] };
+        };
+        let groups = chunk.chunks_exact(LANES);
+        let rest = groups.remainder();
+        for g in groups {
+            for (l, &v) in g.iter().enumerate() {
+                lane(l, v);
+            }
+        }
+        for (l, &v) in rest.iter().enumerate() {
+            lane(l, v);
+        }
+        let n: u64 = count.iter().map(|&c| c as u64).sum();
+        if n == 0 {
+            return StatsAccumulator::default();
+        }
+        let mean = sum.iter().sum::<f64>() / n as f64;
+        let mut m2 = [0.0f64; LANES];
+        let groups = chunk.chunks_exact(LANES);
+        let rest = groups.remainder();
+        for g in groups {
+            for (l, &v) in g.iter().enumerate() {
+                let d = v as f64 - mean;
+                m2[l] += if v.is_nan() { 0.0 } else { d * d };
+            }
+        }
+        for (l, &v) in rest.iter().enumerate() {
+            let d = v as f64 - mean;
+            m2[l] += if v.is_nan() { 0.0 } else { d * d };
+        }
+        StatsAccumulator {
+            count: n,
+            min: lo.iter().copied().fold(f32::INFINITY, f32::min) as f64,
+            max: hi.iter().copied().fold(f32::NEG_INFINITY, f32::max) as f64,
+            mean,
+            m2: m2.iter().sum(),
+        }
     }
 
     /// Merge `other` into `self` (Chan et al. 1979). Merging the same partials in the same
@@ -275,6 +338,40 @@ mod tests {
         assert_relative_eq!(merged.mean.unwrap(), whole.mean.unwrap(), epsilon = 1e-9);
         assert_relative_eq!(merged.std.unwrap(), whole.std.unwrap(), epsilon = 1e-9);
         assert_eq!(merged.min, whole.min);
+    }
+
+    #[test]
+    fn integers_across_chunks_match_closed_form() {
+        // 0, 1, ..., n − 1: mean (n − 1)/2, population variance (n² − 1)/12 (closed form);
+        // NaNs in between, past several chunks and not a multiple of the lanes.
+        let n = 3 * STATS_CHUNK + 123;
+        let mut v = Vec::new();
+        for i in 0..n {
+            v.push(i as f32);
+            if i % 5 == 0 {
+                v.push(f32::NAN);
+            }
+        }
+        let s = StatsAccumulator::from_values(&v).finish(v.len() as u64);
+        let nf = n as f64;
+        assert_eq!(s.min, Some(0.0));
+        assert_eq!(s.max, Some(nf - 1.0));
+        assert_relative_eq!(s.mean.unwrap(), (nf - 1.0) / 2.0, max_relative = 1e-14);
+        assert_relative_eq!(
+            s.std.unwrap(),
+            ((nf * nf - 1.0) / 12.0).sqrt(),
+            max_relative = 1e-12
+        );
+        let array = ndarray::Array2::from_shape_vec((1, v.len()), v.clone()).unwrap();
+        assert_eq!(
+            StatsAccumulator::from_array(&array),
+            StatsAccumulator::from_values(&v)
+        );
+        let transposed = array.t().to_owned();
+        assert_eq!(
+            StatsAccumulator::from_array(&transposed.t()),
+            StatsAccumulator::from_values(&v)
+        );
     }
 
     #[test]

@@ -16,6 +16,7 @@ use crate::grid::{Grid, RasterSpace};
 use crate::raster::SampleType;
 
 pub mod codec;
+pub mod file_ranges;
 pub mod geokeys;
 mod metadata;
 pub mod model_transform;

@@ -35,6 +35,7 @@ use crate::grid::{CrsKind, Grid, RasterSpace};
 use crate::raster::SampleType;
 
 use super::codec::{self, ChunkShape, Codec};
+use super::file_ranges;
 use super::overview::{self, OverviewResampling};
 use super::tags::{self, OutValue};
 use super::{
@@ -972,6 +973,15 @@ impl GeoTiffWriter {
             late_at.push(pos);
             pos = even(pos + len);
         }
+        // A large file is finished in its spill file (`finish_in_place`): the tiles start
+        // after a gap that ends on an IN_PLACE_ALIGN boundary, whichever way the file is
+        // finished, so its bytes do not depend on the file system.
+        let overview_bytes: u64 = spans[1..].iter().map(|s| s.end - s.start).sum();
+        let in_place = spans[0].end >= file_ranges::IN_PLACE_MIN_BYTES;
+        if in_place {
+            pos = (pos + overview_bytes).next_multiple_of(file_ranges::IN_PLACE_ALIGN)
+                - overview_bytes;
+        }
         let mut data_at = vec![0u64; n + 1];
         for k in (0..=n).rev() {
             data_at[k] = pos;
@@ -989,7 +999,14 @@ impl GeoTiffWriter {
             .output
             .as_ref()
             .expect("the Cloud Optimized layout has an output file");
-        out.set_len(total).map_err(io)?;
+        let finished_in_place = in_place
+            && self
+                .make_room_in_spill(&spans, &data_at, total)
+                .map_err(io)?;
+        let out = if finished_in_place { &self.file } else { out };
+        if !finished_in_place {
+            out.set_len(total).map_err(io)?;
+        }
         let mut header: Vec<u8> = if p.big {
             b"II+\0\x08\0\0\0".to_vec()
         } else {
@@ -1019,8 +1036,17 @@ impl GeoTiffWriter {
             tags::write_all_at(out, &ifd, ifd_at[k]).map_err(io)?;
             tags::write_all_at(out, &values, late_at[k]).map_err(io)?;
         }
+        if finished_in_place {
+            let spill = self
+                ._spill
+                .as_ref()
+                .expect("a Cloud Optimized writer has a spill file");
+            // The spill file, now the whole output, replaces the empty output file.
+            std::fs::rename(&spill.path, &self.path).map_err(io)?;
+            return Ok(());
+        }
         for (k, span) in spans.iter().enumerate().rev() {
-            copy_range(
+            file_ranges::copy_range(
                 &self.file,
                 span.start,
                 span.end - span.start,
@@ -1030,6 +1056,34 @@ impl GeoTiffWriter {
             .map_err(io)?;
         }
         Ok(())
+    }
+
+    /// Turn the spill file (full resolution from 0, then the overview levels) into the
+    /// output's tile data without copying the full resolution: room is inserted at its
+    /// front (`data_at[0]` bytes, an IN_PLACE_ALIGN multiple), the overview levels are
+    /// copied into that room at `data_at[k]` and cut from the end, leaving `total` bytes.
+    /// `Ok(false)`, with the spill file untouched, where the file system cannot insert.
+    fn make_room_in_spill(
+        &self,
+        spans: &[LevelTiles],
+        data_at: &[u64],
+        total: u64,
+    ) -> std::io::Result<bool> {
+        let room = data_at[0];
+        debug_assert_eq!(room % file_ranges::IN_PLACE_ALIGN, 0);
+        if !file_ranges::insert_at_front(&self.file, room)? {
+            return Ok(false);
+        }
+        for (k, span) in spans.iter().enumerate().skip(1) {
+            file_ranges::copy_within(
+                &self.file,
+                room + span.start,
+                span.end - span.start,
+                data_at[k],
+            )?;
+        }
+        self.file.set_len(total)?;
+        Ok(true)
     }
 
     /// Tile `index` of overview level `k` (1-based), predicted and compressed: each cell
@@ -1276,24 +1330,6 @@ struct LevelTiles {
     end: u64,
     offsets: Vec<u64>,
     counts: Vec<u64>,
-}
-
-/// Copy `len` bytes at `from` in `src` to `to` in `dst` (in the kernel where the system
-/// can: `std::io::copy` between files).
-fn copy_range(src: &File, from: u64, len: u64, dst: &File, to: u64) -> std::io::Result<()> {
-    use std::io::{Read, Seek, SeekFrom};
-    let mut s = src;
-    s.seek(SeekFrom::Start(from))?;
-    let mut d = dst;
-    d.seek(SeekFrom::Start(to))?;
-    let copied = std::io::copy(&mut s.take(len), &mut d)?;
-    if copied != len {
-        return Err(std::io::Error::new(
-            std::io::ErrorKind::UnexpectedEof,
-            format!("the spill file ended after {copied} of {len} bytes"),
-        ));
-    }
-    Ok(())
 }
 
 /// `n` default values, or `None` when the allocation fails (instead of aborting).
