@@ -61,6 +61,10 @@ pub fn run(args: Args) -> Result<()> {
         terrastack::stack::executor::check_threads("--threads", n)?;
     }
     let memory_bytes = parse_memory(&args.memory)?;
+    super::allocator::keep_freed_memory(
+        memory_bytes,
+        args.jobs * super::allocator::threads_or_cores(args.threads),
+    );
     let manifest = Manifest::load(&args.manifest)?;
     let options = BatchOptions {
         jobs: args.jobs,

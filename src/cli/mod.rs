@@ -5,6 +5,7 @@ use clap::{Parser, Subcommand};
 
 use terrastack::Result;
 
+mod allocator;
 mod batch;
 pub mod build;
 mod demo;
