@@ -6,6 +6,9 @@
 //!
 //! The files are left in `target/bench-io/` for that comparison. The side can be changed
 //! with `TERRASTACK_BENCH_IO_SIZE` (cells per side).
+//!
+//! The allocator is set up as `terrastack build` sets it with its default `--memory 2G`
+//! (`terrastack::allocator::keep_freed_memory`): the throughput of the command's I/O.
 
 use std::hint::black_box;
 use std::path::PathBuf;
@@ -71,6 +74,10 @@ fn cases() -> [(&'static str, WriteOptions); 2] {
 }
 
 fn io(c: &mut Criterion) {
+    terrastack::allocator::keep_freed_memory(
+        2 << 30,
+        terrastack::allocator::threads_or_cores(None),
+    );
     let n = side();
     let dir = out_dir();
     std::fs::create_dir_all(&dir).expect("create target/bench-io");

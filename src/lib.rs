@@ -28,6 +28,7 @@
 //! - [`demo_site`]: the generator of the invented demo site in `sample-dsm/`.
 
 pub mod align;
+pub mod allocator;
 pub mod atomic_file;
 pub mod batch;
 pub mod checksum;

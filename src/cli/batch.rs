@@ -61,9 +61,9 @@ pub fn run(args: Args) -> Result<()> {
         terrastack::stack::executor::check_threads("--threads", n)?;
     }
     let memory_bytes = parse_memory(&args.memory)?;
-    super::allocator::keep_freed_memory(
+    terrastack::allocator::keep_freed_memory(
         memory_bytes,
-        args.jobs * super::allocator::threads_or_cores(args.threads),
+        args.jobs * terrastack::allocator::threads_or_cores(args.threads),
     );
     let manifest = Manifest::load(&args.manifest)?;
     let options = BatchOptions {

@@ -181,9 +181,9 @@ pub fn run(args: Args) -> Result<()> {
     options.force = args.force;
     options.threads = args.threads;
     options.memory_bytes = parse_memory(&args.memory)?;
-    super::allocator::keep_freed_memory(
+    terrastack::allocator::keep_freed_memory(
         options.memory_bytes,
-        super::allocator::threads_or_cores(args.threads),
+        terrastack::allocator::threads_or_cores(args.threads),
     );
     if let Some(text) = &args.cell_limit {
         options.cell_limit = parse_cell_limit(text)?;

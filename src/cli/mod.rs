@@ -5,7 +5,6 @@ use clap::{Parser, Subcommand};
 
 use terrastack::Result;
 
-mod allocator;
 mod batch;
 pub mod build;
 mod demo;

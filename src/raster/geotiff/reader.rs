@@ -12,7 +12,7 @@ use std::fs::File;
 use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex};
 
-use ndarray::Array2;
+use ndarray::{s, Array2, ArrayViewMut2, Axis};
 use rayon::prelude::*;
 
 use crate::error::{Error, Result};
@@ -28,9 +28,6 @@ use super::{
     metadata, Compression, Interleave, Layout, MetadataItem, TiffSample, CACHE_BYTES,
     MAX_BLOCK_BYTES,
 };
-
-/// Decoded bytes of the blocks one window read decodes at once, in parallel.
-const PARALLEL_DECODE_BYTES: usize = 64 << 20;
 
 /// Uncompressed single-strip planes larger than this are read in strips of about this
 /// many bytes.
@@ -656,12 +653,12 @@ impl GeoTiffReader {
     /// `band` into `out` (shaped like the window), converting each sample with `conv`.
     /// Every read goes through here: the window is mapped to the file's stored cells and
     /// the result flipped back to the north-up grid ([`Orientation`]).
-    fn copy_window<T: TiffSample, O>(
+    fn copy_window<T: TiffSample, O: Send>(
         &self,
         band: usize,
         window: Window,
         out: &mut Array2<O>,
-        conv: impl Fn(T) -> O,
+        conv: impl Fn(T) -> O + Sync,
     ) -> Result<()> {
         let window = self
             .orientation
@@ -672,12 +669,12 @@ impl GeoTiffReader {
     }
 
     /// [`GeoTiffReader::copy_window`] in the file's stored cell order.
-    fn copy_stored_window<T: TiffSample, O>(
+    fn copy_stored_window<T: TiffSample, O: Send>(
         &self,
         band: usize,
         window: Window,
         out: &mut Array2<O>,
-        conv: impl Fn(T) -> O,
+        conv: impl Fn(T) -> O + Sync,
     ) -> Result<()> {
         let Some(inter) = window.intersect(&Window::full(&self.grid)) else {
             return Ok(());
@@ -696,52 +693,70 @@ impl GeoTiffReader {
         };
         let (r0, r1) = (inter.row as usize, inter.row as usize + inter.height);
         let (c0, c1) = (inter.col as usize, inter.col as usize + inter.width);
-        let touched: Vec<(usize, usize)> = (r0 / self.block_h..=(r1 - 1) / self.block_h)
-            .flat_map(|br| (c0 / self.block_w..=(c1 - 1) / self.block_w).map(move |bc| (br, bc)))
-            .collect();
-        // Blocks are decoded in parallel, a bounded group at a time.
-        let block_bytes = self.block_w * self.block_h * ss * if self.planar { 1 } else { self.spp };
-        let group = (PARALLEL_DECODE_BYTES / block_bytes.max(1)).max(1);
-        for part in touched.chunks(group) {
-            let blocks: Vec<Arc<Vec<u8>>> = if part.len() == 1 {
-                vec![self.block(plane + part[0].0 * self.across + part[0].1)?]
-            } else {
-                part.par_iter()
-                    .map(|(br, bc)| self.block(plane + br * self.across + bc))
-                    .collect::<Result<_>>()?
-            };
-            for (&(br, bc), block) in part.iter().zip(blocks.iter()) {
-                let (by, bx) = (br * self.block_h, bc * self.block_w);
-                let rows = r0.max(by)..r1.min(by + self.block_h);
-                let cols = c0.max(bx)..c1.min(bx + self.block_w);
-                let oc0 = (cols.start as i64 - window.col) as usize;
-                for r in rows {
-                    let orow = (r as i64 - window.row) as usize;
-                    let mut out_row = out.row_mut(orow);
-                    let dst = &mut out_row
-                        .as_slice_mut()
-                        .expect("a freshly allocated array has contiguous rows")
-                        [oc0..oc0 + cols.len()];
-                    let first = (((r - by) * self.block_w + cols.start - bx) * step + sub) * ss;
-                    let stride = step * ss;
-                    let src = &block[first..first + (cols.len() - 1) * stride + ss];
-                    if step == 1 {
-                        for (d, sample) in dst.iter_mut().zip(src.chunks_exact(ss)) {
-                            *d = conv(T::from_ne(sample));
-                        }
-                    } else {
-                        for (d, sample) in dst.iter_mut().zip(src.chunks(stride)) {
-                            *d = conv(T::from_ne(&sample[..ss]));
-                        }
+        // The output cells of each block the window touches, as disjoint views: blocks
+        // are decoded and copied in parallel, one per thread at a time.
+        let mut pieces: Vec<(usize, usize, ArrayViewMut2<O>)> = Vec::new();
+        let inside = out.slice_mut(s![
+            (r0 as i64 - window.row) as usize..(r1 as i64 - window.row) as usize,
+            (c0 as i64 - window.col) as usize..(c1 as i64 - window.col) as usize
+        ]);
+        let mut rest_rows = inside;
+        for br in r0 / self.block_h..=(r1 - 1) / self.block_h {
+            let rows = r1.min((br + 1) * self.block_h) - r0.max(br * self.block_h);
+            let (mut band_rows, tail) = rest_rows.split_at(Axis(0), rows);
+            rest_rows = tail;
+            for bc in c0 / self.block_w..=(c1 - 1) / self.block_w {
+                let cols = c1.min((bc + 1) * self.block_w) - c0.max(bc * self.block_w);
+                let (piece, tail) = band_rows.split_at(Axis(1), cols);
+                band_rows = tail;
+                pieces.push((br, bc, piece));
+            }
+        }
+        let copy = |(br, bc, mut piece): (usize, usize, ArrayViewMut2<O>)| -> Result<()> {
+            let block = self.block(plane + br * self.across + bc)?;
+            let (by, bx) = (br * self.block_h, bc * self.block_w);
+            let (first_row, first_col) = (r0.max(by), c0.max(bx));
+            let stride = step * ss;
+            for (i, mut out_row) in piece.rows_mut().into_iter().enumerate() {
+                let dst = out_row
+                    .as_slice_mut()
+                    .expect("a row of a standard-layout array is contiguous");
+                let first =
+                    (((first_row + i - by) * self.block_w + first_col - bx) * step + sub) * ss;
+                let src = &block[first..first + (dst.len() - 1) * stride + ss];
+                if step == 1 {
+                    for (d, sample) in dst.iter_mut().zip(src.chunks_exact(ss)) {
+                        *d = conv(T::from_ne(sample));
+                    }
+                } else {
+                    for (d, sample) in dst.iter_mut().zip(src.chunks(stride)) {
+                        *d = conv(T::from_ne(&sample[..ss]));
                     }
                 }
             }
+            Ok(())
+        };
+        if pieces.len() == 1 {
+            pieces.into_iter().try_for_each(copy)
+        } else {
+            pieces.into_par_iter().try_for_each(copy)
         }
-        Ok(())
+    }
+
+    /// An array for `window`: NaN where it reaches past the raster; elsewhere zeros, which
+    /// the allocator gives as untouched zeroed pages (every such cell is overwritten, in
+    /// parallel, by the read).
+    fn blank<O: Clone>(&self, window: Window, zero: O, outside: O) -> Array2<O> {
+        let shape = (window.height, window.width);
+        if window.intersect(&Window::full(&self.grid)) == Some(window) {
+            Array2::from_elem(shape, zero)
+        } else {
+            Array2::from_elem(shape, outside)
+        }
     }
 
     fn read_f32<T: TiffSample>(&self, band: usize, window: Window) -> Result<Array2<f32>> {
-        let mut out = Array2::from_elem((window.height, window.width), f32::NAN);
+        let mut out = self.blank(window, 0.0, f32::NAN);
         // The nodata value as the stored type sees it; a value the type cannot hold
         // matches nothing.
         // ±inf (stored, or a float64 beyond the float32 range) is no elevation or
@@ -762,7 +777,7 @@ impl GeoTiffReader {
     }
 
     fn read_f64<T: TiffSample>(&self, band: usize, window: Window) -> Result<Array2<f64>> {
-        let mut out = Array2::from_elem((window.height, window.width), f64::NAN);
+        let mut out = self.blank(window, 0.0, f64::NAN);
         let nodata = self.grid.nodata.and_then(T::nodata_match);
         self.copy_window::<T, f64>(band, window, &mut out, |v| {
             let x = v.to_f64();

@@ -2,7 +2,9 @@
 //! freed memory. A build allocates and frees tile-sized buffers (a few MiB) thousands of
 //! times; with glibc's defaults each one can be mapped, zeroed by the kernel and unmapped
 //! again, a tenth of a one-thread build's time spent in page faults. Keeping freed memory
-//! for reuse, within the `--memory` budget, avoids that; results do not change.
+//! for reuse, within the `--memory` budget, avoids that; results do not change. The
+//! `build` and `batch` commands call [`keep_freed_memory`] once their options are parsed;
+//! a program using the library can do the same before it starts its work.
 
 /// Let each allocator arena keep up to a share of `memory_bytes` free for reuse: the
 /// budget spread over `threads` arenas and four times over, between 4 and 64 MiB
