@@ -162,21 +162,27 @@ macro_rules! int_sample {
     ($t:ty, $st:expr) => {
         impl TiffSample for $t {
             const TYPE: SampleType = $st;
+            #[inline]
             fn zero() -> Self {
                 0
             }
+            #[inline]
             fn from_ne(b: &[u8]) -> Self {
                 <$t>::from_ne_bytes(b.try_into().expect("sample width"))
             }
+            #[inline]
             fn put_le(self, out: &mut [u8]) {
                 out.copy_from_slice(&self.to_le_bytes());
             }
+            #[inline]
             fn to_f64(self) -> f64 {
                 self as f64
             }
+            #[inline]
             fn to_f32(self) -> f32 {
                 self as f32
             }
+            #[inline]
             fn from_f32(v: f32, fill: Self) -> Self {
                 if v.is_nan() {
                     fill
@@ -184,6 +190,7 @@ macro_rules! int_sample {
                     v.round() as $t
                 }
             }
+            #[inline]
             fn from_f64_saturating(v: f64) -> Self {
                 v.round() as $t
             }
@@ -202,24 +209,31 @@ int_sample!(i32, SampleType::I32);
 
 impl TiffSample for f32 {
     const TYPE: SampleType = SampleType::F32;
+    #[inline]
     fn zero() -> Self {
         0.0
     }
+    #[inline]
     fn from_ne(b: &[u8]) -> Self {
         f32::from_ne_bytes(b.try_into().expect("sample width"))
     }
+    #[inline]
     fn put_le(self, out: &mut [u8]) {
         out.copy_from_slice(&self.to_le_bytes());
     }
+    #[inline]
     fn to_f64(self) -> f64 {
         self as f64
     }
+    #[inline]
     fn to_f32(self) -> f32 {
         self
     }
+    #[inline]
     fn from_f32(v: f32, _fill: Self) -> Self {
         v
     }
+    #[inline]
     fn from_f64_saturating(v: f64) -> Self {
         v as f32
     }
@@ -231,24 +245,31 @@ impl TiffSample for f32 {
 
 impl TiffSample for f64 {
     const TYPE: SampleType = SampleType::F64;
+    #[inline]
     fn zero() -> Self {
         0.0
     }
+    #[inline]
     fn from_ne(b: &[u8]) -> Self {
         f64::from_ne_bytes(b.try_into().expect("sample width"))
     }
+    #[inline]
     fn put_le(self, out: &mut [u8]) {
         out.copy_from_slice(&self.to_le_bytes());
     }
+    #[inline]
     fn to_f64(self) -> f64 {
         self
     }
+    #[inline]
     fn to_f32(self) -> f32 {
         self as f32
     }
+    #[inline]
     fn from_f32(v: f32, _fill: Self) -> Self {
         v as f64
     }
+    #[inline]
     fn from_f64_saturating(v: f64) -> Self {
         v
     }

@@ -658,7 +658,7 @@ impl GeoTiffReader {
         band: usize,
         window: Window,
         out: &mut Array2<O>,
-        conv: impl Fn(T) -> O + Sync,
+        conv: impl Fn(T) -> O + Sync + Copy,
     ) -> Result<()> {
         let window = self
             .orientation
@@ -674,7 +674,7 @@ impl GeoTiffReader {
         band: usize,
         window: Window,
         out: &mut Array2<O>,
-        conv: impl Fn(T) -> O + Sync,
+        conv: impl Fn(T) -> O + Sync + Copy,
     ) -> Result<()> {
         let Some(inter) = window.intersect(&Window::full(&self.grid)) else {
             return Ok(());
@@ -764,7 +764,7 @@ impl GeoTiffReader {
         let nodata = self.grid.nodata.and_then(T::nodata_match);
         let finite = |x: f32| if x.is_finite() { x } else { f32::NAN };
         match nodata {
-            Some(nd) => self.copy_window::<T, f32>(band, window, &mut out, |v| {
+            Some(nd) => self.copy_window::<T, f32>(band, window, &mut out, move |v| {
                 if v.to_f64() == nd {
                     f32::NAN
                 } else {
@@ -779,7 +779,7 @@ impl GeoTiffReader {
     fn read_f64<T: TiffSample>(&self, band: usize, window: Window) -> Result<Array2<f64>> {
         let mut out = self.blank(window, 0.0, f64::NAN);
         let nodata = self.grid.nodata.and_then(T::nodata_match);
-        self.copy_window::<T, f64>(band, window, &mut out, |v| {
+        self.copy_window::<T, f64>(band, window, &mut out, move |v| {
             let x = v.to_f64();
             // ±inf reads as nodata, as in `read_f32`.
             if Some(x) == nodata || !x.is_finite() {

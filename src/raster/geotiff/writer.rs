@@ -626,9 +626,24 @@ impl GeoTiffWriter {
         let ss = T::TYPE.size();
         let shape = p.shape(br);
         let mut buf = T::fill_le(fill, shape.bytes() / ss);
-        for ((r, c), v) in data.indexed_iter() {
-            let i = (r * p.block_w + c) * ss;
-            T::from_f32(*v, fill).put_le(&mut buf[i..i + ss]);
+        // Row by row, a fixed sample size per instantiation: loops the compiler unrolls.
+        const { assert!(std::mem::size_of::<T>() <= 8) };
+        let size = std::mem::size_of::<T>();
+        debug_assert_eq!(size, ss);
+        for (r, row) in data.rows().into_iter().enumerate() {
+            let dst = &mut buf[r * p.block_w * size..][..row.len() * size];
+            match row.as_slice() {
+                Some(src) => {
+                    for (d, v) in dst.chunks_exact_mut(size).zip(src) {
+                        T::from_f32(*v, fill).put_le(d);
+                    }
+                }
+                None => {
+                    for (d, v) in dst.chunks_exact_mut(size).zip(row.iter()) {
+                        T::from_f32(*v, fill).put_le(d);
+                    }
+                }
+            }
         }
         buf
     }
@@ -1449,13 +1464,23 @@ pub(super) fn write_all<T: TiffSample>(
         };
         for (k, b) in band_range.enumerate() {
             let src = &bands[b];
+            // A fixed sample size per instantiation: loops the compiler unrolls.
+            let size = std::mem::size_of::<T>();
+            debug_assert_eq!(size, ss);
             for r in 0..h {
                 let row = src.row(y0 + r);
-                let first = (r * p.block_w * spp + k) * ss;
-                let dst = &mut buf[first..];
-                for (c, v) in row.iter().skip(x0).take(w).enumerate() {
-                    let i = c * spp * ss;
-                    v.put_le(&mut dst[i..i + ss]);
+                let dst = &mut buf[(r * p.block_w * spp + k) * size..];
+                match (spp, row.as_slice()) {
+                    (1, Some(cells)) => {
+                        for (d, v) in dst.chunks_exact_mut(size).zip(&cells[x0..x0 + w]) {
+                            v.put_le(d);
+                        }
+                    }
+                    _ => {
+                        for (d, v) in dst.chunks_mut(spp * size).zip(row.iter().skip(x0).take(w)) {
+                            v.put_le(&mut d[..size]);
+                        }
+                    }
                 }
             }
         }
