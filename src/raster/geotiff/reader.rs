@@ -658,7 +658,7 @@ impl GeoTiffReader {
         band: usize,
         window: Window,
         out: &mut Array2<O>,
-        conv: impl Fn(T) -> O + Sync + Copy,
+        conv: impl Fn(T) -> O + Sync,
     ) -> Result<()> {
         let window = self
             .orientation
@@ -674,7 +674,7 @@ impl GeoTiffReader {
         band: usize,
         window: Window,
         out: &mut Array2<O>,
-        conv: impl Fn(T) -> O + Sync + Copy,
+        conv: impl Fn(T) -> O + Sync,
     ) -> Result<()> {
         let Some(inter) = window.intersect(&Window::full(&self.grid)) else {
             return Ok(());

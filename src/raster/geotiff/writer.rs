@@ -627,7 +627,6 @@ impl GeoTiffWriter {
         let shape = p.shape(br);
         let mut buf = T::fill_le(fill, shape.bytes() / ss);
         // Row by row, a fixed sample size per instantiation: loops the compiler unrolls.
-        const { assert!(std::mem::size_of::<T>() <= 8) };
         let size = std::mem::size_of::<T>();
         debug_assert_eq!(size, ss);
         for (r, row) in data.rows().into_iter().enumerate() {
@@ -988,7 +987,7 @@ impl GeoTiffWriter {
             late_at.push(pos);
             pos = even(pos + len);
         }
-        // A large file is finished in its spill file (`finish_in_place`): the tiles start
+        // A large file is finished in its spill file (`make_room_in_spill`): the tiles start
         // after a gap that ends on an IN_PLACE_ALIGN boundary, whichever way the file is
         // finished, so its bytes do not depend on the file system.
         let overview_bytes: u64 = spans[1..].iter().map(|s| s.end - s.start).sum();
