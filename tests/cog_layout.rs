@@ -602,6 +602,21 @@ fn large_files_finished_in_the_spill_file_equal_copied_ones() {
             .zip(want)
             .all(|(a, b)| a == b || a.is_nan() && b.is_nan()));
     }
+    // Written through a symbolic link, the link stays and the file it names gets the bytes.
+    #[cfg(unix)]
+    {
+        let target = dir.path().join("target.tif");
+        let link = dir.path().join("link.tif");
+        std::fs::write(&target, b"old").unwrap();
+        std::os::unix::fs::symlink(&target, &link).unwrap();
+        write_stack(&link, &g, &bands, options(512), 2);
+        assert!(std::fs::symlink_metadata(&link)
+            .unwrap()
+            .file_type()
+            .is_symlink());
+        assert_eq!(std::fs::read(&target).unwrap(), bytes);
+        assert_no_temporary_files(dir.path());
+    }
     let level1 = decode_level(&in_place, 1);
     let naive = halve(&bands[0]);
     assert_eq!(level1[0].dim(), naive.dim());

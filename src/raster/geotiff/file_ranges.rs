@@ -5,6 +5,7 @@
 
 use std::fs::File;
 use std::io::{Error, ErrorKind, Result};
+use std::path::Path;
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 
 use super::tags::{read_exact_at, write_all_at};
@@ -46,6 +47,23 @@ pub fn insert_at_front(file: &File, len: u64) -> Result<bool> {
         IN_PLACE_DONE.fetch_add(1, Ordering::SeqCst);
     }
     Ok(inserted)
+}
+
+/// Whether renaming another file over `path` leaves every name of the file as it was:
+/// `path` is a regular file with no other hard link. A symbolic link would be replaced by
+/// the file (instead of the file it points to being written), another hard link would
+/// keep the old content.
+pub fn replaceable_by_rename(path: &Path) -> Result<bool> {
+    let meta = std::fs::symlink_metadata(path)?;
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::MetadataExt;
+        Ok(meta.file_type().is_file() && meta.nlink() == 1)
+    }
+    #[cfg(not(unix))]
+    {
+        Ok(meta.file_type().is_file())
+    }
 }
 
 #[cfg(all(target_os = "linux", target_pointer_width = "64"))]

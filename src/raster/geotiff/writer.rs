@@ -1076,7 +1076,9 @@ impl GeoTiffWriter {
     /// output's tile data without copying the full resolution: room is inserted at its
     /// front (`data_at[0]` bytes, an IN_PLACE_ALIGN multiple), the overview levels are
     /// copied into that room at `data_at[k]` and cut from the end, leaving `total` bytes.
-    /// `Ok(false)`, with the spill file untouched, where the file system cannot insert.
+    /// `Ok(false)`, with the spill file untouched, where the file system cannot insert or
+    /// the output path is a symbolic link or has other hard links (a rename would replace
+    /// the link instead of writing the file).
     fn make_room_in_spill(
         &self,
         spans: &[LevelTiles],
@@ -1085,7 +1087,9 @@ impl GeoTiffWriter {
     ) -> std::io::Result<bool> {
         let room = data_at[0];
         debug_assert_eq!(room % file_ranges::IN_PLACE_ALIGN, 0);
-        if !file_ranges::insert_at_front(&self.file, room)? {
+        if !file_ranges::replaceable_by_rename(&self.path)?
+            || !file_ranges::insert_at_front(&self.file, room)?
+        {
             return Ok(false);
         }
         for (k, span) in spans.iter().enumerate().skip(1) {
