@@ -132,16 +132,21 @@ fn short(copied: u64, len: u64) -> Error {
 mod tests {
     use super::*;
 
-    #[test]
-    fn copy_within_moves_bytes_forward_and_back() {
-        let dir = tempfile::tempdir().unwrap();
-        let f = std::fs::OpenOptions::new()
+    /// A new empty file at `path`, open for reading and writing.
+    fn scratch(path: &Path) -> File {
+        std::fs::OpenOptions::new()
             .read(true)
             .write(true)
             .create(true)
             .truncate(true)
-            .open(dir.path().join("f"))
-            .unwrap();
+            .open(path)
+            .unwrap()
+    }
+
+    #[test]
+    fn copy_within_moves_bytes_forward_and_back() {
+        let dir = tempfile::tempdir().unwrap();
+        let f = scratch(&dir.path().join("f"));
         let bytes: Vec<u8> = (0..100u8).collect();
         write_all_at(&f, &bytes, 0).unwrap();
         copy_within(&f, 80, 20, 0).unwrap();
@@ -159,13 +164,7 @@ mod tests {
     fn insert_at_front_shifts_content_or_declines() {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("f");
-        let f = std::fs::OpenOptions::new()
-            .read(true)
-            .write(true)
-            .create(true)
-            .truncate(true)
-            .open(&path)
-            .unwrap();
+        let f = scratch(&path);
         let bytes: Vec<u8> = (0..3 * IN_PLACE_ALIGN).map(|i| (i % 251) as u8).collect();
         write_all_at(&f, &bytes, 0).unwrap();
         let inserted = insert_at_front(&f, IN_PLACE_ALIGN).unwrap();
