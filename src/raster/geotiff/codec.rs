@@ -116,13 +116,17 @@ pub fn decompress(codec: Codec, raw: Vec<u8>, expected: usize) -> Result<Vec<u8>
         Codec::PackBits => packbits_decode(data, expected),
     };
     if out.len() < expected {
-        return Err(format!(
-            "a block decodes to {} bytes where {expected} were expected (truncated or corrupt data)",
-            out.len()
-        ));
+        return Err(short_block(out.len(), expected));
     }
     out.truncate(expected);
     Ok(out)
+}
+
+/// The problem of a block that holds `len` bytes where `expected` were expected.
+pub fn short_block(len: usize, expected: usize) -> Problem {
+    format!(
+        "a block decodes to {len} bytes where {expected} were expected (truncated or corrupt data)"
+    )
 }
 
 thread_local! {

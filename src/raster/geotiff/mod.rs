@@ -790,4 +790,38 @@ mod tests {
         }
         assert_eq!(r.read_window(1, Window::full(&grid)).unwrap(), a);
     }
+
+    #[test]
+    fn uncompressed_blocks_of_any_size_in_turn_and_short_ones_refused() {
+        // Uncompressed blocks go through one buffer per thread: a small block after a
+        // large one reads only its own bytes, and a block shorter than its image is an
+        // error naming it, as for compressed blocks.
+        let small: Vec<u8> = (0..12).collect();
+        let large: Vec<u8> = (0..64 * 64).map(|i| (i * 7 % 251) as u8).collect();
+        let files = [
+            handmade(plain_entries(4, 3, 12), &small),
+            handmade(plain_entries(64, 64, 64 * 64), &large),
+        ];
+        let opened: Vec<_> = files.iter().map(|b| open_bytes(b)).collect();
+        for k in [0, 1, 0, 1, 0] {
+            let r = opened[k].2.as_ref().unwrap();
+            let want = if k == 0 { &small } else { &large };
+            let got = r.read_window(1, Window::full(r.grid())).unwrap();
+            assert!(got.iter().zip(want.iter()).all(|(g, w)| *g == *w as f32));
+            assert_eq!(got.len(), want.len());
+        }
+        let (_d, path, r) = open_bytes(&handmade(plain_entries(4, 3, 10), &small));
+        let msg = r
+            .unwrap()
+            .read_window(1, Window::new(0, 0, 4, 3))
+            .unwrap_err()
+            .to_string();
+        assert!(
+            msg.contains("strip 0")
+                && msg.contains("10 bytes where 12")
+                && msg.contains("fix:")
+                && msg.contains(&path.display().to_string()),
+            "{msg}"
+        );
+    }
 }

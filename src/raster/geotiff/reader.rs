@@ -33,6 +33,15 @@ use super::{
 /// many bytes.
 const VIRTUAL_STRIP_BYTES: usize = 8 << 20;
 
+/// Largest buffer for uncompressed blocks a thread keeps between reads (larger blocks get
+/// a buffer for the one read).
+const SCRATCH_KEEP_BYTES: usize = 16 << 20;
+
+thread_local! {
+    /// Each thread's buffer for uncompressed blocks (see [`GeoTiffReader::with_block`]).
+    static UNCOMPRESSED: std::cell::RefCell<Vec<u8>> = const { std::cell::RefCell::new(Vec::new()) };
+}
+
 /// Hint for corrupt or truncated files.
 const FIX_CORRUPT: &str =
     "the file is damaged or was not completely written: copy or export it again";
@@ -587,10 +596,19 @@ impl GeoTiffReader {
         }
     }
 
-    /// Decoded samples (machine byte order) of block `index`.
-    fn block(&self, index: usize) -> Result<Arc<Vec<u8>>> {
-        if let Some(b) = self.cache.lock().map_err(|_| self.poisoned())?.get(index) {
-            return Ok(b);
+    /// Call `f` with the decoded samples (machine byte order) of block `index`.
+    ///
+    /// Uncompressed blocks are read into a buffer of the calling thread's, reused from
+    /// block to block, and are not cached: the operating system's page cache already
+    /// holds their bytes, and a copy in [`BlockCache`] would cost a zero-filled
+    /// allocation per block on top of the read. Compressed blocks are decoded once and
+    /// kept in the cache, since decoding is what costs.
+    fn with_block<R>(&self, index: usize, f: impl FnOnce(&[u8]) -> R) -> Result<R> {
+        let uncompressed = self.codec == Codec::None;
+        if !uncompressed {
+            if let Some(b) = self.cache.lock().map_err(|_| self.poisoned())?.get(index) {
+                return Ok(f(&b));
+            }
         }
         let per_plane = self.across * self.down;
         let block_row = (index % per_plane) / self.across;
@@ -603,43 +621,62 @@ impl GeoTiffReader {
         let expected = shape.bytes();
         let (offset, count) = (self.offsets[index], self.counts[index]);
         let what = if self.tiled { "tile" } else { "strip" };
-        let data = if offset == 0 && count == 0 {
+        if offset == 0 && count == 0 {
             // A sparse block (GDAL's SPARSE_OK): reads as nodata, or 0 without nodata.
             let fill = self.grid.nodata.unwrap_or(0.0);
-            super::fill_bytes_native(self.sample_type, fill, expected / shape.sample_size)
-        } else {
-            let end = offset.checked_add(count).filter(|e| *e <= self.file_len);
-            if end.is_none() {
-                return Err(Error::file(
-                    &self.path,
-                    format!(
-                        "{what} {index} lies past the end of the file (bytes {offset}..{}, file is {} bytes): the file is truncated",
-                        offset.saturating_add(count),
-                        self.file_len
-                    ),
-                )
-                .with_fix(FIX_CORRUPT));
-            }
-            let read_len = if self.codec == Codec::None {
-                count.min(expected as u64)
-            } else {
-                count
-            };
-            let mut raw = vec![0u8; read_len as usize];
-            tags::read_exact_at(&self.file, &mut raw, offset)
-                .map_err(|e| Error::io(&self.path, e))?;
-            let mut data = codec::decompress(self.codec, raw, expected).map_err(|p| {
-                Error::file(&self.path, format!("{what} {index}: {p}")).with_fix(FIX_CORRUPT)
-            })?;
-            codec::decode_samples(&mut data, shape, self.order, self.predictor);
-            data
+            let data =
+                super::fill_bytes_native(self.sample_type, fill, expected / shape.sample_size);
+            return Ok(f(&data));
+        }
+        if offset
+            .checked_add(count)
+            .filter(|e| *e <= self.file_len)
+            .is_none()
+        {
+            return Err(Error::file(
+                &self.path,
+                format!(
+                    "{what} {index} lies past the end of the file (bytes {offset}..{}, file is {} bytes): the file is truncated",
+                    offset.saturating_add(count),
+                    self.file_len
+                ),
+            )
+            .with_fix(FIX_CORRUPT));
+        }
+        let corrupt = |p: String| -> Error {
+            Error::file(&self.path, format!("{what} {index}: {p}")).with_fix(FIX_CORRUPT)
         };
+        if uncompressed {
+            let read_len = count.min(expected as u64) as usize;
+            if read_len < expected {
+                return Err(corrupt(codec::short_block(read_len, expected)));
+            }
+            return UNCOMPRESSED.with(|scratch| {
+                let mut scratch = scratch.borrow_mut();
+                if scratch.len() < expected {
+                    scratch.resize(expected, 0);
+                }
+                let data = &mut scratch[..expected];
+                tags::read_exact_at(&self.file, data, offset)
+                    .map_err(|e| Error::io(&self.path, e))?;
+                codec::decode_samples(data, shape, self.order, self.predictor);
+                let result = f(data);
+                if scratch.len() > SCRATCH_KEEP_BYTES {
+                    *scratch = Vec::new();
+                }
+                Ok(result)
+            });
+        }
+        let mut raw = vec![0u8; count as usize];
+        tags::read_exact_at(&self.file, &mut raw, offset).map_err(|e| Error::io(&self.path, e))?;
+        let mut data = codec::decompress(self.codec, raw, expected).map_err(corrupt)?;
+        codec::decode_samples(&mut data, shape, self.order, self.predictor);
         let data = Arc::new(data);
         self.cache
             .lock()
             .map_err(|_| self.poisoned())?
             .put(index, data.clone());
-        Ok(data)
+        Ok(f(&data))
     }
 
     fn poisoned(&self) -> Error {
@@ -658,7 +695,7 @@ impl GeoTiffReader {
         band: usize,
         window: Window,
         out: &mut Array2<O>,
-        conv: impl Fn(T) -> O + Sync,
+        conv: impl Fn(T) -> O + Sync + Copy,
     ) -> Result<()> {
         let window = self
             .orientation
@@ -674,7 +711,7 @@ impl GeoTiffReader {
         band: usize,
         window: Window,
         out: &mut Array2<O>,
-        conv: impl Fn(T) -> O + Sync,
+        conv: impl Fn(T) -> O + Sync + Copy,
     ) -> Result<()> {
         let Some(inter) = window.intersect(&Window::full(&self.grid)) else {
             return Ok(());
@@ -713,28 +750,20 @@ impl GeoTiffReader {
             }
         }
         let copy = |(br, bc, mut piece): (usize, usize, ArrayViewMut2<O>)| -> Result<()> {
-            let block = self.block(plane + br * self.across + bc)?;
-            let (by, bx) = (br * self.block_h, bc * self.block_w);
-            let (first_row, first_col) = (r0.max(by), c0.max(bx));
-            let stride = step * ss;
-            for (i, mut out_row) in piece.rows_mut().into_iter().enumerate() {
-                let dst = out_row
-                    .as_slice_mut()
-                    .expect("a row of a standard-layout array is contiguous");
-                let first =
-                    (((first_row + i - by) * self.block_w + first_col - bx) * step + sub) * ss;
-                let src = &block[first..first + (dst.len() - 1) * stride + ss];
-                if step == 1 {
-                    for (d, sample) in dst.iter_mut().zip(src.chunks_exact(ss)) {
-                        *d = conv(T::from_ne(sample));
-                    }
-                } else {
-                    for (d, sample) in dst.iter_mut().zip(src.chunks(stride)) {
-                        *d = conv(T::from_ne(&sample[..ss]));
-                    }
+            self.with_block(plane + br * self.across + bc, |block| {
+                let (by, bx) = (br * self.block_h, bc * self.block_w);
+                let (first_row, first_col) = (r0.max(by), c0.max(bx));
+                let stride = step * ss;
+                for (i, mut out_row) in piece.rows_mut().into_iter().enumerate() {
+                    let dst = out_row
+                        .as_slice_mut()
+                        .expect("a row of a standard-layout array is contiguous");
+                    let first =
+                        (((first_row + i - by) * self.block_w + first_col - bx) * step + sub) * ss;
+                    let src = &block[first..first + (dst.len() - 1) * stride + ss];
+                    convert_row(dst, src, step, conv);
                 }
-            }
-            Ok(())
+            })
         };
         if pieces.len() == 1 {
             pieces.into_iter().try_for_each(copy)
@@ -745,14 +774,18 @@ impl GeoTiffReader {
 
     /// An array for `window`: NaN where it reaches past the raster; elsewhere zeros, which
     /// the allocator gives as untouched zeroed pages (every such cell is overwritten, in
-    /// parallel, by the read).
+    /// parallel, by the read), in huge pages when the array is large
+    /// ([`crate::allocator::prefer_huge_pages`]).
     fn blank<O: Clone>(&self, window: Window, zero: O, outside: O) -> Array2<O> {
         let shape = (window.height, window.width);
-        if window.intersect(&Window::full(&self.grid)) == Some(window) {
-            Array2::from_elem(shape, zero)
-        } else {
-            Array2::from_elem(shape, outside)
+        let mut out = Array2::from_elem(shape, zero);
+        if let Some(cells) = out.as_slice_mut() {
+            crate::allocator::prefer_huge_pages(cells);
         }
+        if window.intersect(&Window::full(&self.grid)) != Some(window) {
+            out.fill(outside);
+        }
+        out
     }
 
     fn read_f32<T: TiffSample>(&self, band: usize, window: Window) -> Result<Array2<f32>> {
@@ -822,6 +855,24 @@ impl GeoTiffReader {
         let mut out = Array2::from_elem((window.height, window.width), T::zero());
         self.copy_window::<T, T>(band, window, &mut out, |v| v)?;
         Ok(out)
+    }
+}
+
+/// Convert the samples of `src` (machine byte order, `step` samples apart) into `dst`.
+/// A function of its own, with the conversion by value: what the conversion captures (the
+/// nodata value) is then a register, not a load through a pointer per sample, and the
+/// loop over contiguous samples vectorises.
+#[inline(never)]
+fn convert_row<T: TiffSample, O>(dst: &mut [O], src: &[u8], step: usize, conv: impl Fn(T) -> O) {
+    let ss = std::mem::size_of::<T>();
+    if step == 1 {
+        for (d, sample) in dst.iter_mut().zip(src.chunks_exact(ss)) {
+            *d = conv(T::from_ne(sample));
+        }
+    } else {
+        for (d, sample) in dst.iter_mut().zip(src.chunks(step * ss)) {
+            *d = conv(T::from_ne(&sample[..ss]));
+        }
     }
 }
 
