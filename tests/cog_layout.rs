@@ -627,3 +627,74 @@ fn large_files_finished_in_the_spill_file_equal_copied_ones() {
         );
     }
 }
+
+#[test]
+fn space_allocated_ahead_leaves_the_bytes_as_they_were() {
+    use terrastack::raster::geotiff::file_ranges::{reserve_count, set_reserve_allowed};
+    use terrastack::raster::geotiff::Compression;
+    let dir = util::tempdir();
+    let (w, h) = (1500, 1300);
+    let g = grid(w, h);
+    let bands = [rough(w, h, 3), rough(w, h, 4)];
+    let plain = |compression| WriteOptions {
+        compression,
+        overviews: false,
+        ..options(256)
+    };
+    let cases = [
+        // Compressed blocks: the file grows by steps past the 4 MiB of the first.
+        ("deflate-plain", plain(Compression::Deflate)),
+        // Uncompressed: the tile data allocated at once.
+        ("none-plain", plain(Compression::None)),
+        (
+            "none-cog",
+            WriteOptions {
+                compression: Compression::None,
+                ..options(256)
+            },
+        ),
+        ("deflate-cog", options(256)),
+    ];
+    for (name, o) in cases {
+        let ahead = dir.path().join(format!("{name}-ahead.tif"));
+        let before = reserve_count();
+        write_stack(&ahead, &g, &bands, o.clone(), 2);
+        let reserved = reserve_count() > before;
+        set_reserve_allowed(false);
+        let grown = dir.path().join(format!("{name}-grown.tif"));
+        write_stack(&grown, &g, &bands, o, 2);
+        set_reserve_allowed(true);
+        let bytes = std::fs::read(&ahead).unwrap();
+        let other = std::fs::read(&grown).unwrap();
+        assert!(
+            bytes == other,
+            "{name}: the same bytes both ways ({} and {} bytes)",
+            bytes.len(),
+            other.len()
+        );
+        // Nothing allocated past the content: the file ends with its last tile or directory.
+        let (_, dirs) = walk(&bytes);
+        let end = dirs
+            .iter()
+            .flat_map(|d| {
+                let tiles = d.offsets.iter().zip(&d.counts).map(|(o, c)| o + c);
+                let values = d.values.iter().map(|v| v.2);
+                tiles.chain(values).chain([d.at.1])
+            })
+            .max()
+            .unwrap();
+        assert_eq!(bytes.len() as u64, end, "{name}");
+        let full = decode_level(&ahead, 0);
+        for (got, want) in full.iter().zip(&bands) {
+            assert!(got
+                .iter()
+                .zip(want)
+                .all(|(a, b)| a == b || a.is_nan() && b.is_nan()));
+        }
+        // Where this file system allocates ahead (ext4, XFS, tmpfs on Linux), it was used.
+        let probe = std::fs::File::create(dir.path().join("probe")).unwrap();
+        let can = terrastack::raster::geotiff::file_ranges::reserve(&probe, 4096);
+        assert!(!can || reserved, "{name}: space was allocated ahead");
+    }
+    assert_no_temporary_files(dir.path());
+}

@@ -45,6 +45,12 @@ use super::{
 /// Bytes reserved for the directory and tags when estimating whether BigTIFF is needed.
 const DIRECTORY_MARGIN: u64 = 64 << 20;
 
+/// Smallest and largest step by which a file of compressed blocks is allocated ahead of
+/// its blocks (`file_ranges::reserve`): as much as has been written, within these bounds.
+/// At most one step too much is allocated, and cut when the file is finished.
+const RESERVE_STEP_MIN: u64 = 4 << 20;
+const RESERVE_STEP_MAX: u64 = 64 << 20;
+
 /// Peak bytes the writer holds per block (tile or strip of one band plane) for its index:
 /// offset, byte count and written flag while writing (8 + 8 + 1), then a copy of offsets
 /// and counts as tag values (16) and their bytes in the directory (16) in `finish`.
@@ -58,6 +64,9 @@ struct PendingBlock {
 #[derive(Default)]
 struct State {
     end: u64,
+    /// Bytes of the file allocated ahead of the blocks ([`file_ranges::reserve`]); the
+    /// final length is set when the file is finished.
+    reserved: u64,
     offsets: Vec<u64>,
     counts: Vec<u64>,
     written: Vec<bool>,
@@ -429,6 +438,20 @@ impl GeoTiffWriter {
             tags::write_all_at(&first, &header, 0).map_err(|e| Error::io(path, e))?;
             (first, None, None, header.len() as u64)
         };
+        // Uncompressed blocks have known sizes: their space is allocated at once. Other
+        // files grow by steps as blocks arrive (`append`).
+        let mut reserved = 0;
+        if plan.codec == Codec::None {
+            let data: u64 = (0..plan.block_count())
+                .map(|i| plan.shape((i % plan.per_plane()) / plan.across).bytes() as u64)
+                .sum();
+            if file_ranges::reserve(&file, end + data) {
+                reserved = end + data;
+            }
+        }
+        if let Some(q) = &quarters {
+            file_ranges::reserve(&q.file, (plan.block_count() * q.slot) as u64);
+        }
         Ok(GeoTiffWriter {
             path: path.to_path_buf(),
             file,
@@ -442,6 +465,7 @@ impl GeoTiffWriter {
             resampling: vec![OverviewResampling::Average; bands],
             state: Mutex::new(State {
                 end,
+                reserved,
                 offsets,
                 counts,
                 written,
@@ -741,6 +765,16 @@ impl GeoTiffWriter {
             st.written[index] = true;
             st.offsets[index] = offset;
             st.counts[index] = packed.len() as u64;
+            if st.end > st.reserved {
+                // Steps of the size written so far, between 4 and 64 MiB; a refusal (no
+                // room for the step) stops the steps, and writing goes on as before.
+                let next = st.end + st.end.clamp(RESERVE_STEP_MIN, RESERVE_STEP_MAX);
+                st.reserved = if file_ranges::reserve(&self.file, next) {
+                    next
+                } else {
+                    u64::MAX
+                };
+            }
             offset
         };
         tags::write_all_at(&self.file, &packed, offset).map_err(|e| {
@@ -1019,6 +1053,7 @@ impl GeoTiffWriter {
                 .map_err(io)?;
         let out = if finished_in_place { &self.file } else { out };
         if !finished_in_place {
+            file_ranges::reserve(out, total);
             out.set_len(total).map_err(io)?;
         }
         let mut header: Vec<u8> = if p.big {
