@@ -337,11 +337,12 @@ struct CircularParts {
     cos: Vec<f64>,
 }
 
-/// Each full-resolution tile of a Cloud Optimized file reduced to its quarter of an
-/// overview level 1 tile (t/2 x t/2 cells, uncompressed little-endian samples) when it is
-/// compressed, in slot `tile index` of a temporary file: level 1 is then assembled from
-/// the quarters instead of decompressing every full-resolution tile again. Same bytes
-/// either way: the quarter reduces the same cells in the same order.
+/// Each tile of a Cloud Optimized file reduced to its quarter of a tile of the next level
+/// (t/2 x t/2 cells, uncompressed little-endian samples) before it is compressed, in a
+/// slot of a temporary file ([`GeoTiffWriter::quarter_at`]): the full-resolution tiles
+/// give level 1, the level 1 tiles level 2 and so on, each level assembled from quarters
+/// instead of decompressing the tiles of the level above. Same bytes either way: a
+/// quarter reduces the same cells in the same order.
 struct Quarters {
     file: File,
     /// Bytes of one quarter.
@@ -450,7 +451,8 @@ impl GeoTiffWriter {
             }
         }
         if let Some(q) = &quarters {
-            file_ranges::reserve(&q.file, (plan.block_count() * q.slot) as u64);
+            let tiles: usize = (0..plan.levels.len()).map(|k| plan.level_blocks(k)).sum();
+            file_ranges::reserve(&q.file, (tiles * q.slot) as u64);
         }
         Ok(GeoTiffWriter {
             path: path.to_path_buf(),
@@ -715,18 +717,19 @@ impl GeoTiffWriter {
 
     /// Predict and compress the little-endian samples `raw` of block `index` (block row
     /// `br`; `None` for an overview tile), first keeping its quarter of overview level 1.
+    /// (Overview tiles keep theirs in [`level_from_quarters`](Self::level_from_quarters).)
     fn pack(&self, index: Option<usize>, br: usize, mut raw: Vec<u8>) -> Result<Vec<u8>> {
         if let (Some(q), Some(index)) = (&self.quarters, index) {
             let quarter = match self.plan.sample_type {
-                SampleType::U8 => self.quarter::<u8>(index, &raw),
-                SampleType::U16 => self.quarter::<u16>(index, &raw),
-                SampleType::I16 => self.quarter::<i16>(index, &raw),
-                SampleType::U32 => self.quarter::<u32>(index, &raw),
-                SampleType::I32 => self.quarter::<i32>(index, &raw),
-                SampleType::F32 => self.quarter::<f32>(index, &raw),
-                SampleType::F64 => self.quarter::<f64>(index, &raw),
+                SampleType::U8 => self.quarter::<u8>(0, index, &raw),
+                SampleType::U16 => self.quarter::<u16>(0, index, &raw),
+                SampleType::I16 => self.quarter::<i16>(0, index, &raw),
+                SampleType::U32 => self.quarter::<u32>(0, index, &raw),
+                SampleType::I32 => self.quarter::<i32>(0, index, &raw),
+                SampleType::F32 => self.quarter::<f32>(0, index, &raw),
+                SampleType::F64 => self.quarter::<f64>(0, index, &raw),
             };
-            tags::write_all_at(&q.file, &quarter, (index * q.slot) as u64)
+            tags::write_all_at(&q.file, &quarter, self.quarter_at(q, 0, index))
                 .map_err(|e| Error::io(&self.path, e))?;
         }
         let shape = self.plan.shape(br);
@@ -1148,8 +1151,8 @@ impl GeoTiffWriter {
         index: usize,
         prev: &LevelTiles,
     ) -> Result<Vec<u8>> {
-        if let (1, Some(q)) = (k, &self.quarters) {
-            return self.level_one_from_quarters::<T>(q, index);
+        if let Some(q) = &self.quarters {
+            return self.level_from_quarters::<T>(q, k, index);
         }
         let p = &self.plan;
         let t = p.block_w;
@@ -1220,23 +1223,30 @@ impl GeoTiffWriter {
         self.pack(None, 0, out)
     }
 
-    /// Full-resolution tile `index` (little-endian samples `raw`, padded to the tile)
-    /// reduced to the t/2 x t/2 cells it covers at overview level 1, as little-endian
-    /// samples: cell (r, c) reduces cells (2r, 2c), (2r, 2c + 1), (2r + 1, 2c),
-    /// (2r + 1, 2c + 1) of the tile, those past the raster's edge and nodata left out;
-    /// cells with none left hold the nodata fill.
-    fn quarter<T: TiffSample>(&self, index: usize, raw: &[u8]) -> Vec<u8> {
+    /// Tile `index` of level `k` (0 = full resolution; little-endian samples `raw`,
+    /// padded to the tile) reduced to the t/2 x t/2 cells it covers at level k + 1, as
+    /// little-endian samples: cell (r, c) reduces cells (2r, 2c), (2r, 2c + 1),
+    /// (2r + 1, 2c), (2r + 1, 2c + 1) of the tile, those past the level's edge and nodata
+    /// left out; cells with none left hold the nodata fill.
+    fn quarter<T: TiffSample>(&self, k: usize, index: usize, raw: &[u8]) -> Vec<u8> {
         let p = &self.plan;
         let t = p.block_w;
         let half = t / 2;
         let spp = p.samples_per_block_pixel();
         let ss = T::TYPE.size();
-        let per_plane = p.per_plane();
+        let (across, down) = p.level_grid(k);
+        let per_plane = across * down;
         let plane = index / per_plane;
-        let (bc, br) = (index % per_plane % p.across, index % per_plane / p.across);
-        let (vw, vh) = p.valid_size(bc, br);
+        let (bc, br) = (index % per_plane % across, index % per_plane / across);
+        let (w, h) = p.level_size(k);
+        let (vw, vh) = (t.min(w - bc * t), t.min(h - br * t));
         let fill = T::from_f64_saturating(self.grid.nodata.unwrap_or(0.0));
         let mut out = T::fill_le(fill, half * half * spp);
+        let band = if p.planar { plane } else { 0 };
+        if spp == 1 && self.resampling[band] == OverviewResampling::Average {
+            self.quarter_average::<T>(raw, (vw, vh), &mut out);
+            return out;
+        }
         let values = self.values(raw, sample_le::<T>);
         let parts = self.circular_parts(plane, &values);
         let at = |r: usize, c: usize, s: usize| (r * t + c) * spp + s;
@@ -1261,6 +1271,44 @@ impl GeoTiffWriter {
             }
         }
         out
+    }
+
+    /// [`quarter`](Self::quarter) of a tile with one sample per pixel whose band takes
+    /// the average (`vw` x `vh` valid cells), into `out`: the same values, each read
+    /// straight from the tile's bytes and reduced by [`overview::reduce`] in the same
+    /// order, without a converted copy of the tile.
+    fn quarter_average<T: TiffSample>(&self, raw: &[u8], (vw, vh): (usize, usize), out: &mut [u8]) {
+        let t = self.plan.block_w;
+        let half = t / 2;
+        let ss = std::mem::size_of::<T>();
+        let nodata = self.grid.nodata.and_then(T::nodata_match);
+        let value = |i: usize| {
+            let v = sample_le::<T>(&raw[i * ss..(i + 1) * ss]).to_f64();
+            if nodata == Some(v) {
+                f64::NAN
+            } else {
+                v
+            }
+        };
+        for r in 0..vh.div_ceil(2) {
+            let second_row = 2 * r + 1 < vh;
+            for c in 0..vw.div_ceil(2) {
+                let second_col = 2 * c + 1 < vw;
+                let i = 2 * r * t + 2 * c;
+                let either = |take: bool, i: usize| if take { value(i) } else { f64::NAN };
+                let cells = [
+                    value(i),
+                    either(second_col, i + 1),
+                    either(second_row, i + t),
+                    either(second_row && second_col, i + t + 1),
+                ];
+                let v = overview::reduce(OverviewResampling::Average, &cells);
+                if !v.is_nan() {
+                    let at = (r * half + c) * ss;
+                    T::from_f64_saturating(v).put_le(&mut out[at..at + ss]);
+                }
+            }
+        }
     }
 
     /// The samples of `bytes` (each read by `read`) as f64, the nodata value as NaN.
@@ -1326,21 +1374,23 @@ impl GeoTiffWriter {
         overview::reduce(self.resampling[band], &vals)
     }
 
-    /// Tile `index` of overview level 1 put together from the quarters of the (up to)
-    /// four full-resolution tiles it covers, predicted and compressed.
-    fn level_one_from_quarters<T: TiffSample>(
+    /// Tile `index` of overview level `k` (1-based) put together from the quarters of
+    /// the (up to) four tiles of level k − 1 it covers, predicted and compressed; below
+    /// the last level, its own quarter is kept first, for level k + 1.
+    fn level_from_quarters<T: TiffSample>(
         &self,
         q: &Quarters,
+        k: usize,
         index: usize,
     ) -> Result<Vec<u8>> {
         let p = &self.plan;
         let t = p.block_w;
         let half = t / 2;
-        let (across, down) = p.level_grid(1);
+        let (across, down) = p.level_grid(k);
         let per_plane = across * down;
         let plane = index / per_plane;
         let (tc, tr) = (index % per_plane % across, index % per_plane / across);
-        let (pa, pd) = p.level_grid(0);
+        let (pa, pd) = p.level_grid(k - 1);
         let spp = p.samples_per_block_pixel();
         let ss = T::TYPE.size();
         let row_bytes = half * spp * ss;
@@ -1353,7 +1403,7 @@ impl GeoTiffWriter {
                 continue;
             }
             let ci = plane * pa * pd + cr * pa + cc;
-            tags::read_exact_at(&q.file, &mut quarter, (ci * q.slot) as u64)
+            tags::read_exact_at(&q.file, &mut quarter, self.quarter_at(q, k - 1, ci))
                 .map_err(|e| Error::io(&self.path, e))?;
             for r in 0..half {
                 let to = ((dy * half + r) * t + dx * half) * spp * ss;
@@ -1361,7 +1411,19 @@ impl GeoTiffWriter {
                     .copy_from_slice(&quarter[r * row_bytes..(r + 1) * row_bytes]);
             }
         }
+        if k < p.levels.len() {
+            let own = self.quarter::<T>(k, index, &out);
+            tags::write_all_at(&q.file, &own, self.quarter_at(q, k, index))
+                .map_err(|e| Error::io(&self.path, e))?;
+        }
         self.pack(None, 0, out)
+    }
+
+    /// Where the quarter of tile `index` of level `k` (0 = full resolution) lies in the
+    /// quarters file: the levels one after another, a slot per tile.
+    fn quarter_at(&self, q: &Quarters, k: usize, index: usize) -> u64 {
+        let before: usize = (0..k).map(|j| self.plan.level_blocks(j)).sum();
+        ((before + index) * q.slot) as u64
     }
 }
 
