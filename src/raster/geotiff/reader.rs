@@ -2,8 +2,10 @@
 //!
 //! Opening reads the header and the first image file directory only (later directories
 //! hold overviews or masks). A window read decodes just the strips or tiles it touches;
-//! decoded blocks are kept in a small least-recently-used cache shared by all threads, so
-//! memory depends on the cache size and the window, never on the file. Blocks are read
+//! decompressed blocks are kept in a small least-recently-used cache shared by all
+//! threads, uncompressed ones pass through a buffer of the reading thread's (the page
+//! cache already holds them), so memory depends on the cache size, the threads and the
+//! window, never on the file. Blocks are read
 //! with positioned reads (no shared file cursor, no lock) and decompressed outside the
 //! cache lock, so many threads can read one file at once.
 
@@ -34,8 +36,8 @@ use super::{
 const VIRTUAL_STRIP_BYTES: usize = 8 << 20;
 
 /// Largest buffer for uncompressed blocks a thread keeps between reads (larger blocks get
-/// a buffer for the one read).
-const SCRATCH_KEEP_BYTES: usize = 16 << 20;
+/// a buffer for the one read): a virtual strip of a single-strip file.
+const SCRATCH_KEEP_BYTES: usize = VIRTUAL_STRIP_BYTES;
 
 thread_local! {
     /// Each thread's buffer for uncompressed blocks (see [`GeoTiffReader::with_block`]).

@@ -12,10 +12,16 @@
 //! tile offsets and byte counts of all of them; the overviews' tiles from the smallest
 //! level up; the full-resolution tiles. Blocks are then appended to a spill file beside
 //! the output (`.NAME.partial-PID`, removed when the writer ends; a killed run's is removed
-//! as a stale partial, [`crate::atomic_file`]). `finish` builds each overview level from
-//! the previous one, reading its tiles back one 2 x 2 group at a time (memory stays a few
-//! tiles per thread, whatever the raster), appends them to the spill file, writes the
-//! directories into the output and copies the tiles in after them, smallest level first.
+//! as a stale partial, [`crate::atomic_file`]). Each tile's quarter of the next level is
+//! kept, uncompressed, in a second temporary file before the tile is compressed; `finish`
+//! assembles each overview level from the quarters of the level above, a few tiles per
+//! thread at a time (memory stays a few tiles per thread, whatever the raster), appends
+//! them to the spill file, writes the directories into the output and puts the tiles in
+//! after them, smallest level first. (When a band's overview rule changed after tiles were
+//! written, the levels are made by reading the tiles of the level above back instead.)
+//!
+//! File space is allocated ahead of the blocks where the system allows
+//! ([`file_ranges::reserve`]) and the file cut to its content when it is finished.
 //! Overview IFDs carry NewSubfileType 1 and the full resolution's tiling, compression,
 //! predictor, sample format and nodata; GeoKeys and band metadata are on the full
 //! resolution only, which they describe for all levels (OGC 21-026 §7 "Georeference Keys").
@@ -319,7 +325,8 @@ pub struct GeoTiffWriter {
     output: Option<File>,
     /// The spill file, removed when the writer ends (held for its `Drop`).
     _spill: Option<SpillFile>,
-    /// Overview level 1 made from each full-resolution tile while it is in memory.
+    /// Each overview level made from the quarters of the level above, kept while its
+    /// tiles were in memory.
     quarters: Option<Quarters>,
     grid: Grid,
     plan: Plan,
@@ -500,8 +507,8 @@ impl GeoTiffWriter {
     pub fn set_band_overview(&mut self, band: usize, resampling: OverviewResampling) {
         if band >= 1 && band <= self.plan.bands && self.resampling[band - 1] != resampling {
             self.resampling[band - 1] = resampling;
-            // Quarters already made used the old resampling: level 1 is then made from the
-            // full-resolution tiles.
+            // Quarters already made used the old resampling: the levels are then made by
+            // reading back the tiles of the level above.
             let started = self
                 .state
                 .get_mut()
