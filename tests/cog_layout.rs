@@ -538,6 +538,17 @@ fn level_one_kept_while_writing_equals_level_one_read_back() {
     assert_no_temporary_files(dir.path());
 }
 
+/// Each band of `got` holds the cells of the same band of `want`, NaN where it is NaN.
+fn assert_same_cells(got: &[Array2<f32>], want: &[Array2<f32>]) {
+    assert_eq!(got.len(), want.len());
+    for (g, w) in got.iter().zip(want) {
+        assert!(g
+            .iter()
+            .zip(w)
+            .all(|(a, b)| a == b || a.is_nan() && b.is_nan()));
+    }
+}
+
 /// Values that Deflate cannot shrink much (so that a few megacells make more than
 /// `IN_PLACE_MIN_BYTES` of tiles), with a pattern of nodata cells.
 fn rough(w: usize, h: usize, seed: u64) -> Array2<f32> {
@@ -595,13 +606,7 @@ fn large_files_finished_in_the_spill_file_equal_copied_ones() {
         bytes.len() as u64,
         first + dirs[0].counts.iter().sum::<u64>()
     );
-    let full = decode_level(&in_place, 0);
-    for (got, want) in full.iter().zip(&bands) {
-        assert!(got
-            .iter()
-            .zip(want)
-            .all(|(a, b)| a == b || a.is_nan() && b.is_nan()));
-    }
+    assert_same_cells(&decode_level(&in_place, 0), &bands);
     // Written through a symbolic link, the link stays and the file it names gets the bytes.
     #[cfg(unix)]
     {
@@ -685,12 +690,7 @@ fn space_allocated_ahead_leaves_the_bytes_as_they_were() {
             .unwrap();
         assert_eq!(bytes.len() as u64, end, "{name}");
         let full = decode_level(&ahead, 0);
-        for (got, want) in full.iter().zip(&bands) {
-            assert!(got
-                .iter()
-                .zip(want)
-                .all(|(a, b)| a == b || a.is_nan() && b.is_nan()));
-        }
+        assert_same_cells(&full, &bands);
         // Where this file system allocates ahead (ext4, XFS, tmpfs on Linux), it was used.
         let probe = std::fs::File::create(dir.path().join("probe")).unwrap();
         let can = terrastack::raster::geotiff::file_ranges::reserve(&probe, 4096);

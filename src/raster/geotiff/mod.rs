@@ -554,6 +554,17 @@ mod tests {
         (dir, path, r)
     }
 
+    /// The error of reading the 4 x 3 window of a file that opens, and the file's path.
+    fn read_error(bytes: &[u8]) -> (String, String) {
+        let (_d, path, r) = open_bytes(bytes);
+        let msg = r
+            .unwrap()
+            .read_window(1, Window::new(0, 0, 4, 3))
+            .unwrap_err()
+            .to_string();
+        (msg, path.display().to_string())
+    }
+
     fn err_text(r: Result<GeoTiffReader>) -> String {
         match r {
             Ok(_) => panic!("the file was accepted"),
@@ -620,16 +631,8 @@ mod tests {
             tags::STRIP_OFFSETS,
             Long(vec![1_000_000]),
         );
-        let (_d, path, r) = open_bytes(&handmade(e, &[0; 12]));
-        let msg = r
-            .unwrap()
-            .read_window(1, Window::new(0, 0, 4, 3))
-            .unwrap_err()
-            .to_string();
-        assert!(
-            msg.contains("past the end") && msg.contains(&path.display().to_string()),
-            "{msg}"
-        );
+        let (msg, path) = read_error(&handmade(e, &[0; 12]));
+        assert!(msg.contains("past the end") && msg.contains(&path), "{msg}");
         // Unsupported sample type: signed 8-bit.
         let e = with(plain_entries(4, 3, 12), tags::SAMPLE_FORMAT, Short(vec![2]));
         let t = err_text(open_bytes(&handmade(e, &[0; 12])).2);
@@ -810,17 +813,12 @@ mod tests {
             assert!(got.iter().zip(want.iter()).all(|(g, w)| *g == *w as f32));
             assert_eq!(got.len(), want.len());
         }
-        let (_d, path, r) = open_bytes(&handmade(plain_entries(4, 3, 10), &small));
-        let msg = r
-            .unwrap()
-            .read_window(1, Window::new(0, 0, 4, 3))
-            .unwrap_err()
-            .to_string();
+        let (msg, path) = read_error(&handmade(plain_entries(4, 3, 10), &small));
         assert!(
             msg.contains("strip 0")
                 && msg.contains("10 bytes where 12")
                 && msg.contains("fix:")
-                && msg.contains(&path.display().to_string()),
+                && msg.contains(&path),
             "{msg}"
         );
     }
