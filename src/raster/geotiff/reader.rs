@@ -5,9 +5,9 @@
 //! decompressed blocks are kept in a small least-recently-used cache shared by all
 //! threads, uncompressed ones pass through a buffer of the reading thread's (the page
 //! cache already holds them), so memory depends on the cache size, the threads and the
-//! window, never on the file. Blocks are read
-//! with positioned reads (no shared file cursor, no lock) and decompressed outside the
-//! cache lock, so many threads can read one file at once.
+//! window, never on the file. Blocks are read with positioned reads (no shared file
+//! cursor, no lock) and decompressed outside the cache lock, so many threads can read one
+//! file at once.
 
 use std::collections::HashMap;
 use std::fs::File;

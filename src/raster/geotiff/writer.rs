@@ -19,12 +19,12 @@
 //! them to the spill file, writes the directories into the output and puts the tiles in
 //! after them, smallest level first. (When a band's overview rule changed after tiles were
 //! written, the levels are made by reading the tiles of the level above back instead.)
-//!
-//! File space is allocated ahead of the blocks where the system allows
-//! ([`file_ranges::reserve`]) and the file cut to its content when it is finished.
 //! Overview IFDs carry NewSubfileType 1 and the full resolution's tiling, compression,
 //! predictor, sample format and nodata; GeoKeys and band metadata are on the full
 //! resolution only, which they describe for all levels (OGC 21-026 §7 "Georeference Keys").
+//!
+//! File space is allocated ahead of the blocks where the system allows
+//! ([`file_ranges::reserve`]) and the file cut to its content when it is finished.
 //!
 //! Pixel-interleaved files hold all bands in each block, so their blocks wait in memory
 //! until every band of the block has arrived: memory is bounded by the blocks in flight.
