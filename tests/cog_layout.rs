@@ -488,7 +488,8 @@ fn write_blocks(path: &Path, g: &Grid, bands: &[Array2<f32>], o: WriteOptions, r
 #[test]
 fn level_one_kept_while_writing_equals_level_one_read_back() {
     // Both ways of making overview level 1 give the same file, byte for byte: for float
-    // bands, for integers with a nodata value, band-sequential and pixel-interleaved, with
+    // bands, for integers with a nodata value, band-sequential and pixel-interleaved (each
+    // both ways), with
     // edge tiles cut by the raster's size (odd widths and heights), circular, average and
     // nearest bands.
     let dir = util::tempdir();
@@ -511,6 +512,14 @@ fn level_one_kept_while_writing_equals_level_one_read_back() {
             WriteOptions {
                 interleave: Interleave::Pixel,
                 ..options(64)
+            },
+        ),
+        (
+            "u16-band",
+            util::utm_grid(w, h, 0.5).with_nodata(Some(4.0)),
+            WriteOptions {
+                sample_type: terrastack::raster::SampleType::U16,
+                ..options(32)
             },
         ),
         (

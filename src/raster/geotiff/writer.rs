@@ -1297,9 +1297,18 @@ impl GeoTiffWriter {
                 v
             }
         };
+        let fill = T::from_f64_saturating(self.grid.nodata.unwrap_or(0.0));
         for r in 0..vh.div_ceil(2) {
             let second_row = 2 * r + 1 < vh;
-            for c in 0..vw.div_ceil(2) {
+            // Whole 2 x 2 groups: in one loop that vectorises.
+            let whole = if second_row { vw / 2 } else { 0 };
+            if whole > 0 {
+                let top = &raw[2 * r * t * ss..][..2 * whole * ss];
+                let below = &raw[(2 * r + 1) * t * ss..][..2 * whole * ss];
+                let row = &mut out[r * half * ss..][..whole * ss];
+                average_groups::<T>(top, below, row, nodata, fill);
+            }
+            for c in whole..vw.div_ceil(2) {
                 let second_col = 2 * c + 1 < vw;
                 let i = 2 * r * t + 2 * c;
                 let either = |take: bool, i: usize| if take { value(i) } else { f64::NAN };
@@ -1431,6 +1440,48 @@ impl GeoTiffWriter {
     fn quarter_at(&self, q: &Quarters, k: usize, index: usize) -> u64 {
         let before: usize = (0..k).map(|j| self.plan.level_blocks(j)).sum();
         ((before + index) * q.slot) as u64
+    }
+}
+
+/// The average of each 2 x 2 group of cells, the groups side by side along the two rows
+/// `top` and `below` (little-endian samples), into `out`: the value
+/// [`overview::reduce`] gives for the group's cells in the order upper left, upper right,
+/// lower left, lower right, nodata (`nodata`) left out, and `fill` where none is left or
+/// the mean is NaN. Without branches, so that the loop vectorises: each cell adds its
+/// value or +0.0 to a sum that starts at +0.0 (never −0.0, so adding +0.0 changes
+/// nothing) and 0 / 0 is the NaN of an empty group.
+#[inline(never)]
+fn average_groups<T: TiffSample>(
+    top: &[u8],
+    below: &[u8],
+    out: &mut [u8],
+    nodata: Option<f64>,
+    fill: T,
+) {
+    let ss = std::mem::size_of::<T>();
+    let nd = nodata.unwrap_or(f64::NAN);
+    let part = |b: &[u8]| {
+        let v = sample_le::<T>(b).to_f64();
+        // NaN never equals `nd`; a NaN sample (a float band) is left out as well.
+        let valid = !v.is_nan() && v != nd;
+        (if valid { v } else { 0.0 }, if valid { 1.0 } else { 0.0 })
+    };
+    for ((a, b), o) in top
+        .chunks_exact(2 * ss)
+        .zip(below.chunks_exact(2 * ss))
+        .zip(out.chunks_exact_mut(ss))
+    {
+        let (ul, n0) = part(&a[..ss]);
+        let (ur, n1) = part(&a[ss..]);
+        let (ll, n2) = part(&b[..ss]);
+        let (lr, n3) = part(&b[ss..]);
+        let mean = (((0.0 + ul) + ur) + ll + lr) / (n0 + n1 + n2 + n3);
+        let v = if mean.is_nan() {
+            fill
+        } else {
+            T::from_f64_saturating(mean)
+        };
+        v.put_le(o);
     }
 }
 
