@@ -1251,7 +1251,7 @@ impl GeoTiffWriter {
         let mut out = T::fill_le(fill, half * half * spp);
         let band = if p.planar { plane } else { 0 };
         if spp == 1 && self.resampling[band] == OverviewResampling::Average {
-            self.quarter_average::<T>(raw, (vw, vh), &mut out);
+            self.quarter_average::<T>(raw, (vw, vh), fill, &mut out);
             return out;
         }
         let values = self.values(raw, sample_le::<T>);
@@ -1281,10 +1281,17 @@ impl GeoTiffWriter {
     }
 
     /// [`quarter`](Self::quarter) of a tile with one sample per pixel whose band takes
-    /// the average (`vw` x `vh` valid cells), into `out`: the same values, each read
-    /// straight from the tile's bytes and reduced by [`overview::reduce`] in the same
-    /// order, without a converted copy of the tile.
-    fn quarter_average<T: TiffSample>(&self, raw: &[u8], (vw, vh): (usize, usize), out: &mut [u8]) {
+    /// the average (`vw` x `vh` valid cells), into `out` (already holding the nodata
+    /// `fill`): the same values, read straight from the tile's bytes without a converted
+    /// copy of the tile; whole 2 x 2 groups by [`average_groups`], the groups cut by the
+    /// level's edge by [`overview::reduce`] in the same order.
+    fn quarter_average<T: TiffSample>(
+        &self,
+        raw: &[u8],
+        (vw, vh): (usize, usize),
+        fill: T,
+        out: &mut [u8],
+    ) {
         let t = self.plan.block_w;
         let half = t / 2;
         let ss = std::mem::size_of::<T>();
@@ -1297,7 +1304,6 @@ impl GeoTiffWriter {
                 v
             }
         };
-        let fill = T::from_f64_saturating(self.grid.nodata.unwrap_or(0.0));
         for r in 0..vh.div_ceil(2) {
             let second_row = 2 * r + 1 < vh;
             // Whole 2 x 2 groups: in one loop that vectorises.
